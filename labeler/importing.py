@@ -1,0 +1,103 @@
+"""Reading interval-label files: one row per labeled interval of a recording.
+
+Columns (header required, comma-separated, UTF-8): ``recording`` (the recording's name in the
+project), ``start`` and ``end`` (seconds from the recording's first sample), ``label`` (a class name),
+and optionally ``annotator`` (who labeled it; default: the importing annotator) and ``note``.
+
+A window takes an interval's label when more than half of the window lies inside the interval (the
+"majority" rule); a window that straddles a boundary therefore goes to the interval holding most of it,
+and a window split evenly goes to neither.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from labeler.errors import InputError
+
+REQUIRED = ("recording", "start", "end", "label")
+OPTIONAL = ("annotator", "note")
+
+
+@dataclass
+class Interval:
+    row: int  # line number in the file (header is line 1)
+    recording: str
+    start: float
+    end: float
+    label: str
+    annotator: str | None
+    note: str | None
+
+
+def read_intervals(path: str | os.PathLike) -> list[Interval]:
+    """Parse and check an interval-label file. Raises InputError naming the row or column."""
+    path = Path(path)
+    where = str(path)
+    if not path.exists():
+        raise InputError(f"{where}: no such file; check the path")
+    if path.stat().st_size == 0:
+        raise InputError(f"{where}: the file is empty; it needs a header recording,start,end,label")
+    try:
+        frame = pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8-sig",
+                            skipinitialspace=True)
+    except UnicodeDecodeError:
+        raise InputError(f"{where}: not UTF-8 text; save it as UTF-8 CSV") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise InputError(f"{where}: cannot be parsed as CSV ({' '.join(str(exc).split())[:80]}); "
+                         "check the commas") from None
+    frame.columns = [str(c).strip().lower() for c in frame.columns]
+    unknown = [c for c in frame.columns if c not in REQUIRED + OPTIONAL]
+    if unknown:
+        raise InputError(f"{where}: unknown column {unknown[0]!r}; columns are "
+                         f"{', '.join(REQUIRED)}[, {', '.join(OPTIONAL)}]")
+    missing = [c for c in REQUIRED if c not in frame.columns]
+    if missing:
+        raise InputError(f"{where}: missing column {missing[0]!r}; the header must name "
+                         + ",".join(REQUIRED))
+    out: list[Interval] = []
+    for i, rec in enumerate(frame.itertuples(index=False)):
+        line = i + 2
+        d = rec._asdict()
+        name = str(d["recording"]).strip()
+        if not name:
+            raise InputError(f"{where}: row {line}, column 'recording': empty; name the recording")
+        try:
+            start, end = float(d["start"]), float(d["end"])
+        except ValueError:
+            raise InputError(f"{where}: row {line}: start {d['start']!r} and end {d['end']!r} must "
+                             "be seconds") from None
+        if not (np.isfinite(start) and np.isfinite(end)):
+            raise InputError(f"{where}: row {line}: start and end must be finite seconds")
+        if end <= start:
+            raise InputError(f"{where}: row {line}: end {end:g} is not after start {start:g}; "
+                             "swap them or fix the row")
+        if start < 0:
+            raise InputError(f"{where}: row {line}, column 'start': {start:g} is negative; times "
+                             "count from the recording's first sample")
+        label = str(d["label"]).strip()
+        if not label:
+            raise InputError(f"{where}: row {line}, column 'label': empty; give a class name")
+        who = str(d.get("annotator") or "").strip() or None
+        note = str(d.get("note") or "").strip() or None
+        out.append(Interval(line, name, start, end, label, who, note))
+    if not out:
+        raise InputError(f"{where}: header only, no intervals; add rows recording,start,end,label")
+    # overlapping intervals of one recording with different labels contradict each other
+    by_rec: dict[str, list[Interval]] = {}
+    for iv in out:
+        by_rec.setdefault(iv.recording, []).append(iv)
+    for ivs in by_rec.values():
+        ivs = sorted(ivs, key=lambda v: (v.start, v.end))
+        for a, b in zip(ivs, ivs[1:]):
+            if b.start < a.end and a.label != b.label and (a.annotator or "") == (b.annotator or ""):
+                raise InputError(
+                    f"{where}: rows {a.row} and {b.row} overlap ({a.recording} {b.start:g}-"
+                    f"{min(a.end, b.end):g} s) with different labels {a.label!r} and {b.label!r}; "
+                    "make them meet end to start")
+    return out

@@ -1,0 +1,614 @@
+"""`Project`: the one service layer under the CLI and the app. Every use case is a method here.
+
+A project is one SQLite file (see :mod:`storage.store`). `Project` turns recordings into windows and
+features, keeps classes and the label history, and hands numerics their arrays. It holds no user
+interface and no SQL of its own beyond what :class:`storage.Store` offers.
+"""
+
+from __future__ import annotations
+
+import getpass
+import os
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable, Iterable, Sequence
+
+import numpy as np
+import pandas as pd
+
+import labeler
+from labeler import features as _features
+from labeler.errors import InputError, LabelerError, ProjectError
+from labeler.recordings import Recording, read_recording
+from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+from storage import Store, StoreError
+
+# Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
+# colorblind people", 2008: eight colours distinguishable with the common colour-vision deficiencies.
+# Black is last; it is used for the eighth class.
+PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000")
+CHUNK_SECONDS = 60.0
+SOURCES = ("map", "timeline", "queue", "audit", "import", "cli", "api", "class-merge", "undo")
+_CLASS_NAME = re.compile(r"^[^\x00-\x1f\x7f]{1,60}$")
+
+Progress = Callable[[float, str], None]
+
+
+def default_annotator() -> str:
+    name = os.environ.get("LABELER_ANNOTATOR")
+    if name:
+        return name
+    try:
+        return getpass.getuser()
+    except Exception:  # no user name on some systems
+        return "annotator"
+
+
+@dataclass
+class AddedRecording:
+    id: int
+    name: str
+    n_samples: int
+    rate: float
+    n_windows: int
+    duration_s: float
+    repairs: list[str]
+
+
+class Project:
+    """An open project file.
+
+    >>> p = Project.create("shift.labeler")                          # doctest: +SKIP
+    >>> p.add_recordings(["picker01.csv"])                           # doctest: +SKIP
+    >>> p.confirm([12, 13, 14], "walking")                           # doctest: +SKIP
+    """
+
+    def __init__(self, store: Store, annotator: str | None = None):
+        self.store = store
+        self.path = store.path
+        self.annotator = _check_annotator(annotator or default_annotator())
+        self._cache: dict[str, object] = {}
+
+    # ------------------------------------------------------------------ create / open
+    @classmethod
+    def create(cls, path: str | os.PathLike, *, window_length_s: float = DEFAULT_LENGTH_S,
+               window_step_s: float = DEFAULT_STEP_S, annotator: str | None = None) -> "Project":
+        if not (window_length_s > 0) or not (window_step_s > 0):
+            raise InputError(f"window length and step must be > 0 s (got {window_length_s}, "
+                             f"{window_step_s}); give e.g. --window 2.56 --step 1.28")
+        if window_step_s > window_length_s:
+            raise InputError(f"window step {window_step_s} s is longer than the window "
+                             f"{window_length_s} s; samples in between would never be labeled")
+        settings = {"window_length_s": float(window_length_s), "window_step_s": float(window_step_s),
+                    "feature_set_version": _features.FEATURE_SET_VERSION}
+        try:
+            store = Store.create(path, settings, tool_version=labeler.__version__)
+        except StoreError as exc:
+            raise ProjectError(str(exc)) from None
+        return cls(store, annotator)
+
+    @classmethod
+    def open(cls, path: str | os.PathLike, *, annotator: str | None = None,
+             readonly: bool = False) -> "Project":
+        try:
+            store = Store.open(path, readonly=readonly)
+        except StoreError as exc:
+            raise ProjectError(str(exc)) from None
+        return cls(store, annotator)
+
+    def close(self) -> None:
+        self.store.close()
+
+    def __enter__(self) -> "Project":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def _invalidate(self, *keys: str) -> None:
+        if not keys:
+            self._cache.clear()
+        for k in keys:
+            self._cache.pop(k, None)
+
+    # ------------------------------------------------------------------ settings
+    @property
+    def window_length_s(self) -> float:
+        return float(self.store.setting("window_length_s", DEFAULT_LENGTH_S))
+
+    @property
+    def window_step_s(self) -> float:
+        return float(self.store.setting("window_step_s", DEFAULT_STEP_S))
+
+    @property
+    def feature_set_version(self) -> str:
+        return str(self.store.setting("feature_set_version", _features.FEATURE_SET_VERSION))
+
+    # ------------------------------------------------------------------ recordings
+    def add_recordings(self, paths: Sequence[str | os.PathLike], *, rate: float | None = None,
+                       time_column: str | None = None, acc_unit: str = "g",
+                       gyr_unit: str = "deg/s", progress: Progress | None = None
+                       ) -> list[AddedRecording]:
+        """Read, check and add recording files; all of them or none (one transaction).
+
+        Every file is read and checked before anything is written, so a bad file leaves the project
+        as it was.
+        """
+        if not paths:
+            raise InputError("no recording files given; pass one or more CSV or Parquet files")
+        recs: list[Recording] = []
+        for i, p in enumerate(paths):
+            if progress:
+                progress(i / (2 * len(paths)), f"reading {Path(p).name}")
+            recs.append(read_recording(p, rate=rate, time_column=time_column, acc_unit=acc_unit,
+                                       gyr_unit=gyr_unit))
+        return self.add_recording_data(recs, progress=progress, _offset=0.5)
+
+    def add_recording_data(self, recordings: Sequence[Recording], *,
+                           progress: Progress | None = None, _offset: float = 0.0
+                           ) -> list[AddedRecording]:
+        """Add already-read recordings (from :func:`read_recording` or a simulator)."""
+        existing = {r["content_hash"]: r["name"] for r in self.store.recordings()}
+        names = {r["name"] for r in self.store.recordings()}
+        seen: dict[str, str] = {}
+        for rec in recordings:
+            if rec.content_hash in existing:
+                raise InputError(f"{rec.source_path}: already in the project as recording "
+                                 f"{existing[rec.content_hash]!r} (same content); nothing added")
+            if rec.content_hash in seen:
+                raise InputError(f"{rec.source_path}: same content as {seen[rec.content_hash]}; "
+                                 "give each recording once; nothing added")
+            seen[rec.content_hash] = rec.source_path
+            if rec.name in names:
+                raise InputError(f"{rec.source_path}: a recording named {rec.name!r} is already in "
+                                 "the project; rename the file; nothing added")
+            names.add(rec.name)
+        prepared = []
+        for i, rec in enumerate(recordings):
+            if progress:
+                progress(_offset + (1 - _offset) * i / max(1, len(recordings)),
+                         f"features of {rec.name}")
+            prepared.append(self._prepare(rec))
+        added = []
+        try:
+            with self.store.atomic():
+                for rec, (row, chunks, wins, feats) in zip(recordings, prepared):
+                    rid = self.store.add_recording(row, chunks, wins, feats)
+                    added.append(AddedRecording(rid, rec.name, rec.n_samples, rec.rate,
+                                                len(wins["seq"]), rec.duration_s, rec.repairs))
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+        self._invalidate()
+        if progress:
+            progress(1.0, "done")
+        self._after_recordings_added([a.id for a in added])
+        return added
+
+    def _after_recordings_added(self, recording_ids: list[int]) -> None:
+        """Hook for derived results (maps, graphs) that follow new recordings."""
+
+    def _prepare(self, rec: Recording):
+        length, step = window_samples(rec.rate, self.window_length_s, self.window_step_s)
+        starts = cut_windows(rec.valid, length, step)
+        if starts.size == 0:
+            raise InputError(
+                f"{rec.source_path}: {rec.duration_s:.2f} s of usable signal holds no window of "
+                f"{self.window_length_s:g} s; give a longer recording or a project with shorter windows")
+        X, names = _features.window_features(rec.signal, starts, length, rec.rate, rec.channels)
+        X = np.ascontiguousarray(X, dtype=np.float32)
+        if not np.isfinite(X).all():
+            bad = names[int(np.flatnonzero(~np.isfinite(X).all(axis=0))[0])]
+            raise InputError(f"{rec.source_path}: feature {bad} is not finite; check the recording "
+                             "for constant or broken channels")
+        row = {"name": rec.name, "source_path": rec.source_path, "content_hash": rec.content_hash,
+               "rate": rec.rate, "channels": rec.channels, "units": rec.units,
+               "n_samples": rec.n_samples, "start_time": rec.start_time,
+               "added_by": self.annotator, "repairs": rec.repairs, "window_length": length,
+               "window_step": step}
+        chunk = max(1, int(CHUNK_SECONDS * rec.rate))
+        sig = np.ascontiguousarray(rec.signal, dtype=np.float32)
+        chunks = [(a, min(chunk, rec.n_samples - a), sig.shape[1], sig[a:a + chunk].tobytes())
+                  for a in range(0, rec.n_samples, chunk)]
+        wins = {"seq": np.arange(starts.size), "start_sample": starts,
+                "stop_sample": starts + length, "start_s": starts / rec.rate,
+                "stop_s": (starts + length) / rec.rate}
+        feats = {"version": _features.FEATURE_SET_VERSION, "names": names,
+                 "n_windows": int(X.shape[0]), "n_features": int(X.shape[1]), "data": X.tobytes()}
+        return row, chunks, wins, feats
+
+    def recordings(self) -> pd.DataFrame:
+        rows = self.store.recordings()
+        cols = ["id", "name", "source_path", "content_hash", "rate", "channels", "units",
+                "n_samples", "start_time", "added_at", "added_by", "repairs", "window_length",
+                "window_step"]
+        return pd.DataFrame(rows, columns=cols)
+
+    def recording_id(self, name_or_id: str | int) -> int:
+        recs = self.recordings()
+        if isinstance(name_or_id, (int, np.integer)) or str(name_or_id).isdigit():
+            hit = recs[recs["id"] == int(name_or_id)]
+            if len(hit) == 0:
+                hit = recs[recs["name"] == str(name_or_id)]
+        else:
+            hit = recs[recs["name"] == str(name_or_id)]
+        if len(hit) == 0:
+            known = ", ".join(recs["name"].head(8)) or "none yet"
+            raise InputError(f"no recording {name_or_id!r} in the project; recordings: {known}")
+        return int(hit["id"].iloc[0])
+
+    def signal(self, recording: str | int, start_s: float | None = None,
+               stop_s: float | None = None) -> tuple[np.ndarray, np.ndarray, list[str]]:
+        """(time in s, signal (n, channels) float32 with NaN in gaps, channel names) of a span."""
+        rid = self.recording_id(recording)
+        rec = self.recordings().set_index("id").loc[rid]
+        rate = float(rec["rate"])
+        a = 0 if start_s is None else max(0, int(np.floor(start_s * rate)))
+        b = int(rec["n_samples"]) if stop_s is None else min(int(rec["n_samples"]),
+                                                             int(np.ceil(stop_s * rate)))
+        b = max(a, b)
+        parts = []
+        n_ch = len(rec["channels"])
+        for s0, n, c, data in self.store.signal_chunks(rid, a, b):
+            block = np.frombuffer(data, dtype=np.float32).reshape(n, c)
+            lo, hi = max(a, s0) - s0, min(b, s0 + n) - s0
+            parts.append(block[lo:hi])
+        sig = np.concatenate(parts) if parts else np.empty((0, n_ch), np.float32)
+        return (a + np.arange(sig.shape[0])) / rate, sig, list(rec["channels"])
+
+    # ------------------------------------------------------------------ windows and features
+    def windows(self) -> pd.DataFrame:
+        """All windows: id, recording_id, recording, seq, start_sample, stop_sample, start_s, stop_s.
+
+        Ordered by id, which is also the row order of :meth:`features` and every per-window array.
+        """
+        if "windows" not in self._cache:
+            cols = self.store.windows_columns()
+            df = pd.DataFrame(cols)
+            names = dict(zip(*[self.recordings()[c] for c in ("id", "name")]))
+            df.insert(2, "recording", df["recording_id"].map(names))
+            self._cache["windows"] = df
+        return self._cache["windows"].copy()
+
+    @property
+    def n_windows(self) -> int:
+        return len(self.windows())
+
+    def features(self) -> tuple[np.ndarray, list[str]]:
+        """(X float32 (n_windows, n_features), names), rows in window-id order."""
+        if "features" not in self._cache:
+            blocks, names = [], None
+            for row in self.store.features():
+                if names is not None and row["names"] != names:
+                    raise ProjectError(f"{self.path}: recordings have different channels; features "
+                                       "cannot be compared across them")
+                names = row["names"]
+                blocks.append(np.frombuffer(row["data"], dtype=np.float32).reshape(
+                    row["n_windows"], row["n_features"]))
+            X = np.concatenate(blocks) if blocks else np.empty((0, 0), np.float32)
+            self._cache["features"] = (X, names or [])
+        X, names = self._cache["features"]
+        return X, list(names)
+
+    def window_ids_in_span(self, recording: str | int, start_s: float, end_s: float,
+                           rule: str = "majority") -> np.ndarray:
+        """Windows of a recording inside [start_s, end_s].
+
+        ``rule="majority"`` (default): a window belongs to the span when more than half of it lies
+        inside; ``"inside"``: only windows wholly inside; ``"touch"``: any overlap.
+        """
+        if not end_s > start_s:
+            raise InputError(f"span end {end_s} s is not after its start {start_s} s; swap them")
+        rid = self.recording_id(recording)
+        w = self.windows()
+        w = w[w["recording_id"] == rid]
+        a, b = w["start_s"].to_numpy(), w["stop_s"].to_numpy()
+        overlap = np.clip(np.minimum(b, end_s) - np.maximum(a, start_s), 0, None)
+        if rule == "majority":
+            keep = overlap > 0.5 * (b - a)
+        elif rule == "inside":
+            keep = (a >= start_s) & (b <= end_s)
+        elif rule == "touch":
+            keep = overlap > 0
+        else:
+            raise InputError(f"unknown span rule {rule!r}; use majority, inside or touch")
+        return w["id"].to_numpy()[keep]
+
+    # ------------------------------------------------------------------ classes
+    def classes(self, include_retired: bool = True) -> pd.DataFrame:
+        cols = ["id", "name", "colour", "position", "created_at", "created_by", "retired_at",
+                "merged_into"]
+        return pd.DataFrame(self.store.classes(include_retired), columns=cols)
+
+    def active_classes(self) -> list[str]:
+        return list(self.classes(include_retired=False)["name"])
+
+    def add_class(self, name: str, colour: str | None = None) -> int:
+        name = _check_class_name(name)
+        if colour is None:
+            used = len(self.store.classes())
+            colour = PALETTE[used % len(PALETTE)]
+        if not re.fullmatch(r"#[0-9A-Fa-f]{6}", colour):
+            raise InputError(f"colour {colour!r} is not a #RRGGBB colour; give e.g. #0072B2")
+        try:
+            cid = self.store.add_class(name, colour, self.annotator)
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+        return cid
+
+    def class_id(self, name: str, *, create: bool = False, allow_retired: bool = False) -> int:
+        row = self.store.class_by_name(str(name).strip())
+        if row is None:
+            if create:
+                return self.add_class(name)
+            known = ", ".join(self.active_classes()) or "none yet"
+            raise InputError(f"no class {name!r}; classes: {known}; add it with `labeler class add`")
+        if row["retired_at"] is not None and not allow_retired:
+            if row["merged_into"] is not None:
+                into = self.class_name(row["merged_into"])
+                raise InputError(f"class {row['name']!r} was merged into {into!r}; use {into!r}")
+            raise InputError(f"class {row['name']!r} is retired; it takes no new confirmations")
+        return int(row["id"])
+
+    def class_name(self, class_id: int) -> str:
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        return str(names[int(class_id)])
+
+    def rename_class(self, old: str, new: str) -> None:
+        cid = self.class_id(old, allow_retired=True)
+        new = _check_class_name(new)
+        try:
+            self.store.rename_class(cid, new, self.annotator)
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+
+    def retire_class(self, name: str) -> None:
+        cid = self.class_id(name)
+        self.store.retire_class(cid, self.annotator)
+
+    def merge_classes(self, source: str, target: str) -> str | None:
+        """Move every label of ``source`` to ``target`` (one batch), then retire ``source``.
+
+        The windows keep their history: the move is a batch of events of its own. Returns the batch id
+        (None when no window carried the class).
+        """
+        src = self.class_id(source)
+        dst = self.class_id(target)
+        if src == dst:
+            raise InputError(f"cannot merge class {source!r} into itself; give two classes")
+        with self.store.atomic():
+            rows = [(w, who) for w, who, c in self.store.annotations() if c == src]
+            batch = None
+            if rows:
+                batch = self.store.apply_batch(
+                    self.annotator, "merge", "class-merge", [(w, dst) for w, _ in rows],
+                    note=f"merged {source} into {target}", per_annotator=[who for _, who in rows])
+            self.store.retire_class(src, self.annotator, merged_into=dst)
+        return batch
+
+    # ------------------------------------------------------------------ labels
+    def confirm(self, window_ids: Iterable[int], class_name: str, *, source: str = "api",
+                note: str | None = None, create_class: bool = False) -> str:
+        """Confirm windows as one class: one batch of events. Returns the batch id."""
+        ids = self._check_window_ids(window_ids)
+        if source not in SOURCES:
+            raise InputError(f"unknown source {source!r}; use one of {', '.join(SOURCES)}")
+        cid = self.class_id(class_name, create=create_class)
+        return self.store.apply_batch(self.annotator, "confirm", source,
+                                      [(int(w), cid) for w in ids], note=note)
+
+    def withdraw(self, window_ids: Iterable[int], *, source: str = "api",
+                 note: str | None = None) -> str:
+        """Withdraw this annotator's labels of the windows (one batch)."""
+        ids = self._check_window_ids(window_ids)
+        return self.store.apply_batch(self.annotator, "withdraw", source,
+                                      [(int(w), None) for w in ids], note=note)
+
+    def _check_window_ids(self, window_ids: Iterable[int]) -> list[int]:
+        try:
+            ids = sorted({int(w) for w in window_ids})
+        except (TypeError, ValueError):
+            raise InputError("window ids must be whole numbers; list them like 12 13 14") from None
+        if not ids:
+            raise InputError("no windows given; select or list at least one window")
+        known = self.windows()["id"].to_numpy()
+        missing = np.setdiff1d(ids, known)
+        if missing.size:
+            hi = int(known.max()) if known.size else 0
+            raise InputError(f"window {int(missing[0])} is not in the project (window ids run from "
+                             f"{int(known.min()) if known.size else 0} to {hi})")
+        return ids
+
+    def undo(self, batch_id: str | None = None) -> str:
+        """Undo a batch (default: this annotator's last one not yet undone) by appending events.
+
+        Each window touched by the batch gets back the label it had before, unless a later batch changed
+        it since: then the later change stands and the window is left alone. Returns the undo's batch id.
+        """
+        store = self.store
+        with store.atomic():
+            if batch_id is None:
+                target = store.last_undoable_batch(self.annotator)
+                if target is None:
+                    raise InputError(f"nothing to undo for annotator {self.annotator!r}")
+            else:
+                target = store.batch(batch_id)
+                if target is None:
+                    raise InputError(f"no batch {batch_id!r}; list batches with `labeler history`")
+                if target["undone_by"] is not None:
+                    raise InputError(f"batch {batch_id} was undone already (by {target['undone_by']})")
+            changes, whose = [], []
+            for ev in store.batch_events(target["id"]):
+                now = store.annotation(ev["window_id"], ev["annotator"])
+                now_event = None if now is None else now["event_id"]
+                later = store.events("window_id = ? AND annotator = ? AND id > ?",
+                                     (ev["window_id"], ev["annotator"], ev["id"]))
+                if later:  # changed since; the later change stands
+                    continue
+                assert now_event in (None, ev["id"])
+                before = store.state_before(ev["id"], ev["window_id"], ev["annotator"])
+                changes.append((ev["window_id"], before))
+                whose.append(ev["annotator"])
+            return store.apply_batch(self.annotator, "undo", "undo", changes,
+                                     note=f"undo of batch {target['id']}", undoes=target["id"],
+                                     per_annotator=whose)
+
+    def labels(self) -> pd.DataFrame:
+        """Current label of every labeled window: window_id, class, class_id, annotator, at, source."""
+        rows = self.store.current_labels()
+        df = pd.DataFrame(rows, columns=["window_id", "class_id", "annotator", "at", "source"])
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        df.insert(1, "class", df["class_id"].map(names))
+        return df
+
+    def label_vector(self) -> tuple[np.ndarray, list[str]]:
+        """(y, class names): y[i] is the index into class names of window i's current label, -1 when
+        unlabeled; rows in window-id order. Class names are the active classes plus any retired class
+        that still carries labels."""
+        w = self.windows()
+        lab = self.labels()
+        names = self.active_classes()
+        for c in lab["class"].unique():
+            if c not in names:
+                names.append(c)
+        index = {c: i for i, c in enumerate(names)}
+        y = np.full(len(w), -1, dtype=np.int64)
+        pos = pd.Index(w["id"]).get_indexer(lab["window_id"])
+        y[pos] = lab["class"].map(index).to_numpy()
+        return y, names
+
+    def history(self, *, annotator: str | None = None, class_name: str | None = None,
+                source: str | None = None, since: str | None = None,
+                until: str | None = None) -> pd.DataFrame:
+        clauses, args = [], []
+        if annotator:
+            clauses.append("annotator = ?")
+            args.append(annotator)
+        if class_name:
+            clauses.append("class_id = ?")
+            args.append(self.class_id(class_name, allow_retired=True))
+        if source:
+            clauses.append("source = ?")
+            args.append(source)
+        if since:
+            clauses.append("at >= ?")
+            args.append(since)
+        if until:
+            clauses.append("at <= ?")
+            args.append(until)
+        rows = self.store.events(" AND ".join(clauses), args)
+        cols = ["id", "at", "annotator", "action", "window_id", "class_id", "source", "batch_id",
+                "note"]
+        df = pd.DataFrame(rows, columns=cols)
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        df.insert(6, "class", df["class_id"].map(names))
+        return df
+
+    def import_intervals(self, path: str | os.PathLike, *, dry_run: bool = False,
+                         create_classes: bool = True) -> dict:
+        """Confirm the windows inside each interval of an interval-label file (source "import").
+
+        One batch per annotator named in the file (rows without one are this annotator's). With
+        ``dry_run`` nothing is written; the report says what would change. Windows take an interval's
+        label by the majority rule of :mod:`labeler.importing`.
+        """
+        from labeler.importing import read_intervals
+
+        intervals = read_intervals(path)
+        recs = self.recordings()
+        durations = dict(zip(recs["name"], recs["n_samples"] / recs["rate"]))
+        for iv in intervals:
+            if iv.recording not in durations:
+                known = ", ".join(list(durations)[:6]) or "none yet"
+                raise InputError(f"{path}: row {iv.row}, column 'recording': no recording "
+                                 f"{iv.recording!r} in the project (recordings: {known}); add it "
+                                 "first or fix the name")
+            if iv.start >= durations[iv.recording]:
+                raise InputError(f"{path}: row {iv.row}: start {iv.start:g} s is past the end of "
+                                 f"{iv.recording} ({durations[iv.recording]:.2f} s); fix the row")
+        classes = {c.lower(): c for c in self.classes()["name"]}
+        new_classes = sorted({iv.label for iv in intervals if iv.label.lower() not in classes})
+        if new_classes and not create_classes:
+            raise InputError(f"{path}: unknown class {new_classes[0]!r}; add it first or allow new "
+                             "classes")
+        for iv in intervals:
+            if iv.label.lower() in classes:
+                self.class_id(classes[iv.label.lower()])  # refuses retired classes, naming them
+        per_who: dict[str, dict[int, str]] = {}
+        rows = []
+        for iv in intervals:
+            ids = self.window_ids_in_span(iv.recording, iv.start, iv.end)
+            who = iv.annotator or self.annotator
+            target = per_who.setdefault(who, {})
+            for w in ids:
+                target[int(w)] = classes.get(iv.label.lower(), iv.label)
+            rows.append({"row": iv.row, "recording": iv.recording, "label": iv.label,
+                         "windows": int(len(ids))})
+        current = {(w, who): c for w, who, c in self.store.annotations()}
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        changes = sum(1 for who, m in per_who.items() for w, c in m.items()
+                      if names.get(current.get((w, who))) != c)
+        report = {"intervals": len(intervals), "windows": sum(len(m) for m in per_who.values()),
+                  "changes": changes, "new_classes": new_classes, "rows": rows,
+                  "annotators": sorted(per_who), "batches": []}
+        if dry_run:
+            return report
+        with self.store.atomic():
+            for name in new_classes:
+                self.add_class(name)
+            ids_by_name = {n: int(i) for i, n in zip(self.classes()["id"], self.classes()["name"])}
+            for who, m in per_who.items():
+                batch = self.store.apply_batch(
+                    who, "confirm", "import", [(w, ids_by_name[c]) for w, c in sorted(m.items())],
+                    note=f"imported from {Path(path).name}")
+                report["batches"].append(batch)
+        return report
+
+    # ------------------------------------------------------------------ summaries
+    def counts(self) -> pd.DataFrame:
+        """Confirmed windows per class (all classes, retired ones included)."""
+        lab = self.labels()
+        cls = self.classes()
+        confirmed = lab.groupby("class_id").size()
+        out = pd.DataFrame({"class": cls["name"], "confirmed": cls["id"].map(confirmed)
+                            .fillna(0).astype(int), "retired": cls["retired_at"].notna()})
+        return out.reset_index(drop=True)
+
+    def status(self) -> dict:
+        recs = self.recordings()
+        w = self.windows()
+        lab = self.labels()
+        return {
+            "path": str(self.path),
+            "annotator": self.annotator,
+            "recordings": len(recs),
+            "hours": float((recs["n_samples"] / recs["rate"]).sum() / 3600) if len(recs) else 0.0,
+            "windows": len(w),
+            "window_length_s": self.window_length_s,
+            "window_step_s": self.window_step_s,
+            "feature_set_version": self.feature_set_version,
+            "classes": self.active_classes(),
+            "confirmed": int(len(lab)),
+            "annotators": sorted(lab["annotator"].unique().tolist()),
+            "counts": self.counts(),
+        }
+
+    def backup(self, dest: str | os.PathLike) -> None:
+        try:
+            self.store.backup(dest)
+        except StoreError as exc:
+            raise ProjectError(str(exc)) from None
+
+
+def _check_class_name(name: str) -> str:
+    name = str(name).strip()
+    if not _CLASS_NAME.match(name):
+        raise InputError(f"class name {name!r} must be 1-60 printable characters")
+    return name
+
+
+def _check_annotator(name: str) -> str:
+    name = str(name).strip()
+    if not re.fullmatch(r"[^\x00-\x1f\x7f]{1,60}", name):
+        raise LabelerError(f"annotator name {name!r} must be 1-60 printable characters")
+    return name

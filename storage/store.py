@@ -1,0 +1,640 @@
+"""The SQLite project file.
+
+One file holds everything a project needs (raw signal, windows, features, classes, the label history,
+runs and their results), so a project can be moved, shared and reopened with nothing lost.
+
+Writes follow three rules:
+
+- every multi-row write happens inside :meth:`Store.atomic` (``BEGIN IMMEDIATE`` ... ``COMMIT``), so a
+  batch is present whole or not at all, even if the process is killed mid-way;
+- the label history (``events``) is append-only; the per-annotator state (``annotations``) and the current
+  label of each window (``current_labels``) are updated in the same transaction as the events that change
+  them, and always equal a replay of the events;
+- the schema evolves through numbered migrations; a file written by a newer schema is refused.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import json
+import os
+import random
+import sqlite3
+import time
+import uuid
+from pathlib import Path
+from typing import Any, Iterable, Iterator, Sequence
+
+import sqlite_utils
+
+APPLICATION_ID = 0x4C424C52  # marks a labeler project file (PRAGMA application_id)
+BUSY_TIMEOUT_S = 30.0
+SQLITE_HEADER = b"SQLite format 3\x00"
+
+
+class StoreError(Exception):
+    """A project file cannot be used as asked; the message says which file and what to do."""
+
+
+class NotAProjectError(StoreError):
+    pass
+
+
+class NewerSchemaError(StoreError):
+    pass
+
+
+def utc_now() -> str:
+    """UTC time as ISO-8601 with microseconds and a Z."""
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+# --------------------------------------------------------------------------- schema migrations
+
+def _m1_initial(db: sqlite_utils.Database) -> None:
+    db["meta"].create({"key": str, "value": str}, pk="key")
+    db["recordings"].create(
+        {
+            "id": int, "name": str, "source_path": str, "content_hash": str, "rate": float,
+            "channels": str, "units": str, "n_samples": int, "start_time": str, "added_at": str,
+            "added_by": str, "repairs": str, "window_length": int, "window_step": int,
+        },
+        pk="id", not_null={"name", "content_hash", "rate", "channels", "n_samples"},
+    )
+    db["recordings"].create_index(["name"], unique=True)
+    db["recordings"].create_index(["content_hash"], unique=True)
+    db["signal_chunks"].create(
+        {"recording_id": int, "chunk": int, "start_sample": int, "n_samples": int,
+         "n_channels": int, "data": bytes},
+        pk=("recording_id", "chunk"), foreign_keys=[("recording_id", "recordings", "id")],
+    )
+    db["windows"].create(
+        {"id": int, "recording_id": int, "seq": int, "start_sample": int, "stop_sample": int,
+         "start_s": float, "stop_s": float},
+        pk="id", foreign_keys=[("recording_id", "recordings", "id")],
+    )
+    db["windows"].create_index(["recording_id", "seq"], unique=True)
+    db["features"].create(
+        {"recording_id": int, "version": str, "names": str, "n_windows": int, "n_features": int,
+         "data": bytes},
+        pk="recording_id", foreign_keys=[("recording_id", "recordings", "id")],
+    )
+    db["classes"].create(
+        {"id": int, "name": str, "colour": str, "position": int, "created_at": str,
+         "created_by": str, "retired_at": str, "merged_into": int},
+        pk="id", not_null={"name"},
+    )
+    db.execute("CREATE UNIQUE INDEX idx_classes_name ON classes (name COLLATE NOCASE)")
+    db["class_log"].create(
+        {"id": int, "at": str, "annotator": str, "action": str, "class_id": int, "detail": str},
+        pk="id",
+    )
+    db["batches"].create(
+        {"id": str, "at": str, "annotator": str, "action": str, "source": str, "n_events": int,
+         "note": str, "undoes": str, "undone_by": str},
+        pk="id",
+    )
+    db["batches"].create_index(["annotator", "at"])
+    db.execute(
+        """CREATE TABLE events (
+            id INTEGER PRIMARY KEY AUTOINCREMENT,
+            at TEXT NOT NULL,
+            annotator TEXT NOT NULL,
+            action TEXT NOT NULL,
+            window_id INTEGER NOT NULL REFERENCES windows(id),
+            class_id INTEGER REFERENCES classes(id),
+            source TEXT NOT NULL,
+            batch_id TEXT NOT NULL REFERENCES batches(id),
+            note TEXT
+        )"""
+    )
+    db["events"].create_index(["window_id"])
+    db["events"].create_index(["batch_id"])
+    db["annotations"].create(
+        {"window_id": int, "annotator": str, "class_id": int, "event_id": int, "at": str,
+         "source": str},
+        pk=("window_id", "annotator"),
+    )
+    db["annotations"].create_index(["class_id"])
+    db["current_labels"].create(
+        {"window_id": int, "class_id": int, "annotator": str, "event_id": int, "at": str,
+         "source": str},
+        pk="window_id",
+    )
+    db["runs"].create(
+        {"id": int, "kind": str, "created_at": str, "created_by": str, "params": str,
+         "summary": str},
+        pk="id",
+    )
+    db["blobs"].create(
+        {"key": str, "run_id": int, "created_at": str, "meta": str, "data": bytes}, pk="key",
+    )
+    db["audits"].create(
+        {"id": int, "run_id": int, "window_id": int, "position": int, "drawn_at": str,
+         "drawn_by": str, "proposed_class_id": int, "confidence": float},
+        pk="id",
+    )
+    db["audits"].create_index(["window_id"])
+
+
+MIGRATIONS = [_m1_initial]
+SCHEMA_VERSION = len(MIGRATIONS)
+
+# The current label of a window: among the annotators' current labels of that window, the one set by
+# the most recent event wins (later confirmation supersedes earlier, whoever made it).
+_REFRESH_CURRENT = """
+DELETE FROM current_labels WHERE window_id IN (SELECT window_id FROM temp.touched);
+INSERT INTO current_labels (window_id, class_id, annotator, event_id, at, source)
+SELECT a.window_id, a.class_id, a.annotator, a.event_id, a.at, a.source
+FROM annotations a
+WHERE a.window_id IN (SELECT window_id FROM temp.touched)
+  AND a.event_id = (SELECT max(b.event_id) FROM annotations b WHERE b.window_id = a.window_id);
+DELETE FROM temp.touched;
+"""
+
+
+class Store:
+    """An open project file. Use :meth:`create` or :meth:`open`."""
+
+    def __init__(self, path: Path, conn: sqlite3.Connection):
+        self.path = path
+        self.conn = conn
+        self.db = sqlite_utils.Database(conn)
+        self._depth = 0
+
+    # ------------------------------------------------------------------ opening
+    @staticmethod
+    def _connect(path: Path) -> sqlite3.Connection:
+        conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                               check_same_thread=False)
+        conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+        return conn
+
+    @classmethod
+    def create(cls, path: str | os.PathLike, settings: dict[str, Any] | None = None,
+               tool_version: str = "") -> "Store":
+        path = Path(path)
+        if path.exists():
+            raise StoreError(f"{path}: a file of that name exists; choose another name or open it")
+        if not path.parent.exists():
+            raise StoreError(f"{path}: folder {path.parent} does not exist; create it first")
+        tmp = path.with_name(f".{path.name}.{uuid.uuid4().hex[:8]}.tmp")
+        conn = cls._connect(tmp)
+        try:
+            conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+            db = sqlite_utils.Database(conn)
+            with conn:
+                pass
+            conn.execute("BEGIN")
+            for step in MIGRATIONS:
+                step(db)
+            now = utc_now()
+            rows = {"schema_version": str(SCHEMA_VERSION), "tool_version": tool_version,
+                    "created_at": now, "project_id": uuid.uuid4().hex}
+            for k, v in (settings or {}).items():
+                rows[k] = json.dumps(v)
+            db["meta"].insert_all([{"key": k, "value": v} for k, v in rows.items()])
+            conn.execute("COMMIT")
+            conn.execute("PRAGMA journal_mode = WAL")
+            conn.close()
+            os.replace(tmp, path)  # the project appears whole or not at all
+        except BaseException:
+            conn.close()
+            for p in (tmp, Path(f"{tmp}-wal"), Path(f"{tmp}-shm")):
+                with contextlib.suppress(FileNotFoundError):
+                    p.unlink()
+            raise
+        return cls.open(path)
+
+    @classmethod
+    def open(cls, path: str | os.PathLike, *, readonly: bool = False) -> "Store":
+        path = Path(path)
+        if not path.exists():
+            raise StoreError(f"{path}: no such project file; create one with `labeler new {path}`")
+        if path.is_dir():
+            raise NotAProjectError(f"{path}: is a folder, not a project file; give the .labeler file")
+        with open(path, "rb") as fh:
+            head = fh.read(100)
+        if len(head) < 100 or not head.startswith(SQLITE_HEADER):
+            raise NotAProjectError(
+                f"{path}: not a labeler project file (not SQLite, or truncated); "
+                "give a file made by `labeler new`, or restore it from a backup")
+        app_id = int.from_bytes(head[68:72], "big")
+        if app_id != APPLICATION_ID:
+            raise NotAProjectError(
+                f"{path}: a SQLite file, but not a labeler project; give a file made by `labeler new`")
+        if readonly:
+            conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
+                                   isolation_level=None, check_same_thread=False)
+        else:
+            conn = cls._connect(path)
+        store = cls(path, conn)
+        try:
+            store._check_and_migrate()
+            if not readonly:
+                conn.execute("PRAGMA journal_mode = WAL")
+                conn.execute("PRAGMA synchronous = NORMAL")
+            conn.execute("PRAGMA foreign_keys = ON")
+            conn.execute("CREATE TEMP TABLE IF NOT EXISTS touched (window_id INTEGER PRIMARY KEY)")
+        except sqlite3.DatabaseError as exc:
+            conn.close()
+            raise NotAProjectError(
+                f"{path}: the project file is damaged ({exc}); restore it from a backup") from exc
+        except BaseException:
+            conn.close()
+            raise
+        return store
+
+    def _check_and_migrate(self) -> None:
+        try:
+            row = self.conn.execute(
+                "SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+        except sqlite3.OperationalError as exc:
+            raise NotAProjectError(
+                f"{self.path}: not a labeler project (no meta table); give a file made by "
+                "`labeler new`") from exc
+        if row is None:
+            raise NotAProjectError(f"{self.path}: not a labeler project (no schema version)")
+        version = int(row[0])
+        if version > SCHEMA_VERSION:
+            raise NewerSchemaError(
+                f"{self.path}: written by a newer labeler (schema {version}, this one reads up to "
+                f"{SCHEMA_VERSION}); upgrade labeler to open it")
+        if version < SCHEMA_VERSION:
+            with self.atomic():
+                for step in MIGRATIONS[version:]:
+                    step(self.db)
+                self.db["meta"].upsert({"key": "schema_version", "value": str(SCHEMA_VERSION)},
+                                       pk="key")
+
+    def close(self) -> None:
+        self.conn.close()
+
+    def __enter__(self) -> "Store":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # ------------------------------------------------------------------ transactions
+    @contextlib.contextmanager
+    def atomic(self, retries: int = 8) -> Iterator[None]:
+        """One write transaction (nested calls join the outer one).
+
+        ``BEGIN IMMEDIATE`` takes the write lock up front, so a transaction never fails half-way on a
+        lock; waiting for the lock uses SQLite's busy timeout plus a few bounded retries with jitter.
+        """
+        if self._depth:
+            self._depth += 1
+            try:
+                yield
+            finally:
+                self._depth -= 1
+            return
+        for attempt in range(retries + 1):
+            try:
+                self.conn.execute("BEGIN IMMEDIATE")
+                break
+            except sqlite3.OperationalError as exc:
+                if "locked" not in str(exc) and "busy" not in str(exc) or attempt == retries:
+                    raise StoreError(
+                        f"{self.path}: the project file stayed busy ({exc}); another process holds "
+                        "it; try again") from exc
+                time.sleep(0.05 * (2 ** attempt) * (0.5 + random.random()))
+        self._depth = 1
+        try:
+            yield
+        except BaseException:
+            self._depth = 0
+            self.conn.execute("ROLLBACK")
+            raise
+        self._depth = 0
+        self.conn.execute("COMMIT")
+
+    # ------------------------------------------------------------------ meta
+    def meta(self) -> dict[str, str]:
+        return {r[0]: r[1] for r in self.conn.execute("SELECT key, value FROM meta")}
+
+    def setting(self, key: str, default: Any = None) -> Any:
+        row = self.conn.execute("SELECT value FROM meta WHERE key = ?", (key,)).fetchone()
+        return default if row is None else json.loads(row[0])
+
+    def set_setting(self, key: str, value: Any) -> None:
+        with self.atomic():
+            self.db["meta"].upsert({"key": key, "value": json.dumps(value)}, pk="key")
+
+    # ------------------------------------------------------------------ recordings
+    def add_recording(self, row: dict[str, Any], chunks: Iterable[tuple[int, int, int, bytes]],
+                      windows: dict[str, Sequence], features: dict[str, Any]) -> int:
+        """Insert a recording, its signal chunks, windows and features in one transaction.
+
+        ``chunks``: (start_sample, n_samples, n_channels, float32 bytes); ``windows``: columns seq,
+        start_sample, stop_sample, start_s, stop_s; ``features``: version, names, n_windows,
+        n_features, data (float32 bytes). Returns the recording id.
+        """
+        with self.atomic():
+            dup = self.conn.execute("SELECT name FROM recordings WHERE content_hash = ?",
+                                    (row["content_hash"],)).fetchone()
+            if dup is not None:
+                raise StoreError(f"{row['source_path']}: already in the project as recording "
+                                 f"{dup[0]!r} (same content); nothing added")
+            dup = self.conn.execute("SELECT 1 FROM recordings WHERE name = ?",
+                                    (row["name"],)).fetchone()
+            if dup is not None:
+                raise StoreError(f"{row['source_path']}: a recording named {row['name']!r} is "
+                                 "already in the project; rename the file or pass another --name")
+            row = dict(row, added_at=utc_now())
+            for key in ("channels", "units", "repairs"):
+                if not isinstance(row.get(key), str):
+                    row[key] = json.dumps(row.get(key))
+            cur = self.conn.execute(
+                "INSERT INTO recordings (" + ", ".join(row) + ") VALUES ("
+                + ", ".join("?" * len(row)) + ")", list(row.values()))
+            rid = cur.lastrowid
+            self.conn.executemany(
+                "INSERT INTO signal_chunks (recording_id, chunk, start_sample, n_samples, "
+                "n_channels, data) VALUES (?, ?, ?, ?, ?, ?)",
+                ((rid, i, s, n, c, d) for i, (s, n, c, d) in enumerate(chunks)))
+            self.conn.executemany(
+                "INSERT INTO windows (recording_id, seq, start_sample, stop_sample, start_s, "
+                "stop_s) VALUES (?, ?, ?, ?, ?, ?)",
+                zip([rid] * len(windows["seq"]), *(_py(windows[k]) for k in
+                    ("seq", "start_sample", "stop_sample", "start_s", "stop_s"))))
+            self.conn.execute(
+                "INSERT INTO features (recording_id, version, names, n_windows, n_features, data) "
+                "VALUES (?, ?, ?, ?, ?, ?)",
+                (rid, features["version"], json.dumps(features["names"]), features["n_windows"],
+                 features["n_features"], features["data"]))
+        return rid
+
+    def recordings(self) -> list[dict[str, Any]]:
+        rows = [dict(r) for r in self.db.query("SELECT * FROM recordings ORDER BY id")]
+        for r in rows:
+            for key in ("channels", "units", "repairs"):
+                r[key] = json.loads(r[key]) if r[key] else None
+        return rows
+
+    def signal_chunks(self, recording_id: int, start: int | None = None,
+                      stop: int | None = None) -> list[tuple[int, int, int, bytes]]:
+        sql = ("SELECT start_sample, n_samples, n_channels, data FROM signal_chunks "
+               "WHERE recording_id = ?")
+        args: list[Any] = [recording_id]
+        if start is not None:
+            sql += " AND start_sample + n_samples > ?"
+            args.append(start)
+        if stop is not None:
+            sql += " AND start_sample < ?"
+            args.append(stop)
+        return list(self.conn.execute(sql + " ORDER BY chunk", args))
+
+    def windows_columns(self) -> dict[str, list]:
+        cur = self.conn.execute("SELECT id, recording_id, seq, start_sample, stop_sample, start_s, "
+                                "stop_s FROM windows ORDER BY id")
+        rows = cur.fetchall()
+        names = ["id", "recording_id", "seq", "start_sample", "stop_sample", "start_s", "stop_s"]
+        return {n: [r[i] for r in rows] for i, n in enumerate(names)}
+
+    def features(self) -> list[dict[str, Any]]:
+        rows = [dict(r) for r in self.db.query(
+            "SELECT recording_id, version, names, n_windows, n_features, data FROM features "
+            "ORDER BY recording_id")]
+        for r in rows:
+            r["names"] = json.loads(r["names"])
+        return rows
+
+    # ------------------------------------------------------------------ classes
+    def classes(self, include_retired: bool = True) -> list[dict[str, Any]]:
+        sql = "SELECT * FROM classes"
+        if not include_retired:
+            sql += " WHERE retired_at IS NULL"
+        return [dict(r) for r in self.db.query(sql + " ORDER BY position, id")]
+
+    def class_by_name(self, name: str) -> dict[str, Any] | None:
+        rows = list(self.db.query("SELECT * FROM classes WHERE name = ? COLLATE NOCASE", [name]))
+        return dict(rows[0]) if rows else None
+
+    def add_class(self, name: str, colour: str, annotator: str) -> int:
+        with self.atomic():
+            if self.class_by_name(name) is not None:
+                raise StoreError(f"class {name!r} exists already; pick another name")
+            pos = self.conn.execute("SELECT coalesce(max(position), 0) + 1 FROM classes").fetchone()[0]
+            now = utc_now()
+            cid = self.conn.execute(
+                "INSERT INTO classes (name, colour, position, created_at, created_by) "
+                "VALUES (?, ?, ?, ?, ?)", (name, colour, pos, now, annotator)).lastrowid
+            self._log_class(now, annotator, "add", cid, {"name": name, "colour": colour})
+        return cid
+
+    def _log_class(self, at: str, annotator: str, action: str, class_id: int, detail: dict) -> None:
+        self.conn.execute("INSERT INTO class_log (at, annotator, action, class_id, detail) "
+                          "VALUES (?, ?, ?, ?, ?)", (at, annotator, action, class_id,
+                                                      json.dumps(detail)))
+
+    def rename_class(self, class_id: int, new_name: str, annotator: str) -> None:
+        with self.atomic():
+            other = self.class_by_name(new_name)
+            if other is not None and other["id"] != class_id:
+                raise StoreError(f"class {new_name!r} exists already; merge into it instead")
+            old = self.conn.execute("SELECT name FROM classes WHERE id = ?", (class_id,)).fetchone()[0]
+            self.conn.execute("UPDATE classes SET name = ? WHERE id = ?", (new_name, class_id))
+            self._log_class(utc_now(), annotator, "rename", class_id, {"from": old, "to": new_name})
+
+    def set_class_colour(self, class_id: int, colour: str, annotator: str) -> None:
+        with self.atomic():
+            self.conn.execute("UPDATE classes SET colour = ? WHERE id = ?", (colour, class_id))
+            self._log_class(utc_now(), annotator, "colour", class_id, {"colour": colour})
+
+    def retire_class(self, class_id: int, annotator: str, merged_into: int | None = None) -> None:
+        with self.atomic():
+            now = utc_now()
+            self.conn.execute("UPDATE classes SET retired_at = ?, merged_into = ? WHERE id = ?",
+                              (now, merged_into, class_id))
+            self._log_class(now, annotator, "merge" if merged_into else "retire", class_id,
+                            {"merged_into": merged_into})
+
+    def class_log(self) -> list[dict[str, Any]]:
+        return [dict(r) for r in self.db.query("SELECT * FROM class_log ORDER BY id")]
+
+    # ------------------------------------------------------------------ label history
+    def apply_batch(self, annotator: str, action: str, source: str,
+                    changes: Sequence[tuple[int, int | None]], note: str | None = None,
+                    undoes: str | None = None, batch_id: str | None = None,
+                    per_annotator: Sequence[str] | None = None) -> str:
+        """Append one batch of events and apply them, all in one transaction.
+
+        ``changes``: (window_id, class_id or None); None withdraws the annotator's label of that
+        window. ``per_annotator`` (same length as changes) names whose label each event sets, for
+        actions that act on other annotators' labels (merging classes, undoing); default: annotator.
+        Returns the batch id.
+        """
+        batch_id = batch_id or uuid.uuid4().hex
+        now = utc_now()
+        whose = list(per_annotator) if per_annotator is not None else [annotator] * len(changes)
+        with self.atomic():
+            self.conn.execute(
+                "INSERT INTO batches (id, at, annotator, action, source, n_events, note, undoes) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                (batch_id, now, annotator, action, source, len(changes), note, undoes))
+            first = self.conn.execute("SELECT coalesce(max(id), 0) FROM events").fetchone()[0] + 1
+            self.conn.executemany(
+                "INSERT INTO events (at, annotator, action, window_id, class_id, source, batch_id, "
+                "note) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                ((now, who, action, int(w), None if c is None else int(c), source, batch_id, note)
+                 for (w, c), who in zip(changes, whose)))
+            self._apply_events_from(first)
+            if undoes is not None:
+                self.conn.execute("UPDATE batches SET undone_by = ? WHERE id = ?",
+                                  (batch_id, undoes))
+        return batch_id
+
+    def _apply_events_from(self, first_event_id: int) -> None:
+        """Bring annotations and current_labels up to date with events of id >= first_event_id."""
+        rows = self.conn.execute(
+            "SELECT id, at, annotator, window_id, class_id, source FROM events WHERE id >= ? "
+            "ORDER BY id", (first_event_id,)).fetchall()
+        # order matters when one batch touches the same (window, annotator) twice: apply in id order
+        for eid, at, who, w, c, src in rows:
+            if c is None:
+                self.conn.execute("DELETE FROM annotations WHERE window_id = ? AND annotator = ?",
+                                  (w, who))
+            else:
+                self.conn.execute(
+                    "INSERT OR REPLACE INTO annotations (window_id, annotator, class_id, event_id, "
+                    "at, source) VALUES (?, ?, ?, ?, ?, ?)", (w, who, c, eid, at, src))
+        self.conn.executemany("INSERT OR IGNORE INTO temp.touched (window_id) VALUES (?)",
+                              ((r[3],) for r in rows))
+        for statement in _REFRESH_CURRENT.split(";"):  # executescript() would commit
+            if statement.strip():
+                self.conn.execute(statement)
+
+    def batches(self, annotator: str | None = None) -> list[dict[str, Any]]:
+        sql, args = "SELECT * FROM batches", []
+        if annotator is not None:
+            sql += " WHERE annotator = ?"
+            args.append(annotator)
+        return [dict(r) for r in self.db.query(sql + " ORDER BY rowid", args)]
+
+    def batch(self, batch_id: str) -> dict[str, Any] | None:
+        rows = list(self.db.query("SELECT * FROM batches WHERE id = ?", [batch_id]))
+        return dict(rows[0]) if rows else None
+
+    def last_undoable_batch(self, annotator: str) -> dict[str, Any] | None:
+        rows = list(self.db.query(
+            "SELECT * FROM batches WHERE annotator = ? AND undone_by IS NULL AND undoes IS NULL "
+            "AND action != 'undo' ORDER BY rowid DESC LIMIT 1", [annotator]))
+        return dict(rows[0]) if rows else None
+
+    def batch_events(self, batch_id: str) -> list[dict[str, Any]]:
+        return [dict(r) for r in self.db.query(
+            "SELECT * FROM events WHERE batch_id = ? ORDER BY id", [batch_id])]
+
+    def state_before(self, event_id: int, window_id: int, annotator: str) -> int | None:
+        """The class the annotator's label of the window had just before an event (None = none)."""
+        row = self.conn.execute(
+            "SELECT class_id FROM events WHERE window_id = ? AND annotator = ? AND id < ? "
+            "ORDER BY id DESC LIMIT 1", (window_id, annotator, event_id)).fetchone()
+        return None if row is None else row[0]
+
+    def annotation(self, window_id: int, annotator: str) -> dict[str, Any] | None:
+        rows = list(self.db.query("SELECT * FROM annotations WHERE window_id = ? AND annotator = ?",
+                                  [window_id, annotator]))
+        return dict(rows[0]) if rows else None
+
+    def events(self, where: str = "", args: Sequence[Any] = ()) -> list[dict[str, Any]]:
+        sql = "SELECT * FROM events"
+        if where:
+            sql += " WHERE " + where
+        return [dict(r) for r in self.db.query(sql + " ORDER BY id", list(args))]
+
+    def current_labels(self) -> list[tuple[int, int, str, str, str]]:
+        """(window_id, class_id, annotator, at, source) of every labeled window."""
+        return self.conn.execute(
+            "SELECT window_id, class_id, annotator, at, source FROM current_labels "
+            "ORDER BY window_id").fetchall()
+
+    def annotations(self) -> list[tuple[int, str, int]]:
+        return self.conn.execute(
+            "SELECT window_id, annotator, class_id FROM annotations ORDER BY window_id, annotator"
+        ).fetchall()
+
+    def replay(self) -> tuple[dict[tuple[int, str], int], dict[int, int]]:
+        """Recompute (annotations, current labels) from the events alone, without touching tables."""
+        ann: dict[tuple[int, str], tuple[int, int]] = {}
+        for eid, who, w, c in self.conn.execute(
+                "SELECT id, annotator, window_id, class_id FROM events ORDER BY id"):
+            if c is None:
+                ann.pop((w, who), None)
+            else:
+                ann[(w, who)] = (c, eid)
+        current: dict[int, tuple[int, int]] = {}
+        for (w, _who), (c, eid) in ann.items():
+            if w not in current or eid > current[w][1]:
+                current[w] = (c, eid)
+        return ({k: v[0] for k, v in ann.items()}, {w: v[0] for w, v in current.items()})
+
+    # ------------------------------------------------------------------ runs and results
+    def add_run(self, kind: str, params: dict, summary: dict, created_by: str = "") -> int:
+        with self.atomic():
+            return self.conn.execute(
+                "INSERT INTO runs (kind, created_at, created_by, params, summary) "
+                "VALUES (?, ?, ?, ?, ?)",
+                (kind, utc_now(), created_by, json.dumps(params), json.dumps(summary))).lastrowid
+
+    def runs(self, kind: str | None = None) -> list[dict[str, Any]]:
+        sql, args = "SELECT * FROM runs", []
+        if kind is not None:
+            sql += " WHERE kind = ?"
+            args.append(kind)
+        rows = [dict(r) for r in self.db.query(sql + " ORDER BY id", args)]
+        for r in rows:
+            r["params"] = json.loads(r["params"]) if r["params"] else {}
+            r["summary"] = json.loads(r["summary"]) if r["summary"] else {}
+        return rows
+
+    def latest_run(self, kind: str) -> dict[str, Any] | None:
+        rows = self.runs(kind)
+        return rows[-1] if rows else None
+
+    def put_blob(self, key: str, data: bytes, meta: dict | None = None,
+                 run_id: int | None = None) -> None:
+        with self.atomic():
+            self.conn.execute(
+                "INSERT OR REPLACE INTO blobs (key, run_id, created_at, meta, data) "
+                "VALUES (?, ?, ?, ?, ?)", (key, run_id, utc_now(), json.dumps(meta or {}), data))
+
+    def get_blob(self, key: str) -> tuple[bytes, dict] | None:
+        row = self.conn.execute("SELECT data, meta FROM blobs WHERE key = ?", (key,)).fetchone()
+        return None if row is None else (row[0], json.loads(row[1] or "{}"))
+
+    def delete_blobs(self, prefix: str) -> None:
+        with self.atomic():
+            self.conn.execute("DELETE FROM blobs WHERE key LIKE ?", (prefix.replace("%", "") + "%",))
+
+    # ------------------------------------------------------------------ checks and copies
+    def integrity_check(self) -> str:
+        return self.conn.execute("PRAGMA integrity_check").fetchone()[0]
+
+    def backup(self, dest: str | os.PathLike) -> None:
+        """A consistent copy through SQLite's online backup API (safe while others write)."""
+        dest = Path(dest)
+        if dest.exists():
+            raise StoreError(f"{dest}: exists already; choose a new file name for the backup")
+        tmp = dest.with_name(f".{dest.name}.{uuid.uuid4().hex[:8]}.tmp")
+        target = sqlite3.connect(str(tmp))
+        try:
+            self.conn.backup(target)
+            target.execute("PRAGMA journal_mode = DELETE")
+            target.close()
+            os.replace(tmp, dest)
+        except BaseException:
+            target.close()
+            with contextlib.suppress(FileNotFoundError):
+                tmp.unlink()
+            raise
+
+
+def _py(values: Sequence) -> list:
+    """numpy scalars → Python scalars for sqlite3."""
+    tolist = getattr(values, "tolist", None)
+    return tolist() if tolist is not None else [v.item() if hasattr(v, "item") else v for v in values]

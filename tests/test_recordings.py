@@ -1,0 +1,139 @@
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from labeler.channels import STANDARD_GRAVITY, parse_channel, triads
+from labeler.errors import InputError
+from labeler.recordings import read_recording
+from conftest import sensor_frame
+
+
+def test_channel_convention():
+    ch = parse_channel("hip_gyr_z[rad/s]")
+    assert (ch.site, ch.kind, ch.axis, ch.unit) == ("hip", "gyr", "z", "rad/s")
+    assert parse_channel("label") is None
+    with pytest.raises(ValueError, match="unknown unit"):
+        parse_channel("wrist_acc_x[furlong]")
+    assert triads(["wrist_acc_x", "wrist_acc_y", "wrist_acc_z", "hip_gyr_x"]) == [
+        ("wrist", "acc", (0, 1, 2))]
+
+
+def test_reads_seconds_column(write_csv):
+    frame = sensor_frame(500)
+    rec = read_recording(write_csv(frame))
+    assert rec.rate == 50.0
+    assert rec.channels[:3] == ["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]
+    assert rec.signal.dtype == np.float32 and rec.signal.shape == (500, 12)
+    assert rec.valid.all() and rec.start_time is None
+    np.testing.assert_allclose(rec.signal[:, 0], frame["wrist_acc_x"], rtol=1e-6, atol=1e-6)
+
+
+def test_iso_timestamps_give_start_time(write_csv):
+    frame = sensor_frame(300)
+    frame["time"] = (pd.Timestamp("2026-09-14T06:30:00Z")
+                     + pd.to_timedelta(frame["time"], unit="s")).dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    rec = read_recording(write_csv(frame))
+    assert rec.start_time == "2026-09-14T06:30:00.000000Z"
+    assert rec.rate == 50.0 and rec.n_samples == 300
+
+
+def test_rate_option_without_time_column(write_csv):
+    frame = sensor_frame(400).drop(columns="time")
+    rec = read_recording(write_csv(frame), rate=100.0)
+    assert rec.rate == 100.0 and rec.n_samples == 400
+    with pytest.raises(InputError, match="no time column"):
+        read_recording(write_csv(frame, "b.csv"))
+
+
+def test_units_converted(write_csv):
+    frame = sensor_frame(200, sites=("wrist",))
+    g = frame["wrist_acc_z"].to_numpy()
+    w = frame["wrist_gyr_x"].to_numpy()
+    frame = frame.rename(columns={"wrist_acc_z": "wrist_acc_z[m/s2]", "wrist_gyr_x": "wrist_gyr_x[rad/s]"})
+    frame["wrist_acc_z[m/s2]"] = g * STANDARD_GRAVITY
+    frame["wrist_gyr_x[rad/s]"] = np.deg2rad(w)
+    rec = read_recording(write_csv(frame))
+    np.testing.assert_allclose(rec.signal[:, rec.channels.index("wrist_acc_z")], g, rtol=1e-5)
+    np.testing.assert_allclose(rec.signal[:, rec.channels.index("wrist_gyr_x")], w, rtol=1e-5, atol=1e-3)
+    assert rec.units["wrist_acc_z"] == "m/s2"
+
+
+def test_jitter_resampled_onto_grid(write_csv):
+    frame = sensor_frame(1000, jitter=0.2)
+    rec = read_recording(write_csv(frame))
+    assert rec.rate == 50.0
+    assert any("resampled" in r for r in rec.repairs)
+    # a 1 Hz sine sampled with jitter, resampled linearly: close to the true sine on the grid
+    t = np.arange(rec.n_samples) / 50.0 + frame["time"].iloc[0]
+    truth = 0.3 * np.sin(2 * np.pi * t)
+    assert np.abs(rec.signal[:, 0] - truth).max() < 0.15  # noise sd 0.03 plus interpolation
+
+
+def test_short_nan_filled_long_gap_kept(write_csv):
+    frame = sensor_frame(2000)
+    frame.loc[100:103, "wrist_acc_x"] = np.nan           # 4 samples: filled
+    frame = frame.drop(index=range(1000, 1200))           # 4 s of rows missing: a gap
+    rec = read_recording(write_csv(frame))
+    assert np.isfinite(rec.signal[100:104]).all()
+    assert rec.n_samples == 2000
+    assert not rec.valid[1000:1200].any() and rec.valid[:1000].all() and rec.valid[1200:].all()
+    assert np.isnan(rec.signal[1050]).all()
+
+
+@pytest.mark.parametrize("mutate, message", [
+    (lambda f: f.assign(time=f["time"].where(f.index != 10, 0.05)), "row 12, column 'time': time goes backwards"),
+    (lambda f: f.assign(time=f["time"].where(f.index != 10, f["time"].iloc[9])), "row 12, column 'time': duplicate timestamp"),
+    (lambda f: f.astype({"hip_acc_y": object}).assign(hip_acc_y=["x" if i == 7 else v for i, v in enumerate(f["hip_acc_y"])]), "row 9, column 'hip_acc_y': 'x' is not a number"),
+    (lambda f: f.rename(columns={c: f"ch{i}" for i, c in enumerate(f.columns) if c != "time"}), "no sensor channel among the columns"),
+    (lambda f: f.rename(columns={"hip_gyr_x": "hip_speed_x"}), "column 'hip_speed_x': unknown sensor kind 'speed'"),
+    (lambda f: f.assign(hip_acc_x=np.nan), "column 'hip_acc_x' holds no values"),
+    (lambda f: f.assign(wrist_acc_x=f["wrist_acc_x"].where(f.index != 3, 1e7)), "row 5, column 'wrist_acc_x': value 1e+07 is beyond"),
+])
+def test_refusals_name_row_and_column(write_csv, mutate, message):
+    path = write_csv(mutate(sensor_frame(300)))
+    with pytest.raises(InputError) as err:
+        read_recording(path)
+    assert str(err.value).startswith(str(path) + ": ")
+    assert message in str(err.value)
+    assert "\n" not in str(err.value)
+
+
+def test_bad_rate_option(write_csv):
+    path = write_csv(sensor_frame(100).drop(columns="time"))
+    for bad in (0, -5, float("nan")):
+        with pytest.raises(InputError, match="sampling rate"):
+            read_recording(path, rate=bad)
+
+
+def test_semicolon_and_bom(tmp_path):
+    frame = sensor_frame(200)
+    path = tmp_path / "semi.csv"
+    path.write_text(frame.to_csv(index=False, sep=";"), encoding="utf-8-sig")
+    rec = read_recording(path)
+    assert rec.n_samples == 200
+    assert any("byte-order" in r for r in rec.repairs) and any("semicolon" in r for r in rec.repairs)
+
+
+def test_parquet(tmp_path):
+    frame = sensor_frame(250)
+    path = tmp_path / "r.parquet"
+    frame.to_parquet(path)
+    rec = read_recording(path)
+    assert rec.n_samples == 250 and rec.name == "r"
+    (tmp_path / "broken.parquet").write_bytes(path.read_bytes()[: 400])
+    with pytest.raises(InputError, match="not a readable Parquet file"):
+        read_recording(tmp_path / "broken.parquet")
+
+
+def test_empty_and_binary(tmp_path):
+    (tmp_path / "e.csv").write_bytes(b"")
+    with pytest.raises(InputError, match="empty"):
+        read_recording(tmp_path / "e.csv")
+    (tmp_path / "b.csv").write_bytes(bytes(range(256)) * 4)
+    with pytest.raises(InputError, match="binary"):
+        read_recording(tmp_path / "b.csv")
+    (tmp_path / "h.csv").write_text("time,wrist_acc_x\n")
+    with pytest.raises(InputError, match="header only"):
+        read_recording(tmp_path / "h.csv")

@@ -1,0 +1,133 @@
+import sqlite3
+
+import numpy as np
+import pytest
+
+from storage import SCHEMA_VERSION, NewerSchemaError, NotAProjectError, Store, StoreError
+from storage import store as store_mod
+
+
+def _add_recording(store, name="r1", n_windows=20, content_hash=None):
+    row = {"name": name, "source_path": f"{name}.csv", "content_hash": content_hash or name,
+           "rate": 50.0, "channels": ["wrist_acc_x"], "units": {"wrist_acc_x": "g"},
+           "n_samples": 64 * n_windows, "start_time": None, "added_by": "t", "repairs": [],
+           "window_length": 128, "window_step": 64}
+    sig = np.zeros((64 * n_windows, 1), np.float32)
+    starts = np.arange(n_windows - 1) * 64
+    wins = {"seq": np.arange(starts.size), "start_sample": starts, "stop_sample": starts + 128,
+            "start_s": starts / 50, "stop_s": (starts + 128) / 50}
+    feats = {"version": "t", "names": ["f"], "n_windows": starts.size, "n_features": 1,
+             "data": np.zeros(starts.size, np.float32).tobytes()}
+    return store.add_recording(row, [(0, sig.shape[0], 1, sig.tobytes())], wins, feats)
+
+
+@pytest.fixture
+def store(tmp_path):
+    s = Store.create(tmp_path / "p.labeler", {"window_length_s": 2.56})
+    yield s
+    s.close()
+
+
+def test_create_sets_schema_wal_and_marker(store):
+    assert store.meta()["schema_version"] == str(SCHEMA_VERSION)
+    assert store.conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    assert store.conn.execute("PRAGMA application_id").fetchone()[0] == store_mod.APPLICATION_ID
+    assert store.setting("window_length_s") == 2.56
+    assert store.integrity_check() == "ok"
+
+
+def test_create_refuses_existing(tmp_path, store):
+    with pytest.raises(StoreError, match="exists"):
+        Store.create(store.path)
+
+
+def test_refuses_non_projects(tmp_path):
+    (tmp_path / "text.labeler").write_text("hello")
+    with pytest.raises(NotAProjectError, match="not a labeler project file"):
+        Store.open(tmp_path / "text.labeler")
+    foreign = tmp_path / "foreign.db"
+    c = sqlite3.connect(foreign)
+    c.execute("create table t (x)")
+    c.commit()
+    c.close()
+    before = foreign.read_bytes()
+    with pytest.raises(NotAProjectError, match="a SQLite file, but not a labeler project"):
+        Store.open(foreign)
+    assert foreign.read_bytes() == before
+    with pytest.raises(StoreError, match="no such project file"):
+        Store.open(tmp_path / "missing.labeler")
+
+
+def test_refuses_truncated(tmp_path, store):
+    _add_recording(store)
+    store.close()
+    data = store.path.read_bytes()
+    (tmp_path / "cut.labeler").write_bytes(data[:50])
+    with pytest.raises(NotAProjectError, match="truncated"):
+        Store.open(tmp_path / "cut.labeler")
+
+
+def test_newer_schema_refused(tmp_path, store):
+    store.db["meta"].upsert({"key": "schema_version", "value": str(SCHEMA_VERSION + 1)}, pk="key")
+    store.close()
+    with pytest.raises(NewerSchemaError, match="newer labeler"):
+        Store.open(store.path)
+
+
+def test_migration_runs_once(tmp_path, monkeypatch, store):
+    store.close()
+    calls = []
+
+    def m2(db):
+        calls.append(1)
+        db["extra"].create({"id": int}, pk="id")
+
+    monkeypatch.setattr(store_mod, "MIGRATIONS", store_mod.MIGRATIONS + [m2])
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", len(store_mod.MIGRATIONS))
+    s = Store.open(store.path)
+    assert calls == [1] and "extra" in s.db.table_names()
+    assert s.meta()["schema_version"] == str(SCHEMA_VERSION + 1)
+    s.close()
+    Store.open(store.path).close()
+    assert calls == [1]
+
+
+def test_duplicate_content_refused(store):
+    _add_recording(store, "a", content_hash="h")
+    with pytest.raises(StoreError, match="already in the project"):
+        _add_recording(store, "b", content_hash="h")
+    assert [r["name"] for r in store.recordings()] == ["a"]
+
+
+def test_batches_replay_and_current_label_rule(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    c2 = store.add_class("standing", "#56B4E9", "ann")
+    store.apply_batch("ann", "confirm", "cli", [(1, c1), (2, c1), (3, c1)])
+    store.apply_batch("bea", "confirm", "cli", [(2, c2)])
+    store.apply_batch("ann", "withdraw", "cli", [(3, None)])
+    ann, current = store.replay()
+    assert ann == {(1, "ann"): c1, (2, "ann"): c1, (2, "bea"): c2}
+    # the most recent confirmation of a window wins
+    assert current == {1: c1, 2: c2}
+    assert {(w, c) for w, c, *_ in store.current_labels()} == set(current.items())
+    assert {(w, who): c for w, who, c in store.annotations()} == ann
+
+
+def test_failed_batch_leaves_nothing(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    with pytest.raises(sqlite3.IntegrityError):
+        store.apply_batch("ann", "confirm", "cli", [(1, c1), (2, 999)])  # unknown class
+    assert store.events() == [] and store.batches() == [] and store.current_labels() == []
+
+
+def test_backup_is_consistent_copy(tmp_path, store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    store.apply_batch("ann", "confirm", "cli", [(1, c1)])
+    store.backup(tmp_path / "copy.labeler")
+    copy = Store.open(tmp_path / "copy.labeler")
+    assert copy.replay() == store.replay()
+    assert copy.integrity_check() == "ok"
+    copy.close()
