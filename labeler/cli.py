@@ -102,8 +102,8 @@ def add_cmd(project, files, rate, time_column, acc_unit, gyr_unit, annotator):
             raise UserError(f"{pattern}: matches no file; check the pattern")
         paths.extend(hits)
     with _open(project, annotator) as p:
-        with click.progressbar(length=1000, label="adding", file=sys.stderr,
-                               show_eta=False) as bar:
+        with click.progressbar(length=1000, label="adding", file=sys.stderr, show_eta=False,
+                               hidden=not sys.stderr.isatty()) as bar:
             state = {"done": 0}
 
             def progress(frac, _msg):

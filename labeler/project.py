@@ -412,18 +412,21 @@ class Project:
         if not ids:
             raise InputError("no windows given; select or list at least one window")
         known = self.windows()["id"].to_numpy()
+        if known.size == 0:
+            raise InputError(f"{self.path}: the project has no windows yet; add recordings first "
+                             "with `labeler add`")
         missing = np.setdiff1d(ids, known)
         if missing.size:
-            hi = int(known.max()) if known.size else 0
             raise InputError(f"window {int(missing[0])} is not in the project (window ids run from "
-                             f"{int(known.min()) if known.size else 0} to {hi})")
+                             f"{int(known.min())} to {int(known.max())})")
         return ids
 
     def undo(self, batch_id: str | None = None) -> str:
         """Undo a batch (default: this annotator's last one not yet undone) by appending events.
 
-        Each window touched by the batch gets back the label it had before, unless a later batch changed
-        it since: then the later change stands and the window is left alone. Returns the undo's batch id.
+        Each window touched by the batch gets back the label it had before the batch, unless its label
+        has changed since (a later batch set another class): then the later change stands and the window
+        is left alone. Returns the undo's batch id.
         """
         store = self.store
         with store.atomic():
@@ -440,12 +443,9 @@ class Project:
             changes, whose = [], []
             for ev in store.batch_events(target["id"]):
                 now = store.annotation(ev["window_id"], ev["annotator"])
-                now_event = None if now is None else now["event_id"]
-                later = store.events("window_id = ? AND annotator = ? AND id > ?",
-                                     (ev["window_id"], ev["annotator"], ev["id"]))
-                if later:  # changed since; the later change stands
+                now_class = None if now is None else now["class_id"]
+                if now_class != ev["class_id"]:  # changed since; the later change stands
                     continue
-                assert now_event in (None, ev["id"])
                 before = store.state_before(ev["id"], ev["window_id"], ev["annotator"])
                 changes.append((ev["window_id"], before))
                 whose.append(ev["annotator"])
