@@ -1,0 +1,222 @@
+"""The window graph: who looks like whom, and who follows whom in time.
+
+Pure numerics (numpy/scipy/scikit-learn), no storage, no display.
+
+The graph has one node per window and two kinds of edges:
+
+- similarity edges between each window and its ``n_neighbors`` nearest neighbours in the
+  standardized (optionally PCA-reduced) feature space, weighted by local scaling
+  (Zelnik-Manor & Perona, "Self-tuning spectral clustering", 2004):
+  ``w_ij = exp(-d_ij**2 / (sigma_i * sigma_j))`` with ``sigma_i`` the distance from window ``i``
+  to its ``K``-th nearest neighbour (``K = 7`` in that paper). Local scaling adapts the kernel
+  width to the density around each window, so a dense cluster of sitting windows and a sparse
+  cloud of rare transitions both get weights spread over (0, 1].
+- temporal edges of weight ``temporal_weight`` between windows of one recording whose sequence
+  numbers differ by exactly 1 (a gap in the recording breaks the sequence, so no edge is drawn
+  across it). Consecutive windows usually belong to the same activity bout.
+
+The result is a symmetric ``scipy.sparse.csr_matrix`` with a zero diagonal and non-negative
+entries; where both kinds of edge join two windows their weights add.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import sparse
+from sklearn.decomposition import PCA
+from sklearn.neighbors import NearestNeighbors
+
+from labeler.errors import InputError
+
+#: Number of windows above which the approximate neighbour index (pynndescent) is used.
+#: Measured on this 2-core machine with 20-dimensional clustered data (benchmarks/bench_proposals.py
+#: repeats the measurement): exact search (scikit-learn, kd-tree) took 2.3 s at 20k windows and
+#: 43 s at 100k windows in 20 dimensions; pynndescent took 1.3 s at 20k and 10.5 s at 100k once
+#: compiled, with a recall of 0.94 / 0.87 of the true 10 neighbours, but its just-in-time
+#: compilation costs about 60 s in every new process (also with a numba cache). Exact search in the
+#: PCA-reduced space stays below that cost up to a few hundred thousand windows, so the switch sits
+#: far above the sizes a single annotator labels; "auto" takes the exact path below it.
+APPROXIMATE_ABOVE = 300_000
+
+#: K of local scaling: sigma_i is the distance to the K-th neighbour (Zelnik-Manor & Perona 2004).
+LOCAL_SCALE_K = 7
+
+#: Default weight of an edge between consecutive windows (tuned in benchmarks/bench_proposals.py).
+DEFAULT_TEMPORAL_WEIGHT = 0.5
+
+
+class GraphInputError(InputError, ValueError):
+    """Bad input to the graph builder (also a ValueError, as scikit-learn conventions expect)."""
+
+
+def _check_features(X) -> np.ndarray:
+    X = np.asarray(X)
+    if X.ndim != 2:
+        raise GraphInputError(f"features must be a 2-D array (windows x features), got shape {X.shape}")
+    if X.shape[0] < 2:
+        raise GraphInputError(f"need at least 2 windows to build a graph, got {X.shape[0]}")
+    if X.shape[1] < 1:
+        raise GraphInputError("features have no column; compute features before building the graph")
+    X = X.astype(np.float64, copy=False)
+    bad = ~np.isfinite(X)
+    if bad.any():
+        r, c = np.argwhere(bad)[0]
+        raise GraphInputError(f"feature matrix has a non-finite value ({X[r, c]}) at window {r}, "
+                              f"feature column {c}; recompute features or drop that window")
+    return X
+
+
+def standardize(X) -> np.ndarray:
+    """Columns scaled to mean 0 and standard deviation 1; constant columns become 0."""
+    X = _check_features(X)
+    mean = X.mean(axis=0)
+    std = X.std(axis=0)
+    std[std == 0] = 1.0
+    return (X - mean) / std
+
+
+def reduce(Z: np.ndarray, n_components: int | None, random_state: int = 0) -> np.ndarray:
+    """PCA projection onto ``n_components`` axes (none when None or not fewer than the columns)."""
+    if n_components is None or n_components >= Z.shape[1]:
+        return Z
+    if n_components < 1:
+        raise GraphInputError(f"pca_components must be >= 1 or None, got {n_components}")
+    n_components = min(n_components, Z.shape[0])
+    return PCA(n_components=n_components, svd_solver="randomized" if Z.shape[0] > 5000 else "full",
+               random_state=random_state).fit_transform(Z)
+
+
+def nearest_neighbors(Z: np.ndarray, n_neighbors: int, *, method: str = "auto",
+                      random_state: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    """Indices and distances of each row's ``n_neighbors`` nearest other rows, nearest first.
+
+    ``method`` is "exact" (scikit-learn), "approximate" (pynndescent) or "auto" (exact up to
+    :data:`APPROXIMATE_ABOVE` rows). Both arrays have shape (n, k) with k = min(n_neighbors, n - 1);
+    a row is never its own neighbour. Ties are broken by index, so the result is deterministic.
+    """
+    n = Z.shape[0]
+    k = min(int(n_neighbors), n - 1)
+    if k < 1:
+        raise GraphInputError(f"n_neighbors must be >= 1, got {n_neighbors}")
+    if method == "auto":
+        method = "approximate" if n > APPROXIMATE_ABOVE else "exact"
+    if method == "exact":
+        nn = NearestNeighbors(n_neighbors=k + 1, n_jobs=None).fit(Z)
+        dist, ind = nn.kneighbors(Z)
+    elif method == "approximate":
+        import pynndescent  # imported here: compiling it takes about a minute
+
+        index = pynndescent.NNDescent(Z, n_neighbors=k + 1, random_state=random_state)
+        ind, dist = index.neighbor_graph
+        ind = ind.astype(np.int64)
+        dist = dist.astype(np.float64)
+    else:
+        raise GraphInputError(f"unknown neighbour method {method!r}; use 'auto', 'exact' or 'approximate'")
+    return _drop_self(ind, dist, k)
+
+
+def _drop_self(ind: np.ndarray, dist: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Remove each row's own index (it need not come first when duplicates exist); keep k."""
+    n = ind.shape[0]
+    rows = np.arange(n)[:, None]
+    not_self = ind != rows
+    # rows where self was not returned at all (possible with many duplicates): drop the last column
+    missing = not_self.all(axis=1)
+    not_self[missing, -1] = False
+    ind = ind[not_self].reshape(n, -1)[:, :k]
+    dist = dist[not_self].reshape(n, -1)[:, :k]
+    # deterministic order: by distance, then by index
+    order = np.lexsort((ind, dist), axis=1)
+    return np.take_along_axis(ind, order, 1), np.take_along_axis(dist, order, 1)
+
+
+def local_scaling_weights(ind: np.ndarray, dist: np.ndarray, *, k_scale: int = LOCAL_SCALE_K,
+                          n: int | None = None) -> sparse.csr_matrix:
+    """Symmetric kNN weight matrix with local scaling (Zelnik-Manor & Perona 2004).
+
+    ``ind``/``dist`` are the (n, k) neighbour arrays from :func:`nearest_neighbors`.
+    ``sigma_i`` is the distance to the ``min(k_scale, k)``-th neighbour of ``i``; an edge exists
+    where either end lists the other as a neighbour (the union), with weight
+    ``exp(-d_ij**2 / (sigma_i * sigma_j))``, the same from both ends.
+    A window whose K neighbours are all exact duplicates (sigma 0) gets the smallest positive
+    sigma of the data set instead, so its weights stay defined.
+    """
+    ind = np.asarray(ind, dtype=np.int64)
+    dist = np.asarray(dist, dtype=np.float64)
+    n_rows, k = ind.shape
+    n = n_rows if n is None else n
+    kk = min(int(k_scale), k)
+    if kk < 1:
+        raise GraphInputError(f"k_scale must be >= 1, got {k_scale}")
+    sigma = dist[:, kk - 1].copy()
+    positive = sigma[sigma > 0]
+    floor = positive.min() if positive.size else 1.0
+    sigma[sigma <= 0] = floor
+    rows = np.repeat(np.arange(n_rows), k)
+    cols = ind.ravel()
+    d2 = dist.ravel() ** 2
+    w = np.exp(-d2 / (sigma[rows] * sigma[cols]))
+    W = sparse.csr_matrix((w, (rows, cols)), shape=(n, n))
+    W.sum_duplicates()
+    W = W.maximum(W.T).tocsr()
+    W.setdiag(0)
+    W.eliminate_zeros()
+    return W
+
+
+def temporal_edges(recording, seq, n: int | None = None) -> sparse.csr_matrix:
+    """0/1 symmetric matrix joining windows of one recording whose ``seq`` differ by exactly 1.
+
+    ``recording`` and ``seq`` give, per window, its recording id and its sequence number within
+    that recording; windows may come in any order.
+    """
+    recording = np.asarray(recording)
+    seq = np.asarray(seq)
+    if recording.shape != seq.shape or recording.ndim != 1:
+        raise GraphInputError(f"recording and seq must be 1-D of equal length, got shapes "
+                              f"{recording.shape} and {seq.shape}")
+    m = recording.size
+    n = m if n is None else n
+    if m != n:
+        raise GraphInputError(f"recording/seq describe {m} windows but the features have {n} rows")
+    if m < 2:
+        return sparse.csr_matrix((n, n))
+    if not np.issubdtype(seq.dtype, np.integer):
+        if not np.all(np.isfinite(seq)) or np.any(seq != np.round(seq)):
+            bad = int(np.flatnonzero(~np.isfinite(seq) | (seq != np.round(seq)))[0])
+            raise GraphInputError(f"window sequence numbers must be integers; window {bad} has {seq[bad]}")
+        seq = seq.astype(np.int64)
+    _, rec_code = np.unique(recording, return_inverse=True)
+    order = np.lexsort((seq, rec_code))
+    a, b = order[:-1], order[1:]
+    same = (rec_code[a] == rec_code[b]) & (seq[b] - seq[a] == 1)
+    a, b = a[same], b[same]
+    data = np.ones(2 * a.size)
+    T = sparse.csr_matrix((data, (np.concatenate([a, b]), np.concatenate([b, a]))), shape=(n, n))
+    T.sum_duplicates()
+    T.data[:] = 1.0  # duplicate sequence numbers must not create double edges
+    return T
+
+
+def build_graph(X, *, recording=None, seq=None, n_neighbors: int = 10,
+                temporal_weight: float = DEFAULT_TEMPORAL_WEIGHT, pca_components: int | None = None,
+                k_scale: int = LOCAL_SCALE_K, method: str = "auto",
+                random_state: int = 0) -> sparse.csr_matrix:
+    """Window graph from features ``X`` (n_windows x n_features), see the module docstring.
+
+    Temporal edges are added only when both ``recording`` and ``seq`` are given and
+    ``temporal_weight`` > 0. Deterministic for given inputs.
+    """
+    if not (np.isfinite(temporal_weight) and temporal_weight >= 0):
+        raise GraphInputError(f"temporal_weight must be a finite number >= 0, got {temporal_weight}")
+    if int(n_neighbors) != n_neighbors or n_neighbors < 1:
+        raise GraphInputError(f"n_neighbors must be a whole number >= 1, got {n_neighbors}")
+    Z = reduce(standardize(X), pca_components, random_state)
+    ind, dist = nearest_neighbors(Z, int(n_neighbors), method=method, random_state=random_state)
+    W = local_scaling_weights(ind, dist, k_scale=k_scale, n=Z.shape[0])
+    if temporal_weight > 0 and recording is not None and seq is not None:
+        W = (W + temporal_weight * temporal_edges(recording, seq, Z.shape[0])).tocsr()
+    elif (recording is None) != (seq is None):
+        raise GraphInputError("give both recording and seq for temporal edges, or neither")
+    W.sort_indices()
+    return W
