@@ -1,0 +1,857 @@
+"""Build one app session's document: map, signal view, timeline, class pad, queue and status.
+
+:func:`build_document` works on any ``bokeh.document.Document`` (a server session's or a fresh one
+in tests) and returns the :class:`LabelerApp` that owns the session's callbacks. Every write goes
+through :class:`labeler.project.Project`; the proposals are recomputed in a worker thread and come
+back through ``doc.add_next_tick_callback``, so a callback never waits on the spreading.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import html
+import os
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+from bokeh.events import SelectionGeometry, Tap
+from bokeh.layouts import column, row
+from bokeh.models import (BoxAnnotation, BoxSelectTool, Button, ColumnDataSource, CustomJS,
+                          CustomJSHover, Div, FixedTicker, HoverTool, InlineStyleSheet,
+                          LassoSelectTool, LinearColorMapper, Range1d, RadioButtonGroup,
+                          TapTool, TextInput, WheelZoomTool, PanTool, ResetTool, LinearAxis)
+from bokeh.palettes import Cividis256
+from bokeh.plotting import figure
+
+from labeler.app.state import CAUTION, Proposals, ProposalWorker, SessionState, has_proposals_api
+from labeler.app.timeline import segments
+from labeler.errors import LabelerError
+
+NONE_COLOUR = "#BDBDBD"          # windows with no label and no proposal
+MAP_W, MAP_H, SIDE_W = 640, 500, 400
+WIDE_W = MAP_W + SIDE_W + 20
+CONTEXT_S = 4.0                  # seconds of signal shown either side of the picked window
+AXIS_COLOURS = ("#0072B2", "#D55E00", "#009E73")   # x, y, z (Okabe & Ito 2008 colours)
+COLOUR_MODES = ("label", "confidence", "support", "recording")
+KEYS_HELP = ("<b>Keys</b>: 1-9 confirm as class · Enter accept proposal · S skip · U undo · "
+             "R review · Esc clear")
+
+_BASE_CSS = """
+:host { font-family: system-ui, -apple-system, 'Segoe UI', sans-serif; font-size: 13px; }
+"""
+
+_KEYS_JS = """
+if (window.__labeler_keys__ == null) {
+  window.__labeler_keys__ = {n: 0};
+  document.addEventListener("keydown", (ev) => {
+    const el = ev.composedPath ? ev.composedPath()[0] : ev.target;
+    const tag = el && el.tagName ? el.tagName.toUpperCase() : "";
+    if (tag === "INPUT" || tag === "TEXTAREA" || tag === "SELECT" || (el && el.isContentEditable))
+      return;
+    let key = ev.key;
+    if ((ev.ctrlKey || ev.metaKey) && key.toLowerCase() === "z") key = "undo";
+    else if (ev.ctrlKey || ev.metaKey || ev.altKey) return;
+    const known = /^[1-9]$/.test(key) || ["Enter", "s", "S", "u", "U", "r", "R", "Escape",
+      "ArrowRight", "undo"].includes(key);
+    if (!known) return;
+    ev.preventDefault();
+    window.__labeler_keys__.n += 1;
+    bus.value = key + "|" + window.__labeler_keys__.n;
+  });
+}
+"""
+
+
+def build_document(doc, project_path: str | os.PathLike, annotator: str | None = None, *,
+                   project=None, background: bool = True) -> "LabelerApp":
+    """Build the app on ``doc`` over the project file; return the session's app object.
+
+    ``project``: an already open :class:`Project` (the session then owns it); by default the file is
+    opened once for this session. ``background=False`` computes proposals in the calling thread
+    (tests).
+    """
+    from labeler.project import Project
+
+    if project is None:
+        project = Project.open(project_path, annotator=annotator)
+    app = LabelerApp(doc, project, background=background)
+    doc.on_session_destroyed(lambda _ctx: app.close())
+    return app
+
+
+class LabelerApp:
+    """Panels and callbacks of one session."""
+
+    def __init__(self, doc, project, *, background: bool = True):
+        self.doc = doc
+        self.project = project
+        self.state = SessionState(project)
+        self.background = background
+        self._pending: list[Callable[[], None]] = []
+        self._guard = False                     # set while Python itself changes the selection
+        self.target_rows = np.zeros(0, np.int64)
+        self.target_source = "map"
+        self.focus_row: int | None = None
+        self.message = ""
+        self.closed = False
+        self.worker = ProposalWorker(project.path, project.annotator,
+                                     lambda: dict(self.state.class_code), self.state.n,
+                                     deliver=self._deliver_from_worker,
+                                     on_start=lambda: self._post(self._worker_started))
+        self.progress_text = ""
+        self._build()
+        doc.title = f"labeler · {Path(str(project.path)).name}"
+        if has_proposals_api(project) and (self.state.confirmed >= 0).any() \
+                and not (self.state.proposals.proposed >= 0).any():
+            self.request_proposals()
+
+    # ================================================================== building
+    def _build(self) -> None:
+        s = self.state
+        self.classes_src = ColumnDataSource(self._classes_data())
+        self.people_src = ColumnDataSource({"name": list(s.annotators)})
+        self.recs_src = ColumnDataSource({"name": list(s.rec_names)})
+        self.class_mapper = LinearColorMapper(**self._class_mapper_args(), low_color=NONE_COLOUR)
+        self.conf_mapper = LinearColorMapper(palette=Cividis256, low=0.0, high=1.0)
+        self.support_mapper = LinearColorMapper(palette=Cividis256, low=0.0, high=1.0)
+        rec_pal = [c for c in ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00",
+                               "#F0E442", "#000000")]
+        k = max(1, len(s.rec_names))
+        self.rec_mapper = LinearColorMapper(palette=[rec_pal[i % len(rec_pal)] for i in range(k)],
+                                            low=-0.5, high=k - 0.5)
+        self._build_map()
+        self._build_signal()
+        self._build_timeline()
+        self._build_side()
+        self.key_bus = TextInput(value="", visible=False, name="key_bus")
+        self.key_bus.on_change("value", self._on_key_bus)
+        self.doc.js_on_event("document_ready", CustomJS(args={"bus": self.key_bus}, code=_KEYS_JS))
+        header = Div(text=self._header_html(), width=WIDE_W, name="header",
+                     stylesheets=[InlineStyleSheet(css=_BASE_CSS)])
+        self.caution = Div(text=f"<div style='color:#5a4500;background:#fff6d6;padding:6px 10px;"
+                                f"border-radius:4px'>&#9888; {html.escape(CAUTION)}</div>",
+                           width=WIDE_W, name="caution")
+        top = row(column(self.map_bar, self.map_fig), self.side)
+        self.root = column(header, top, self.signal_box, self.timeline_fig, self.caution,
+                           self.key_bus, name="labeler_root")
+        self.doc.add_root(self.root)
+        self._refresh_side()
+
+    def _header_html(self) -> str:
+        s, p = self.state, self.project
+        hours = sum(s.rec_duration) / 3600.0
+        return (f"<div style='display:flex;align-items:baseline;gap:14px'>"
+                f"<span style='font-size:20px;font-weight:600'>labeler</span>"
+                f"<span>{html.escape(Path(str(p.path)).name)}</span>"
+                f"<span style='color:#555'>{len(s.rec_names)} recording(s) · {hours:.2f} h · "
+                f"{s.n} windows · map: {html.escape(s.map_kind)}</span>"
+                f"<span style='margin-left:auto'>annotator <b>{html.escape(p.annotator)}</b></span>"
+                f"</div>")
+
+    # ------------------------------------------------------------------ map
+    def _map_data(self) -> dict:
+        s = self.state
+        return {
+            "x": s.x.astype(np.float32), "y": s.y.astype(np.float32),
+            "lab": s.display_label(), "alpha": s.display_alpha(),
+            "conf": s.proposals.confidence.astype(np.float32),
+            "support": s.proposals.support.astype(np.float32),
+            "prop": s.proposals.proposed.astype(np.int32), "cf": s.confirmed.astype(np.int32),
+            "who": s.who.astype(np.int32), "rec": s.rec_code.astype(np.int32),
+            "t0": s.start.astype(np.float32), "t1": s.stop.astype(np.float32),
+            "wid": s.ids.astype(np.int32),
+        }
+
+    def _confirmed_data(self) -> dict:
+        s = self.state
+        rows = np.flatnonzero(s.confirmed >= 0)
+        return {"x": s.x[rows].astype(np.float32), "y": s.y[rows].astype(np.float32),
+                "lab": s.confirmed[rows].astype(np.int32)}
+
+    def _build_map(self) -> None:
+        self.map_src = ColumnDataSource(self._map_data(), name="map_source")
+        self.confirmed_src = ColumnDataSource(self._confirmed_data(), name="confirmed_source")
+        self.focus_src = ColumnDataSource({"x": [], "y": []})
+        p = figure(width=MAP_W, height=MAP_H, output_backend="webgl", tools=[],
+                   toolbar_location="above", name="map", match_aspect=False)
+        p.title.text = "Windows (similar movements sit together) — drag to select"
+        p.xaxis.visible = p.yaxis.visible = False
+        p.grid.visible = False
+        p.background_fill_color = "#FAFAFA"
+        self.map_points = p.scatter(
+            "x", "y", source=self.map_src, size=5, marker="circle", line_color=None,
+            fill_color={"field": "lab", "transform": self.class_mapper}, fill_alpha="alpha",
+            selection_line_color="#111111", selection_line_width=1.0, selection_fill_alpha=1.0,
+            nonselection_fill_alpha=0.1, nonselection_line_color=None)
+        self.map_confirmed = p.scatter(
+            "x", "y", source=self.confirmed_src, size=8, marker="square",
+            fill_color={"field": "lab", "transform": self.class_mapper}, line_color="#222222",
+            line_width=0.8)
+        p.scatter("x", "y", source=self.focus_src, size=22, marker="circle", fill_color=None,
+                  line_color="#000000", line_width=2.5)
+        fmt = CustomJSHover(args={"names": self.classes_src}, code="""
+            const v = Math.round(value); const n = names.data.name;
+            return (v >= 0 && v < n.length) ? String(n[v]) : "—";""")
+        who = CustomJSHover(args={"names": self.people_src}, code="""
+            const v = Math.round(value); const n = names.data.name;
+            return (v >= 0 && v < n.length) ? String(n[v]) : "nobody";""")
+        rec = CustomJSHover(args={"names": self.recs_src}, code="""
+            const v = Math.round(value); const n = names.data.name;
+            return (v >= 0 && v < n.length) ? String(n[v]) : "?";""")
+        hover = HoverTool(renderers=[self.map_points], tooltips=[
+            ("window", "@wid"), ("recording", "@rec{custom}"),
+            ("time", "@t0{0.0}–@t1{0.0} s"), ("proposed", "@prop{custom}"),
+            ("confidence", "@conf{0.00}"), ("confirmed", "@cf{custom}"),
+            ("by", "@who{custom}")],
+            formatters={"@prop": fmt, "@cf": fmt, "@who": who, "@rec": rec})
+        box = BoxSelectTool(renderers=[self.map_points])
+        lasso = LassoSelectTool(renderers=[self.map_points])
+        wheel = WheelZoomTool()
+        tap = TapTool(renderers=[self.map_points])
+        p.add_tools(box, lasso, PanTool(), wheel, tap, hover, ResetTool())
+        p.toolbar.active_drag = box
+        p.toolbar.active_scroll = wheel
+        p.toolbar.logo = None
+        self.map_fig = p
+        self.map_src.selected.on_change("indices", self._on_map_selection)
+        self.colour_mode = RadioButtonGroup(labels=["Colour: label", "confidence", "support",
+                                                    "recording"], active=0, name="colour_mode")
+        self.colour_mode.on_change("active", lambda a, o, n: self.set_colour_mode(COLOUR_MODES[n]))
+        self.colour_hint = Div(text=self._colour_hint("label"), width=MAP_W - 330)
+        self.map_bar = row(self.colour_mode, self.colour_hint)
+
+    def _colour_hint(self, mode: str) -> str:
+        return {
+            "label": "<span style='color:#555'>faint = less sure · &#9632; = confirmed · "
+                     "grey = no proposal yet</span>",
+            "confidence": "<span style='color:#555'>dark = unsure proposals, light = sure</span>",
+            "support": "<span style='color:#555'>dark = far from anything confirmed "
+                       "(unexplored)</span>",
+            "recording": "<span style='color:#555'>one colour per recording</span>",
+        }[mode]
+
+    def set_colour_mode(self, mode: str) -> None:
+        field, mapper = {"label": ("lab", self.class_mapper),
+                         "confidence": ("conf", self.conf_mapper),
+                         "support": ("support", self.support_mapper),
+                         "recording": ("rec", self.rec_mapper)}[mode]
+        self.map_points.glyph.fill_color = {"field": field, "transform": mapper}
+        self.map_points.glyph.fill_alpha = "alpha" if mode == "label" else 0.75
+        self.map_confirmed.visible = mode == "label"
+        self.colour_hint.text = self._colour_hint(mode)
+
+    def _classes_data(self) -> dict:
+        s = self.state
+        return {"name": list(s.class_names), "colour": list(s.class_colours)}
+
+    def _class_mapper_args(self) -> dict:
+        cols = list(self.state.class_colours) or [NONE_COLOUR]
+        return {"palette": cols, "low": -0.5, "high": len(cols) - 0.5}
+
+    # ------------------------------------------------------------------ signal view
+    def _sites(self) -> dict[str, list[str]]:
+        sites: dict[str, list[str]] = {}
+        for ch in self.state.channels:
+            sites.setdefault(ch.split("_")[0], []).append(ch)
+        return sites
+
+    def _build_signal(self) -> None:
+        self.signal_title = Div(text="<b>Signal</b> <span style='color:#555'>— pick a window on "
+                                     "the map, the timeline or the queue</span>", width=WIDE_W)
+        self.signal_x = Range1d(0, 10)
+        self.signal_figs, self.signal_srcs, self.signal_spans = [], {}, []
+        self._acc_ranges, self._gyr_ranges = {}, {}
+        for site, chans in self._sites().items():
+            src = ColumnDataSource({"t": np.zeros(0)} | {c: np.zeros(0) for c in chans})
+            acc_r, gyr_r = Range1d(-1, 1), Range1d(-1, 1)
+            f = figure(width=WIDE_W, height=150, x_range=self.signal_x, y_range=acc_r,
+                       tools="xpan,xwheel_zoom,reset", toolbar_location=None,
+                       name=f"signal_{site}")
+            f.extra_y_ranges = {"gyr": gyr_r}
+            f.add_layout(LinearAxis(y_range_name="gyr", axis_label="deg/s"), "right")
+            f.yaxis[0].axis_label = "g"
+            f.title.text = site
+            f.min_border_left = 50
+            for ch in chans:
+                parts = ch.split("_")
+                axis = "xyz".find(parts[-1]) if parts[-1] in ("x", "y", "z") else 0
+                colour = AXIS_COLOURS[max(axis, 0) % 3]
+                if len(parts) > 1 and parts[1] == "gyr":
+                    f.line("t", ch, source=src, color=colour, line_width=1, line_alpha=0.55,
+                           line_dash="dashed", y_range_name="gyr", legend_label=f"gyr {parts[-1]}")
+                else:
+                    f.line("t", ch, source=src, color=colour, line_width=1.6,
+                           legend_label=f"acc {parts[-1]}")
+            f.legend.orientation = "horizontal"
+            f.legend.location = "top_left"
+            f.legend.label_text_font_size = "9px"
+            f.legend.background_fill_alpha = 0.6
+            f.legend.padding = 2
+            span = BoxAnnotation(left=0, right=0, fill_color="#56B4E9", fill_alpha=0.18,
+                                 line_color="#0072B2", line_alpha=0.6)
+            f.add_layout(span)
+            self.signal_figs.append(f)
+            self.signal_srcs[site] = src
+            self.signal_spans.append(span)
+            self._acc_ranges[site], self._gyr_ranges[site] = acc_r, gyr_r
+        self.signal_figs[-1:] and setattr(self.signal_figs[-1].xaxis[0], "axis_label", "time (s)")
+        self.signal_box = column(self.signal_title, *self.signal_figs)
+
+    def show_signal(self, r: int | None) -> None:
+        self.focus_row = r
+        s = self.state
+        if r is None:
+            self.focus_src.data = {"x": [], "y": []}
+            self.tl_focus.data = {"left": [], "right": [], "bottom": [], "top": []}
+            return
+        self.focus_src.data = {"x": [float(s.x[r])], "y": [float(s.y[r])]}
+        k = int(s.rec_code[r])
+        a, b = float(s.start[r]), float(s.stop[r])
+        self.tl_focus.data = {"left": [a], "right": [b], "bottom": [k - 0.45], "top": [k + 0.45]}
+        t, sig, names = self.project.signal(s.rec_names[k], a - CONTEXT_S, b + CONTEXT_S)
+        col = {n: i for i, n in enumerate(names)}
+        for site, src in self.signal_srcs.items():
+            data = {"t": t}
+            acc, gyr = [], []
+            for ch in src.data:
+                if ch == "t":
+                    continue
+                v = sig[:, col[ch]] if ch in col else np.full(len(t), np.nan, np.float32)
+                data[ch] = v
+                (gyr if "_gyr_" in ch else acc).append(v)
+            src.data = data
+            for vals, rng in ((acc, self._acc_ranges[site]), (gyr, self._gyr_ranges[site])):
+                lo, hi = _limits(vals)
+                rng.start, rng.end = lo, hi
+        self.signal_x.start, self.signal_x.end = a - CONTEXT_S, b + CONTEXT_S
+        for span in self.signal_spans:
+            span.left, span.right = a, b
+        lab = self._window_words(r)
+        self.signal_title.text = (
+            f"<b>Signal</b> · window {int(s.ids[r])} · {html.escape(s.rec_names[k])} · "
+            f"{a:.1f}–{b:.1f} s · {lab}")
+
+    def _window_words(self, r: int, hide_proposal: bool = False) -> str:
+        s = self.state
+        if s.confirmed[r] >= 0:
+            who = s.annotators[s.who[r]] if s.who[r] >= 0 else "?"
+            return (f"confirmed <b>{html.escape(s.class_names[s.confirmed[r]])}</b> by "
+                    f"{html.escape(who)}")
+        if hide_proposal:
+            return "proposal hidden (audit)"
+        p = s.proposals.proposed[r]
+        if p >= 0:
+            return (f"proposed <b>{html.escape(s.class_names[p])}</b> "
+                    f"(confidence {s.proposals.confidence[r]:.2f})")
+        return "no proposal yet"
+
+    # ------------------------------------------------------------------ timeline
+    def _build_timeline(self) -> None:
+        s = self.state
+        n_rec = max(1, len(s.rec_names))
+        xmax = max(s.rec_duration) if s.rec_duration else 1.0
+        self.tl_src = ColumnDataSource(self._timeline_data(), name="timeline_source")
+        self.tl_focus = ColumnDataSource({"left": [], "right": [], "bottom": [], "top": []})
+        p = figure(width=WIDE_W, height=70 + 46 * n_rec, x_range=Range1d(0, xmax, bounds=(0, xmax)),
+                   y_range=Range1d(n_rec - 0.5, -0.5), tools=[], toolbar_location="above",
+                   name="timeline")
+        p.title.text = ("Timeline — upper band confirmed, lower band proposed; drag across a strip "
+                        "to pick a bout, click to pick a window")
+        p.quad(left="left", right="right", bottom="bottom", top="top", source=self.tl_src,
+               fill_color={"field": "lab", "transform": self.class_mapper}, fill_alpha="alpha",
+               line_color=None)
+        p.quad(left="left", right="right", bottom="bottom", top="top", source=self.tl_focus,
+               fill_color=None, line_color="#000000", line_width=2)
+        dummy = p.scatter(x=[], y=[], size=0)
+        box = BoxSelectTool(renderers=[dummy], dimensions="both", persistent=False)
+        wheel = WheelZoomTool(dimensions="width")
+        p.add_tools(box, PanTool(dimensions="width"), wheel, TapTool(renderers=[dummy]),
+                    ResetTool())
+        p.toolbar.active_drag = box
+        p.toolbar.active_scroll = wheel
+        p.toolbar.logo = None
+        p.yaxis.ticker = FixedTicker(ticks=list(range(n_rec)))
+        p.yaxis.major_label_overrides = {i: str(nm) for i, nm in enumerate(s.rec_names)}
+        p.xaxis.axis_label = "time (s)"
+        p.ygrid.visible = False
+        p.on_event(SelectionGeometry, self._on_timeline_span)
+        p.on_event(Tap, self._on_timeline_tap)
+        self.timeline_fig = p
+
+    def _timeline_data(self) -> dict:
+        s = self.state
+        return segments(s.rec_code, s.start, s.stop, s.confirmed, s.proposals.proposed,
+                        s.proposals.confidence)
+
+    # ------------------------------------------------------------------ side panel
+    def _build_side(self) -> None:
+        self.selection_div = Div(text="", width=SIDE_W, name="selection")
+        self.class_pad = column(width=SIDE_W, name="class_pad")
+        self.new_class = TextInput(placeholder="new class name", width=SIDE_W - 120,
+                                   name="new_class")
+        self.add_class_btn = Button(label="Add class", width=100, name="add_class")
+        self.add_class_btn.on_click(self._on_add_class)
+        self.new_class.on_event("value_submit", lambda _e: self._on_add_class())
+        self.undo_btn = Button(label="Undo last batch (U)", width=SIDE_W, name="undo")
+        self.undo_btn.on_click(lambda: self.undo())
+        self.queue_mode = RadioButtonGroup(labels=["Review (R)", "Audit"], active=None,
+                                           width=SIDE_W, name="queue_mode")
+        self.queue_mode.on_change("active", self._on_queue_mode)
+        self.queue_div = Div(text="", width=SIDE_W, name="queue_item")
+        self.accept_btn = Button(label="Accept proposal (Enter)", width=SIDE_W // 2 - 4,
+                                 button_type="success", name="accept")
+        self.accept_btn.on_click(lambda: self.accept())
+        self.skip_btn = Button(label="Skip (S)", width=SIDE_W // 2 - 4, name="skip")
+        self.skip_btn.on_click(lambda: self.skip())
+        self.counts_div = Div(text="", width=SIDE_W, name="counts")
+        self.estimate_div = Div(text="", width=SIDE_W, name="estimate")
+        self.progress_div = Div(text="", width=SIDE_W, name="progress")
+        self.message_div = Div(text="", width=SIDE_W, name="message")
+        self.keys_div = Div(text=f"<span style='color:#555;font-size:12px'>{KEYS_HELP}</span>",
+                            width=SIDE_W)
+        h = "<div style='font-weight:600;margin-top:6px;border-bottom:1px solid #ddd'>{}</div>"
+        self.side = column(
+            Div(text=h.format("1 · Pick windows"), width=SIDE_W), self.selection_div,
+            Div(text=h.format("2 · Say what they are"), width=SIDE_W), self.class_pad,
+            row(self.new_class, self.add_class_btn), self.undo_btn, self.message_div,
+            Div(text=h.format("Next to look at"), width=SIDE_W), self.queue_mode, self.queue_div,
+            row(self.accept_btn, self.skip_btn),
+            Div(text=h.format("Where things stand"), width=SIDE_W), self.progress_div,
+            self.counts_div, self.estimate_div, self.keys_div, width=SIDE_W, name="side")
+        self._rebuild_class_pad()
+
+    def _rebuild_class_pad(self) -> None:
+        s = self.state
+        buttons = []
+        for i, code in enumerate(s.active_codes()):
+            key = f"{i + 1}" if i < 9 else "·"
+            colour = s.class_colours[code]
+            css = (f".bk-btn {{ border-left: 10px solid {colour}; text-align: left; "
+                   f"font-size: 13px; }}")
+            b = Button(label=f"{key}  {s.class_names[code]}", width=SIDE_W // 2 - 4,
+                       stylesheets=[InlineStyleSheet(css=css)], name=f"class_{i + 1}")
+            b.on_click(lambda c=code: self.confirm_target(c))
+            buttons.append(b)
+        rows = [row(*buttons[i:i + 2]) for i in range(0, len(buttons), 2)]
+        if not rows:
+            rows = [Div(text="<i>No classes yet: type one below and press Add class.</i>")]
+        self.class_pad.children = rows
+
+    # ================================================================== refreshing the panels
+    def _send_rows(self, rows: np.ndarray) -> None:
+        """Send the drawing columns of changed rows: a patch when few, whole columns when many."""
+        s = self.state
+        rows = np.asarray(rows, dtype=np.int64)
+        if rows.size == 0:
+            return
+        cols = {"lab": s.display_label(rows), "alpha": s.display_alpha(rows),
+                "cf": s.confirmed[rows], "who": s.who[rows],
+                "prop": s.proposals.proposed[rows], "conf": s.proposals.confidence[rows],
+                "support": s.proposals.support[rows]}
+        if rows.size > max(2000, s.n // 10):
+            full = self._map_data()
+            self.map_src.data.update({k: full[k] for k in cols})
+        else:
+            idx = rows.tolist()
+            self.map_src.patch({k: list(zip(idx, v.tolist())) for k, v in cols.items()})
+        self.confirmed_src.data = self._confirmed_data()
+        self.tl_src.data = self._timeline_data()
+        if len(self.people_src.data["name"]) != len(s.annotators):
+            self.people_src.data = {"name": list(s.annotators)}
+
+    def _refresh_side(self) -> None:
+        self._refresh_selection()
+        self._refresh_queue()
+        self._refresh_counts()
+        self._refresh_estimate()
+        self._refresh_progress()
+        self.message_div.text = (f"<span style='color:#8a1c00'>{html.escape(self.message)}</span>"
+                                 if self.message else "")
+
+    def _refresh_selection(self) -> None:
+        n = int(self.target_rows.size)
+        where = {"map": "on the map", "timeline": "on the timeline", "queue": "from the review queue",
+                 "audit": "from the audit sample"}[self.target_source]
+        if n == 0:
+            self.selection_div.text = ("<span style='color:#555'>Nothing picked. Drag on the map "
+                                       "or the timeline, or press R for the review queue.</span>")
+        else:
+            self.selection_div.text = (f"<b>{n} window{'s' if n != 1 else ''}</b> picked {where}"
+                                       f" — press a class number or click a class.")
+
+    def _refresh_counts(self) -> None:
+        s = self.state
+        keys = {code: i + 1 for i, code in enumerate(s.active_codes()) if i < 9}
+        rows = []
+        for code, name, colour, conf, prop in s.counts():
+            key = keys.get(code, "")
+            rows.append(f"<tr><td><span style='display:inline-block;width:10px;height:10px;"
+                        f"background:{colour}'></span></td><td>{key}</td>"
+                        f"<td>{html.escape(name)}</td><td style='text-align:right'>{conf}</td>"
+                        f"<td style='text-align:right;color:#555'>{prop}</td></tr>")
+        n_conf = int((s.confirmed >= 0).sum())
+        self.counts_div.text = (
+            "<table style='border-collapse:collapse;width:100%' cellpadding='2'>"
+            "<tr style='color:#555'><th></th><th>key</th><th style='text-align:left'>class</th>"
+            "<th style='text-align:right'>confirmed</th><th style='text-align:right'>proposed</th>"
+            f"</tr>{''.join(rows)}</table><div style='color:#555'>{n_conf} of {s.n} windows "
+            "confirmed</div>")
+
+    def _refresh_estimate(self) -> None:
+        est = self.state.accuracy()
+        if est is None:
+            self.estimate_div.text = ("<span style='color:#555'>Accuracy estimate: none yet — "
+                                      "it needs proposals and an audit sample.</span>")
+            return
+        self.estimate_div.text = _estimate_html(est)
+
+    def _refresh_progress(self) -> None:
+        if self.progress_text:
+            self.progress_div.text = self.progress_text
+        elif not has_proposals_api(self.project):
+            self.progress_div.text = ("<span style='color:#555'>Proposals are not available in "
+                                      "this version.</span>")
+        else:
+            self.progress_div.text = ""
+
+    def _refresh_queue(self) -> None:
+        s = self.state
+        item = s.current_item()
+        audit = s.queue_mode == "audit"
+        if item is None:
+            if s.queue:
+                self.queue_div.text = "<i>Queue done. Press R (or click a mode) for more.</i>"
+            else:
+                self.queue_div.text = ("<span style='color:#555'>Review shows the windows worth a "
+                                       "look next; Audit draws a random sample for the accuracy "
+                                       "estimate.</span>")
+            self.accept_btn.disabled = self.skip_btn.disabled = True
+            return
+        r = item.row
+        words = self._window_words(r, hide_proposal=audit)
+        why = f"<div style='color:#555'>{html.escape(item.reason)}</div>" if item.reason else ""
+        self.queue_div.text = (
+            f"<div><b>{'Audit' if audit else 'Review'} {s.queue_pos + 1} of {len(s.queue)}</b>"
+            f" · window {item.window_id} · {html.escape(s.rec_names[s.rec_code[r]])} "
+            f"{s.start[r]:.1f}–{s.stop[r]:.1f} s</div><div>{words}</div>{why}")
+        self.accept_btn.disabled = audit or s.proposals.proposed[r] < 0
+        self.skip_btn.disabled = False
+
+    # ================================================================== actions
+    def _set_target(self, rows, source: str, *, select_on_map: bool) -> None:
+        self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
+        self.target_source = source
+        self._guard = True
+        try:
+            self.map_src.selected.indices = self.target_rows.tolist() if select_on_map else []
+        finally:
+            self._guard = False
+        self.show_signal(int(self.target_rows[0]) if self.target_rows.size else None)
+        self._refresh_selection()
+
+    def _on_map_selection(self, _attr, _old, new) -> None:
+        if self._guard:
+            return
+        self.target_rows = np.unique(np.asarray(new, dtype=np.int64))
+        self.target_source = "map"
+        self.show_signal(self._central_row(self.target_rows))
+        self._refresh_selection()
+
+    def _central_row(self, rows: np.ndarray) -> int | None:
+        if rows.size == 0:
+            return None
+        s = self.state
+        cx, cy = s.x[rows].mean(), s.y[rows].mean()
+        return int(rows[np.argmin((s.x[rows] - cx) ** 2 + (s.y[rows] - cy) ** 2)])
+
+    def select_map(self, rows) -> None:
+        """Select rows on the map as the browser would (tests, and Python-side picking)."""
+        self.map_src.selected.indices = [int(r) for r in rows]
+
+    def _strips(self, y0: float, y1: float) -> list[int]:
+        lo, hi = sorted((y0, y1))
+        n = len(self.state.rec_names)
+        ks = [k for k in range(n) if lo <= k + 0.45 and hi >= k - 0.45]
+        return ks
+
+    def _on_timeline_span(self, event) -> None:
+        g = event.geometry
+        if g.get("type") != "rect" or not event.final:
+            return
+        self.pick_span(g["x0"], g["x1"], g["y0"], g["y1"])
+
+    def pick_span(self, x0: float, x1: float, y0: float, y1: float) -> None:
+        """Pick the windows of the strips a dragged box crosses, within its time span."""
+        s = self.state
+        a, b = sorted((float(x0), float(x1)))
+        if b <= a:
+            return
+        ids = []
+        for k in self._strips(y0, y1):
+            ids.extend(self.project.window_ids_in_span(s.rec_names[k], a, b).tolist())
+        rows = s.index.get_indexer(np.asarray(ids, dtype=np.int64))
+        self._set_target(rows[rows >= 0], "timeline", select_on_map=True)
+
+    def _on_timeline_tap(self, event) -> None:
+        self.pick_time(event.x, event.y)
+
+    def pick_time(self, x: float, y: float) -> None:
+        s = self.state
+        k = int(round(y))
+        if not 0 <= k < len(s.rec_names):
+            return
+        rows = np.flatnonzero((s.rec_code == k) & (s.start <= x) & (s.stop >= x))
+        if rows.size:
+            mid = (s.start[rows] + s.stop[rows]) / 2
+            self._set_target([rows[np.argmin(np.abs(mid - x))]], "timeline", select_on_map=True)
+
+    def confirm_target(self, code: int) -> None:
+        """Confirm what is picked (map, timeline or queue item) as class ``code``: one batch."""
+        rows, source = self.target_rows, self.target_source
+        item = self.state.current_item()
+        queue_target = source in ("queue", "audit") and item is not None
+        try:
+            changed = self.state.confirm(rows, code, source)
+        except LabelerError as exc:
+            self._say(str(exc))
+            return
+        self._say("")
+        self._send_rows(changed)
+        if queue_target:
+            self._next_item()
+        else:
+            self.show_signal(self.focus_row)
+        self._refresh_counts()
+        self.request_proposals()
+
+    def confirm_key(self, number: int) -> None:
+        codes = self.state.active_codes()
+        if not 1 <= number <= min(9, len(codes)):
+            self._say(f"no class number {number}; there are {len(codes)} classes")
+            return
+        self.confirm_target(codes[number - 1])
+
+    def accept(self) -> None:
+        """Accept the current queue item's proposal."""
+        s = self.state
+        item = s.current_item()
+        if item is None:
+            self._say("no queue item; press R for the review queue")
+            return
+        if s.queue_mode == "audit":
+            self._say("audit: say what the window is with a class number (the proposal is hidden)")
+            return
+        code = int(s.proposals.proposed[item.row])
+        if code < 0:
+            self._say("this window has no proposal yet; pick a class number")
+            return
+        self.target_rows, self.target_source = np.array([item.row]), "queue"
+        self.confirm_target(code)
+
+    def skip(self) -> None:
+        if self.state.current_item() is None:
+            return
+        self._next_item()
+
+    def _next_item(self) -> None:
+        item = self.state.advance()
+        self._show_item(item)
+
+    def _show_item(self, item) -> None:
+        if item is None:
+            self._set_target([], self.state.queue_mode if self.state.queue_mode == "audit"
+                             else "queue", select_on_map=False)
+        else:
+            self._set_target([item.row], "audit" if self.state.queue_mode == "audit" else "queue",
+                             select_on_map=False)
+        self._refresh_queue()
+
+    def start_queue(self, mode: str) -> None:
+        try:
+            self.state.load_queue(mode)
+        except LabelerError as exc:
+            self._say(str(exc))
+            self._refresh_queue()
+            return
+        self._say("" if self.state.queue else f"the {mode} queue is empty")
+        self._show_item(self.state.current_item())
+
+    def _on_queue_mode(self, _attr, _old, new) -> None:
+        if new is None:
+            return
+        self.start_queue("review" if new == 0 else "audit")
+
+    def undo(self) -> None:
+        try:
+            changed = self.state.undo()
+        except LabelerError as exc:
+            self._say(str(exc))
+            return
+        self._say("undone")
+        self._send_rows(changed)
+        self._refresh_counts()
+        if self.focus_row is not None:
+            self.show_signal(self.focus_row)
+        self._refresh_queue()
+        self.request_proposals()
+
+    def _on_add_class(self) -> None:
+        name = self.new_class.value_input or self.new_class.value
+        self.add_class(name)
+
+    def add_class(self, name: str) -> None:
+        try:
+            self.state.add_class(name)
+        except LabelerError as exc:
+            self._say(str(exc))
+            return
+        self._say("")
+        self.new_class.value = ""
+        self.classes_src.data = self._classes_data()
+        args = self._class_mapper_args()
+        self.class_mapper.update(palette=args["palette"], high=args["high"])
+        self._rebuild_class_pad()
+        self._refresh_counts()
+
+    def clear(self) -> None:
+        self._set_target([], "map", select_on_map=True)
+
+    def _on_key_bus(self, _attr, _old, new: str) -> None:
+        self.press(new.split("|", 1)[0])
+
+    def press(self, key: str) -> None:
+        """Handle one key from the page (see KEYS_HELP)."""
+        if len(key) == 1 and key.isdigit() and key != "0":
+            self.confirm_key(int(key))
+        elif key == "Enter":
+            self.accept()
+        elif key in ("s", "S", "ArrowRight"):
+            self.skip()
+        elif key in ("u", "U", "undo"):
+            self.undo()
+        elif key in ("r", "R"):
+            if self.queue_mode.active != 0:
+                self.queue_mode.active = 0          # loads the queue through its callback
+            else:
+                self.start_queue("review")
+        elif key == "Escape":
+            self.clear()
+
+    def _say(self, text: str) -> None:
+        self.message = text
+        self.message_div.text = (f"<span style='color:#8a1c00'>{html.escape(text)}</span>"
+                                 if text else "")
+
+    # ================================================================== background proposals
+    def request_proposals(self) -> None:
+        if not has_proposals_api(self.project) or self.closed:
+            return
+        if self.background:
+            self.worker.request()
+        else:
+            self._worker_started()
+            from labeler.app.state import read_proposals
+
+            try:
+                self.project._invalidate()
+                self.project.refresh_proposals()
+                got = read_proposals(self.project, dict(self.state.class_code), self.state.n)
+            except Exception as exc:
+                got = exc
+            self._apply_proposals(got)
+
+    def _post(self, fn: Callable[[], None]) -> None:
+        if self.closed:
+            return
+        if getattr(self.doc, "session_context", None) is not None:
+            try:
+                self.doc.add_next_tick_callback(fn)
+                return
+            except Exception:
+                return
+        self._pending.append(fn)
+
+    def drain(self, timeout: float = 60.0) -> None:
+        """Wait for background work and run what it handed back (tests without a server)."""
+        self.worker.wait(timeout)
+        while self._pending:
+            self._pending.pop(0)()
+
+    def _deliver_from_worker(self, got) -> None:
+        self._post(lambda: self._apply_proposals(got))
+
+    def _worker_started(self) -> None:
+        now = _dt.datetime.now().strftime("%H:%M:%S")
+        self.progress_text = (f"<span style='color:#0072B2'>&#8635; updating proposals in the "
+                              f"background (since {now}) — keep labeling</span>")
+        self._refresh_progress()
+
+    def _apply_proposals(self, got) -> None:
+        if isinstance(got, Exception):
+            self.progress_text = (f"<span style='color:#8a1c00'>proposals failed: "
+                                  f"{html.escape(str(got))}</span>")
+        elif got is None:
+            self.progress_text = "<span style='color:#555'>no proposals yet</span>"
+        elif isinstance(got, Proposals):
+            changed = self.state.set_proposals(got)
+            self._send_rows(changed)
+            self.progress_text = (f"<span style='color:#009E73'>&#10003; proposals up to date "
+                                  f"({html.escape(got.note)})</span>")
+            self._refresh_counts()
+            self._refresh_estimate()
+            self._refresh_queue()
+            if self.focus_row is not None:
+                self.show_signal(self.focus_row)
+        if self.worker.busy() and not isinstance(got, Exception):
+            pass
+        self._refresh_progress()
+
+    def close(self) -> None:
+        if self.closed:
+            return
+        self.closed = True
+        self.worker.close()
+        try:
+            self.project.close()
+        except Exception:
+            pass
+
+
+def _limits(vals: list[np.ndarray]) -> tuple[float, float]:
+    if not vals:
+        return -1.0, 1.0
+    v = np.concatenate([np.asarray(x, dtype=np.float64) for x in vals])
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return -1.0, 1.0
+    lo, hi = float(v.min()), float(v.max())
+    pad = max(1e-3, 0.08 * (hi - lo))
+    return lo - pad, hi + pad
+
+
+def _estimate_html(est: dict) -> str:
+    if "text" in est and len(est) == 1:
+        return f"<span style='color:#555'>{html.escape(str(est['text']))}</span>"
+    acc = est.get("accuracy", est.get("estimate"))
+    lo = est.get("low", est.get("lower", est.get("ci_low")))
+    hi = est.get("high", est.get("upper", est.get("ci_high")))
+    basis = est.get("basis", est.get("method", est.get("rests_on", "")))
+    n = est.get("n", est.get("n_audited", est.get("n_checked")))
+    parts = []
+    if acc is not None:
+        head = f"<b>Estimated accuracy {float(acc):.0%}</b>"
+        if lo is not None and hi is not None:
+            head += f" (95% interval {float(lo):.0%}–{float(hi):.0%})"
+        parts.append(head)
+    rest = []
+    if basis:
+        rest.append(html.escape(str(basis)))
+    if n is not None:
+        rest.append(f"from {int(n)} windows")
+    if rest:
+        parts.append("<span style='color:#555'>rests on: " + ", ".join(rest) + "</span>")
+    note = est.get("note") or est.get("caveat")
+    if note:
+        parts.append(f"<span style='color:#555'>{html.escape(str(note))}</span>")
+    return "<br>".join(parts) or "<span style='color:#555'>no accuracy estimate yet</span>"

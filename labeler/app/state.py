@@ -1,0 +1,396 @@
+"""One session's view of a project: per-window arrays the panels draw, and the actions they call.
+
+No Bokeh here: :class:`SessionState` holds numpy arrays in window-id order (the row order of every
+per-window array of :class:`labeler.project.Project`) and turns panel actions into Project calls. Each
+action returns the rows whose drawing changed, so the document sends only those.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+import traceback
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from labeler.errors import InputError, LabelerError
+
+CAUTION = ("Proposed labels are suggestions. Where labels feed clinical or safety decisions, a "
+           "qualified person reviews them; local rules and licensed practice come first.")
+
+#: Fill alpha of a proposed point is ALPHA_MIN + ALPHA_SPAN * confidence; confirmed points are opaque.
+ALPHA_MIN, ALPHA_SPAN, ALPHA_NONE = 0.12, 0.68, 0.35
+
+
+@dataclass
+class QueueItem:
+    row: int                      # row in window-id order
+    window_id: int
+    reason: str = ""
+
+
+@dataclass
+class Proposals:
+    """Per-window proposals in window-id order; class codes index SessionState.class_names."""
+
+    proposed: np.ndarray          # int32, -1 where nothing is proposed
+    confidence: np.ndarray        # float32 in [0, 1]
+    support: np.ndarray           # float32 in [0, 1]; low = no confirmed window nearby
+    note: str = ""
+
+
+@dataclass
+class Progress:
+    busy: bool = False
+    text: str = ""
+    started: float = 0.0
+    last_seconds: float | None = None
+    error: str | None = None
+    runs: int = 0
+
+
+# ---------------------------------------------------------------------------- reading the project
+
+def read_map(project, n: int) -> tuple[np.ndarray, np.ndarray, str]:
+    """(x, y, name of the map) of every window, in window-id order.
+
+    Uses the project's stored 2-D map (t-SNE when there is one, else PCA). A project without a map
+    yet gets a plain PCA of its standardized features so the page is never empty.
+    """
+    getter = getattr(project, "map", None)
+    if callable(getter):
+        for kind in ("tsne", "pca"):
+            try:
+                got = getter(kind)
+            except TypeError:
+                got = getter()
+            except LabelerError:
+                got = None
+            xy = _as_xy(got, n)
+            if xy is not None:
+                return xy[:, 0], xy[:, 1], kind
+    X, _ = project.features()
+    if X.shape[0] == 0:
+        return np.zeros(0, np.float32), np.zeros(0, np.float32), "none"
+    xy = _pca2(X)
+    return xy[:, 0], xy[:, 1], "pca"
+
+
+def _as_xy(got, n: int) -> np.ndarray | None:
+    if got is None:
+        return None
+    if isinstance(got, tuple) and len(got) == 2 and not isinstance(got[0], str):
+        got = got[0]
+    if isinstance(got, pd.DataFrame):
+        cols = [c for c in ("x", "y") if c in got.columns]
+        if len(cols) != 2:
+            return None
+        arr = got[cols].to_numpy(np.float32)
+    else:
+        arr = np.asarray(got, dtype=np.float32)
+    if arr.ndim != 2 or arr.shape != (n, 2) or not np.isfinite(arr).all():
+        return None
+    return arr
+
+
+def _pca2(X: np.ndarray) -> np.ndarray:
+    from sklearn.decomposition import PCA
+
+    Z = np.asarray(X, dtype=np.float64)
+    sd = Z.std(axis=0)
+    Z = (Z - Z.mean(axis=0)) / np.where(sd > 0, sd, 1.0)
+    k = min(2, Z.shape[0], Z.shape[1])
+    out = np.zeros((Z.shape[0], 2), np.float32)
+    if k:
+        out[:, :k] = PCA(n_components=k, random_state=0).fit_transform(Z)
+    return out
+
+
+def has_proposals_api(project) -> bool:
+    return callable(getattr(project, "refresh_proposals", None))
+
+
+def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
+    """The project's stored proposals, or None when there are none yet."""
+    getter = getattr(project, "proposals", None)
+    if not callable(getter):
+        return None
+    try:
+        df = getter()
+    except LabelerError:
+        return None
+    if df is None or len(df) == 0:
+        return None
+    if not isinstance(df, pd.DataFrame):
+        df = pd.DataFrame(df)
+    ids = project.windows()["id"].to_numpy()
+    pos = pd.Index(ids).get_indexer(df["window_id"]) if "window_id" in df else np.arange(len(df))
+    ok = pos >= 0
+    proposed = np.full(n, -1, np.int32)
+    conf = np.zeros(n, np.float32)
+    support = np.zeros(n, np.float32)
+    label_col = next(c for c in ("proposed", "label", "class") if c in df.columns)
+    codes = df[label_col].map(lambda c: class_code.get(str(c), -1) if c == c and c is not None
+                              else -1).to_numpy(np.int32)
+    proposed[pos[ok]] = codes[ok]
+    if "confidence" in df:
+        conf[pos[ok]] = df["confidence"].to_numpy(np.float32)[ok]
+    if "support" in df:
+        support[pos[ok]] = df["support"].to_numpy(np.float32)[ok]
+    return Proposals(proposed, np.clip(np.nan_to_num(conf), 0, 1),
+                     np.clip(np.nan_to_num(support), 0, 1))
+
+
+# ---------------------------------------------------------------------------- the session state
+
+class SessionState:
+    """Arrays and actions of one app session over an open :class:`Project`."""
+
+    def __init__(self, project):
+        self.project = project
+        w = project.windows()
+        self.ids = w["id"].to_numpy(np.int64)
+        self.index = pd.Index(self.ids)
+        self.n = len(self.ids)
+        recs = project.recordings()
+        self.rec_names = [str(r) for r in recs["name"]]
+        self.rec_code = pd.Index(recs["id"]).get_indexer(w["recording_id"]).astype(np.int32)
+        self.start = w["start_s"].to_numpy(np.float64)
+        self.stop = w["stop_s"].to_numpy(np.float64)
+        self.rec_duration = [float(d) for d in (recs["n_samples"] / recs["rate"])] if len(recs) else []
+        self.channels = list(recs["channels"].iloc[0]) if len(recs) else []
+        self.confirmed = np.full(self.n, -1, np.int32)
+        self.who = np.full(self.n, -1, np.int32)
+        self.annotators: list[str] = []
+        self.proposals = Proposals(np.full(self.n, -1, np.int32), np.zeros(self.n, np.float32),
+                                   np.zeros(self.n, np.float32))
+        self.reload_classes()
+        self.x, self.y, self.map_kind = read_map(project, self.n)
+        self.sync_labels()
+        got = read_proposals(project, self.class_code, self.n)
+        if got is not None:
+            self.proposals = got
+        self.last_batch: str | None = None
+        self.queue: list[QueueItem] = []
+        self.queue_mode = "review"
+        self.queue_pos = 0
+
+    # -------------------------------------------------------------- classes
+    def reload_classes(self) -> None:
+        c = self.project.classes()
+        self.class_ids = [int(i) for i in c["id"]]
+        self.class_names = [str(s) for s in c["name"]]
+        self.class_colours = [str(s) for s in c["colour"]]
+        self.class_active = [r is None or r != r for r in c["retired_at"]]
+        self.class_code = {name: k for k, name in enumerate(self.class_names)}
+        self._code_of_id = {cid: k for k, cid in enumerate(self.class_ids)}
+
+    def active_codes(self) -> list[int]:
+        """Codes of the active classes, in the order of the class buttons (keys 1-9)."""
+        return [k for k, a in enumerate(self.class_active) if a]
+
+    def add_class(self, name: str) -> int:
+        name = str(name).strip()
+        if not name:
+            raise InputError("type a class name first (1-60 printable characters)")
+        self.project.add_class(name)
+        self.reload_classes()
+        return self.class_code[self.project.store.class_by_name(name)["name"]]
+
+    # -------------------------------------------------------------- labels
+    def sync_labels(self) -> np.ndarray:
+        """Read the current labels from the project file; return the rows that changed."""
+        lab = self.project.labels()
+        conf = np.full(self.n, -1, np.int32)
+        who = np.full(self.n, -1, np.int32)
+        if len(lab):
+            pos = self.index.get_indexer(lab["window_id"].to_numpy())
+            ok = pos >= 0
+            conf[pos[ok]] = [self._code_of_id.get(int(c), -1)
+                             for c in lab["class_id"].to_numpy()[ok]]
+            names = lab["annotator"].astype(str).to_numpy()[ok]
+            for name in np.unique(names):
+                if name not in self.annotators:
+                    self.annotators.append(name)
+            code = {a: i for i, a in enumerate(self.annotators)}
+            who[pos[ok]] = [code[a] for a in names]
+        changed = np.flatnonzero((conf != self.confirmed) | (who != self.who))
+        self.confirmed, self.who = conf, who
+        return changed
+
+    def set_proposals(self, got: Proposals) -> np.ndarray:
+        old_lab, old_alpha = self.display_label(), self.display_alpha()
+        self.proposals = got
+        return np.flatnonzero((old_lab != self.display_label()) | (old_alpha != self.display_alpha()))
+
+    def display_label(self, rows=None) -> np.ndarray:
+        """Class code drawn per window: the confirmed one, else the proposed one, else -1."""
+        c = self.confirmed if rows is None else self.confirmed[rows]
+        p = self.proposals.proposed if rows is None else self.proposals.proposed[rows]
+        return np.where(c >= 0, c, p).astype(np.int32)
+
+    def display_alpha(self, rows=None) -> np.ndarray:
+        c = self.confirmed if rows is None else self.confirmed[rows]
+        p = self.proposals.proposed if rows is None else self.proposals.proposed[rows]
+        q = self.proposals.confidence if rows is None else self.proposals.confidence[rows]
+        a = np.where(p >= 0, ALPHA_MIN + ALPHA_SPAN * q, ALPHA_NONE)
+        return np.where(c >= 0, 1.0, a).astype(np.float32)
+
+    def confirm(self, rows, code: int, source: str) -> np.ndarray:
+        rows = np.unique(np.asarray(rows, dtype=np.int64))
+        if rows.size == 0:
+            raise InputError("nothing selected: pick windows on the map or the timeline, or take a "
+                             "queue item, then press a class")
+        if not (0 <= code < len(self.class_names)) or not self.class_active[code]:
+            raise InputError(f"no active class number {code + 1}; add the class first")
+        self.last_batch = self.project.confirm(self.ids[rows].tolist(), self.class_names[code],
+                                               source=source)
+        return self.sync_labels()
+
+    def undo(self) -> np.ndarray:
+        self.project.undo()
+        return self.sync_labels()
+
+    # -------------------------------------------------------------- counts and estimate
+    def counts(self) -> list[tuple[int, str, str, int, int]]:
+        """(code, name, colour, confirmed, proposed-and-not-confirmed) per class carrying labels or
+        active."""
+        conf = np.bincount(self.confirmed[self.confirmed >= 0], minlength=len(self.class_names))
+        open_ = (self.confirmed < 0) & (self.proposals.proposed >= 0)
+        prop = np.bincount(self.proposals.proposed[open_], minlength=len(self.class_names))
+        out = []
+        for k, name in enumerate(self.class_names):
+            if self.class_active[k] or conf[k] or prop[k]:
+                out.append((k, name, self.class_colours[k], int(conf[k]), int(prop[k])))
+        return out
+
+    def accuracy(self) -> dict | None:
+        est = getattr(self.project, "accuracy_estimate", None)
+        if not callable(est):
+            return None
+        try:
+            got = est()
+        except LabelerError as exc:
+            return {"text": str(exc)}
+        if got is None:
+            return None
+        if not isinstance(got, dict):
+            got = {k: getattr(got, k) for k in dir(got) if not k.startswith("_")
+                   and not callable(getattr(got, k))}
+        return got
+
+    # -------------------------------------------------------------- review queue and audit
+    def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
+        """Fill the queue from the project: ``review`` (Project.review_queue) or ``audit``
+        (Project.draw_audit, a uniformly random sample)."""
+        self.queue_mode = mode
+        self.queue_pos = 0
+        fn = getattr(self.project, "review_queue" if mode == "review" else "draw_audit", None)
+        if not callable(fn):
+            self.queue = []
+            raise LabelerError(f"this project has no {mode} queue yet (compute proposals first)")
+        got = fn(n)
+        self.queue = self._queue_items(got)
+        return self.queue
+
+    def _queue_items(self, got) -> list[QueueItem]:
+        if got is None:
+            return []
+        if isinstance(got, pd.DataFrame):
+            ids = got["window_id"].to_numpy()
+            reasons = (got["reason"].astype(str).tolist() if "reason" in got
+                       else [""] * len(ids))
+        else:
+            ids = np.asarray(list(got), dtype=np.int64)
+            reasons = [""] * len(ids)
+        pos = self.index.get_indexer(ids)
+        return [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
+
+    def current_item(self) -> QueueItem | None:
+        if 0 <= self.queue_pos < len(self.queue):
+            return self.queue[self.queue_pos]
+        return None
+
+    def advance(self) -> QueueItem | None:
+        self.queue_pos += 1
+        return self.current_item()
+
+
+# ---------------------------------------------------------------------------- background proposals
+
+class ProposalWorker:
+    """Recomputes proposals in a thread of its own, over a Project opened on the same file.
+
+    ``request()`` returns at once; requests that arrive while a run is going fold into one more run.
+    ``deliver(result_or_exception)`` is called from the worker thread; the document passes a function
+    that hands it to the session's next tick.
+    """
+
+    def __init__(self, path, annotator: str, class_code: Callable[[], dict[str, int]], n: int,
+                 deliver: Callable[[object], None], on_start: Callable[[], None] | None = None):
+        self.path, self.annotator = path, annotator
+        self._class_code, self._n = class_code, n
+        self._deliver, self._on_start = deliver, on_start
+        self._wanted = threading.Event()
+        self._lock = threading.Lock()
+        self._thread: threading.Thread | None = None
+        self._closed = False
+        self._project = None
+
+    def request(self) -> None:
+        if self._closed:
+            return
+        self._wanted.set()
+        with self._lock:
+            if self._thread is None or not self._thread.is_alive():
+                self._thread = threading.Thread(target=self._run, name="labeler-proposals",
+                                                daemon=True)
+                self._thread.start()
+
+    def _run(self) -> None:
+        from labeler.project import Project
+
+        while self._wanted.is_set() and not self._closed:
+            self._wanted.clear()
+            if self._on_start:
+                self._on_start()
+            t0 = time.perf_counter()
+            try:
+                if self._project is None:
+                    self._project = Project.open(self.path, annotator=self.annotator)
+                p = self._project
+                p._invalidate()
+                p.refresh_proposals()
+                got = read_proposals(p, self._class_code(), self._n)
+                if got is not None:
+                    got.note = f"{time.perf_counter() - t0:.1f} s"
+                self._deliver(got)
+            except Exception as exc:  # reported in the status line, never lost silently
+                traceback.print_exc()
+                self._deliver(exc)
+        if self._closed:
+            self._close_project()
+
+    def wait(self, timeout: float = 60.0) -> None:
+        t = self._thread
+        if t is not None:
+            t.join(timeout)
+
+    def busy(self) -> bool:
+        return self._thread is not None and self._thread.is_alive()
+
+    def close(self) -> None:
+        self._closed = True
+        if not self.busy():
+            self._close_project()
+
+    def _close_project(self) -> None:
+        if self._project is not None:
+            try:
+                self._project.close()
+            except Exception:
+                pass
+            self._project = None
