@@ -317,6 +317,168 @@ def demo_cmd(folder, minutes, people):
         _print_status(p)
 
 
+@cli.command("export")
+@project_argument
+@click.argument("folder", type=click.Path(file_okay=False))
+@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv",
+              show_default=True, help="Table format of windows and segments.")
+@click.option("--confirmed-only", is_flag=True, help="Only windows a person confirmed.")
+@click.option("--min-confidence", type=float, default=None, metavar="P",
+              help="Leave out proposed windows whose confidence is below P (0-1).")
+@click.option("--class", "classes", multiple=True, metavar="NAME",
+              help="Only this class (repeat for several).")
+@click.option("--overwrite", is_flag=True, help="Replace an earlier export in FOLDER.")
+@annotator_option
+def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, overwrite, annotator):
+    """Write the training set to FOLDER: windows, merged segments and a manifest (JSON)."""
+    with _open(project, annotator) as p:
+        out = p.export(folder, fmt=fmt, confirmed_only=confirmed_only,
+                       min_confidence=min_confidence, classes=list(classes) or None,
+                       overwrite=overwrite)
+    m = out["manifest"]
+    by = m["counts"]["by_status"]
+    click.echo(f"wrote {out['windows']} window(s) ({by['confirmed']} confirmed, {by['proposed']} "
+               f"proposed) and {out['segments']} segment(s) to {folder}")
+    for kind in ("windows", "segments", "manifest"):
+        click.echo(f"  {out['files'][kind]}")
+    click.echo("  accuracy estimate: " + _accuracy_line(m))
+    if by["proposed"]:
+        click.echo("  proposed labels are suggestions; a qualified person reviews them before use")
+
+
+def _accuracy_line(manifest: dict) -> str:
+    est = manifest.get("accuracy_estimate")
+    if not est:
+        return f"none ({manifest.get('accuracy_estimate_absent') or 'not available'})"
+    value = est.get("accuracy", est.get("value"))
+    lo, hi = est.get("low", est.get("lower")), est.get("high", est.get("upper"))
+    text = f"{value:.3f}" if isinstance(value, (int, float)) else str(value)
+    if isinstance(lo, (int, float)) and isinstance(hi, (int, float)):
+        text += f" ({lo:.3f}-{hi:.3f})"
+    rests = est.get("method") or est.get("basis")
+    return text + (f", {rests}" if rests else "")
+
+
+@cli.command("import")
+@project_argument
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--dry-run", is_flag=True, help="Report what would change; write nothing.")
+@click.option("--no-new-classes", is_flag=True, help="Refuse labels that are not classes yet.")
+@annotator_option
+def import_cmd(project, file, dry_run, no_new_classes, annotator):
+    """Confirm the windows inside each interval of a CSV (recording,start,end,label[,annotator]).
+
+    A window takes an interval's label when its centre lies inside the interval (so a window
+    straddling a boundary goes to the side holding most of it)."""
+    with _open(project, annotator) as p:
+        r = p.import_intervals(file, dry_run=dry_run, create_classes=not no_new_classes)
+    verb = "would confirm" if dry_run else "confirmed"
+    click.echo(f"{'dry run: ' if dry_run else ''}{verb} {r['windows']} window(s) from "
+               f"{r['intervals']} interval(s) for {', '.join(r['annotators'])}: {r['changes']} "
+               f"change(s), {r['relabels']} of them relabel(s)")
+    if r["new_classes"]:
+        click.echo(f"  {'would add' if dry_run else 'added'} class(es): "
+                   + ", ".join(r["new_classes"]))
+    for row in r["rows"]:
+        if row["windows"] == 0:
+            click.echo(f"  row {row['row']}: no window of {row['recording']} is centred in it; "
+                       "nothing labeled")
+    if dry_run:
+        click.echo("  nothing written")
+    else:
+        click.echo("  batch(es): " + ", ".join(b[:8] for b in r["batches"]))
+
+
+def _utc_option(value: str | None, option: str) -> str | None:
+    if value is None:
+        return None
+    import pandas as pd
+
+    try:
+        ts = pd.Timestamp(value)
+    except (ValueError, TypeError):
+        raise UserError(f"{option} {value!r}: not a time; give ISO-8601 like 2026-05-01T08:00Z") \
+            from None
+    ts = ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
+    return ts.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+@cli.command("history")
+@project_argument
+@click.option("--annotator", "who", default=None, metavar="NAME", help="Only events of NAME.")
+@click.option("--class", "class_name", default=None, metavar="NAME", help="Only events of NAME.")
+@click.option("--source", default=None, metavar="SOURCE",
+              help="Only events made through SOURCE (map, timeline, queue, audit, import, cli, api, "
+                   "class-merge, undo).")
+@click.option("--since", default=None, metavar="TIME", help="Only events at or after TIME (UTC).")
+@click.option("--until", default=None, metavar="TIME", help="Only events at or before TIME (UTC).")
+@click.option("--batch", "batch_id", default=None, metavar="ID", help="Only events of this batch.")
+@click.option("--last", type=int, default=None, metavar="N", help="Only the last N events.")
+def history_cmd(project, who, class_name, source, since, until, batch_id, last):
+    """Every label event: when, who, what, through which source, in which batch (undo by batch)."""
+    from labeler.project import SOURCES
+
+    if source is not None and source not in SOURCES:
+        raise UserError(f"--source {source!r}: unknown; use one of {', '.join(SOURCES)}")
+    with _open(project, readonly=True) as p:
+        h = p.history(annotator=who, class_name=class_name, source=source,
+                      since=_utc_option(since, "--since"), until=_utc_option(until, "--until"))
+        if batch_id is not None:
+            h = h[h["batch_id"].str.startswith(batch_id)]
+        if last is not None:
+            h = h.tail(max(0, last))
+        if len(h) == 0:
+            click.echo("no events match")
+            return
+        w = p.windows().set_index("id")
+        rows = [("event", "at (UTC)", "annotator", "action", "window", "class", "source", "batch")]
+        for ev in h.itertuples(index=False):
+            win = (f"{w.at[ev.window_id, 'recording']}#{int(w.at[ev.window_id, 'seq'])}"
+                   if ev.window_id in w.index else str(ev.window_id))
+            label = "-" if ev.class_id is None or ev.class_id != ev.class_id else str(ev[6])
+            rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator, ev.action, win,
+                         label, ev.source, ev.batch_id[:8]))
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    for r in rows:
+        click.echo("  ".join(v.ljust(n) for v, n in zip(r, widths)).rstrip())
+
+
+@cli.command("agreement")
+@project_argument
+def agreement_cmd(project):
+    """Agreement between annotators: confusion table and Cohen's kappa per pair, Fleiss' kappa for
+    three or more; and how many windows they currently disagree on."""
+    with _open(project, readonly=True) as p:
+        rep = p.agreement()
+        n_dis = len(p.disagreements())
+    if not rep["pairs"]:
+        click.echo("no window is labeled by two annotators yet; agreement needs double-labeled "
+                   "windows")
+        return
+    click.echo(f"{rep['double_labeled']} window(s) labeled by two or more of "
+               f"{', '.join(rep['annotators'])}; {n_dis} with differing labels now")
+    for pair in rep["pairs"]:
+        kappa = "undefined" if pair["kappa"] != pair["kappa"] else f"{pair['kappa']:.3f}"
+        click.echo("")
+        click.echo(f"{pair['a']} (rows) vs {pair['b']} (columns): {pair['windows']} window(s), "
+                   f"agreement {pair['agreement']:.3f}, Cohen's kappa {kappa}")
+        table = pair["confusion"]
+        keep = (table.sum(axis=0) + table.sum(axis=1)) > 0
+        table = table.loc[keep, keep]
+        head = [""] + [str(c) for c in table.columns]
+        body = [[str(i)] + [str(int(v)) for v in row] for i, row in zip(table.index, table.values)]
+        widths = [max(len(r[j]) for r in [head] + body) for j in range(len(head))]
+        for r in [head] + body:
+            click.echo("  " + "  ".join(v.rjust(n) if j else v.ljust(n)
+                                        for j, (v, n) in enumerate(zip(r, widths))).rstrip())
+    f = rep["fleiss"]
+    if f is not None:
+        kappa = "undefined" if f["kappa"] != f["kappa"] else f"{f['kappa']:.3f}"
+        click.echo("")
+        click.echo(f"Fleiss' kappa over the {f['windows']} window(s) all of {', '.join(f['annotators'])} "
+                   f"labeled: {kappa}")
+
+
 def main(argv=None):
     """Console entry point."""
     try:

@@ -4,14 +4,26 @@ Columns (header required, comma-separated, UTF-8): ``recording`` (the recording'
 project), ``start`` and ``end`` (seconds from the recording's first sample), ``label`` (a class name),
 and optionally ``annotator`` (who labeled it; default: the importing annotator) and ``note``.
 
-A window takes an interval's label when more than half of the window lies inside the interval (the
-"majority" rule); a window that straddles a boundary therefore goes to the interval holding most of it,
-and a window split evenly goes to neither.
+Which windows an interval labels (:func:`windows_inside`): a window takes an interval's label when the
+window's centre lies strictly inside the interval. For every interval longer than half a window this is
+the majority rule: a window straddling the interval's boundary takes the label when more than half of
+the window lies inside, so between two adjacent intervals it goes to the one holding most of it, and a
+window split exactly in half goes to neither. An interval no longer than half a window can hold the
+larger part of no window; it labels the window centred in it (exported segments of a single window are
+one window step long, and import back to that window).
+
+Overlapping intervals of one annotator with different labels contradict each other and are refused;
+intervals of different annotators may overlap (several people labeling the same stretch).
+
+The columns that ``labeler export`` writes to a segments file besides recording, start, end and label
+(start_utc, end_utc, windows, confirmed, confidence_min, confidence_mean, retired) are accepted and
+not used, so an exported segments file imports as it is.
 """
 
 from __future__ import annotations
 
 import os
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -20,8 +32,13 @@ import pandas as pd
 
 from labeler.errors import InputError
 
+_ANNOTATOR = re.compile(r"[^\x00-\x1f\x7f]{1,60}")
+
 REQUIRED = ("recording", "start", "end", "label")
 OPTIONAL = ("annotator", "note")
+#: written by `labeler export` into segments files; read past on import
+EXPORT_EXTRAS = ("start_utc", "end_utc", "windows", "confirmed", "confidence_min", "confidence_mean",
+                 "retired")
 
 
 @dataclass
@@ -52,7 +69,7 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
         raise InputError(f"{where}: cannot be parsed as CSV ({' '.join(str(exc).split())[:80]}); "
                          "check the commas") from None
     frame.columns = [str(c).strip().lower() for c in frame.columns]
-    unknown = [c for c in frame.columns if c not in REQUIRED + OPTIONAL]
+    unknown = [c for c in frame.columns if c not in REQUIRED + OPTIONAL + EXPORT_EXTRAS]
     if unknown:
         raise InputError(f"{where}: unknown column {unknown[0]!r}; columns are "
                          f"{', '.join(REQUIRED)}[, {', '.join(OPTIONAL)}]")
@@ -84,6 +101,9 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
         if not label:
             raise InputError(f"{where}: row {line}, column 'label': empty; give a class name")
         who = str(d.get("annotator") or "").strip() or None
+        if who is not None and not _ANNOTATOR.fullmatch(who):
+            raise InputError(f"{where}: row {line}, column 'annotator': {who[:70]!r} must be 1-60 "
+                             "printable characters; shorten it")
         note = str(d.get("note") or "").strip() or None
         out.append(Interval(line, name, start, end, label, who, note))
     if not out:
@@ -101,3 +121,10 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
                     f"{min(a.end, b.end):g} s) with different labels {a.label!r} and {b.label!r}; "
                     "make them meet end to start")
     return out
+
+
+def windows_inside(start_s, stop_s, a: float, b: float) -> np.ndarray:
+    """Mask of the windows (start and stop times in s) an interval [a, b] labels: those whose centre
+    lies strictly inside it (see the module docstring)."""
+    centre = (np.asarray(start_s, dtype=np.float64) + np.asarray(stop_s, dtype=np.float64)) / 2
+    return (centre > a) & (centre < b)

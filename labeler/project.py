@@ -512,7 +512,7 @@ class Project:
         ``dry_run`` nothing is written; the report says what would change. Windows take an interval's
         label by the majority rule of :mod:`labeler.importing`.
         """
-        from labeler.importing import read_intervals
+        from labeler.importing import read_intervals, windows_inside
 
         intervals = read_intervals(path)
         recs = self.recordings()
@@ -536,8 +536,10 @@ class Project:
                 self.class_id(classes[iv.label.lower()])  # refuses retired classes, naming them
         per_who: dict[str, dict[int, str]] = {}
         rows = []
+        wins = self.windows()
         for iv in intervals:
-            ids = self.window_ids_in_span(iv.recording, iv.start, iv.end)
+            w = wins[wins["recording"] == iv.recording]
+            ids = w["id"].to_numpy()[windows_inside(w["start_s"], w["stop_s"], iv.start, iv.end)]
             who = iv.annotator or self.annotator
             target = per_who.setdefault(who, {})
             for w in ids:
@@ -548,8 +550,11 @@ class Project:
         names = dict(zip(self.classes()["id"], self.classes()["name"]))
         changes = sum(1 for who, m in per_who.items() for w, c in m.items()
                       if names.get(current.get((w, who))) != c)
+        relabels = sum(1 for who, m in per_who.items() for w, c in m.items()
+                       if (w, who) in current and names.get(current[(w, who)]) != c)
         report = {"intervals": len(intervals), "windows": sum(len(m) for m in per_who.values()),
-                  "changes": changes, "new_classes": new_classes, "rows": rows,
+                  "changes": changes, "relabels": relabels, "new_classes": new_classes,
+                  "rows": rows,
                   "annotators": sorted(per_who), "batches": []}
         if dry_run:
             return report
@@ -558,6 +563,8 @@ class Project:
                 self.add_class(name)
             ids_by_name = {n: int(i) for i, n in zip(self.classes()["id"], self.classes()["name"])}
             for who, m in per_who.items():
+                if not m:
+                    continue
                 batch = self.store.apply_batch(
                     who, "confirm", "import", [(w, ids_by_name[c]) for w, c in sorted(m.items())],
                     note=f"imported from {Path(path).name}")
@@ -598,6 +605,138 @@ class Project:
             self.store.backup(dest)
         except StoreError as exc:
             raise ProjectError(str(exc)) from None
+
+    # ------------------------------------------------------------------ export
+    def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
+               min_confidence: float | None = None, classes: Sequence[str] | None = None,
+               overwrite: bool = False) -> dict:
+        """Write the training set to ``folder``: ``windows.<fmt>``, ``segments.<fmt>`` and
+        ``manifest.json`` (see :mod:`labeler.exporting`), each file atomically, the manifest last.
+
+        Returns ``{"files": {kind: path}, "windows": n rows, "segments": n rows, "manifest": dict}``.
+        """
+        from labeler import exporting as ex
+        from storage.store import utc_now
+
+        if fmt not in ex.FORMATS:
+            raise InputError(f"export format {fmt!r} is unknown; use one of {', '.join(ex.FORMATS)}")
+        if min_confidence is not None and not (0.0 <= float(min_confidence) <= 1.0):
+            raise InputError(f"minimum confidence {min_confidence} is outside 0-1; give e.g. 0.8")
+        known = {str(c).lower(): str(c) for c in self.classes()["name"]}
+        if classes is not None:
+            classes = [str(c).strip() for c in classes]
+            for c in classes:
+                if c.lower() not in known:
+                    raise InputError(f"no class {c!r} to export; classes: "
+                                     f"{', '.join(known.values()) or 'none yet'}")
+            classes = [known[c.lower()] for c in classes]
+        folder = Path(folder)
+        if folder.exists() and not folder.is_dir():
+            raise InputError(f"{folder}: is a file; give a folder for the export")
+        if not folder.exists():
+            if not folder.parent.is_dir():
+                raise InputError(f"{folder}: folder {folder.parent} does not exist; create it first")
+            folder.mkdir()
+        targets = {"windows": folder / f"windows.{fmt}", "segments": folder / f"segments.{fmt}",
+                   "manifest": folder / "manifest.json"}
+        if not overwrite:
+            for p in targets.values():
+                if p.exists():
+                    raise InputError(f"{p}: exists already; give another folder or --overwrite")
+
+        snap = self._export_snapshot()
+        recs = self.recordings()
+        cls = self.classes()
+        retired = set(cls.loc[cls["retired_at"].notna(), "name"])
+        start_times = {r["name"]: (r["start_time"] if pd.notna(r["start_time"]) else None)
+                       for _, r in recs.iterrows()}
+        table = ex.window_table(snap["windows"], snap["labels"], snap["proposals"], start_times,
+                                retired)
+        table = ex.select(table, confirmed_only=confirmed_only, min_confidence=min_confidence,
+                          classes=classes)
+        geometry = {r["name"]: (r["window_length"] / r["rate"], r["window_step"] / r["rate"])
+                    for _, r in recs.iterrows()}
+        segs = ex.segments(table, geometry)
+        files = {}
+        for kind, frame in (("windows", table), ("segments", segs)):
+            digest = ex.write_table(frame, targets[kind], fmt)
+            files[kind] = {"name": targets[kind].name, "format": fmt, "rows": int(len(frame)),
+                           "sha256": digest}
+        names = dict(zip(cls["id"], cls["name"]))
+        meta = self.store.meta()
+        manifest = ex.build_manifest(
+            tool_version=labeler.__version__, created_at=utc_now(), created_by=self.annotator,
+            project={"file": Path(self.path).name, "project_id": meta.get("project_id"),
+                     "schema_version": int(meta.get("schema_version", 0)),
+                     "created_with": meta.get("tool_version"), "as_of_event": snap["as_of_event"]},
+            feature_set_version=self.feature_set_version,
+            window_settings={"length_s": self.window_length_s, "step_s": self.window_step_s,
+                             "segment_rule": "each window stands for the step-long span around "
+                                             "its centre; segments join those spans"},
+            recordings=[{"name": r["name"], "content_hash": r["content_hash"],
+                         "rate_hz": float(r["rate"]), "n_samples": int(r["n_samples"]),
+                         "duration_s": float(r["n_samples"] / r["rate"]),
+                         "start_time": start_times[r["name"]], "channels": list(r["channels"]),
+                         "window_length_samples": int(r["window_length"]),
+                         "window_step_samples": int(r["window_step"])} for _, r in recs.iterrows()],
+            classes=[{"name": c["name"], "colour": c["colour"],
+                      "retired": c["retired_at"] is not None,
+                      "retired_at": c["retired_at"],
+                      "merged_into": (names.get(int(c["merged_into"]))
+                                      if pd.notna(c["merged_into"]) else None)}
+                     for _, c in cls.iterrows()],
+            selection={"confirmed_only": bool(confirmed_only),
+                       "min_confidence": None if min_confidence is None else float(min_confidence),
+                       "classes": classes},
+            proposals=snap["proposal_params"], accuracy=snap["accuracy"],
+            accuracy_absent=snap["accuracy_absent"], table=table, files=files)
+        ex.write_json(manifest, targets["manifest"])
+        return {"files": {k: str(v) for k, v in targets.items()}, "windows": int(len(table)),
+                "segments": int(len(segs)), "manifest": manifest}
+
+    def _export_snapshot(self, attempts: int = 5) -> dict:
+        """Labels, proposals and accuracy estimate that belong together: read again when another
+        process changed the history while they were being read."""
+        def last_event() -> int:
+            return int(self.store.conn.execute("SELECT coalesce(max(id), 0) FROM events")
+                       .fetchone()[0])
+
+        for _ in range(attempts):
+            before = last_event()
+            snap = {"windows": self.windows(), "labels": self.labels(), "as_of_event": before}
+            snap.update(self._export_proposals())
+            if last_event() == before:
+                return snap
+        raise ProjectError(f"{self.path}: labels kept changing while the export read them; "
+                           "try again when the other annotators pause")
+
+    def _export_proposals(self) -> dict:
+        """The latest proposals and the accuracy estimate, as the export writes them."""
+        return {"proposals": None, "proposal_params": None, "accuracy": None,
+                "accuracy_absent": "no proposals in this project yet"}
+
+    # ------------------------------------------------------------------ several annotators
+    def annotations(self) -> pd.DataFrame:
+        """Every annotator's current label of every window they labeled: window_id, annotator,
+        class_id, label."""
+        df = pd.DataFrame(self.store.annotations(), columns=["window_id", "annotator", "class_id"])
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        df["label"] = df["class_id"].map(names)
+        return df
+
+    def disagreements(self) -> np.ndarray:
+        """Ids of windows whose annotators' current labels differ (for the review queue)."""
+        from labeler.agreement import disagreeing
+
+        return disagreeing(self.annotations())
+
+    def agreement(self) -> dict:
+        """Agreement between annotators on the windows several of them labeled: pairwise confusion
+        tables and Cohen's kappa, Fleiss' kappa over windows all of three or more labeled
+        (see :mod:`labeler.agreement`)."""
+        from labeler.agreement import agreement_report
+
+        return agreement_report(self.annotations())
 
 
 def _check_class_name(name: str) -> str:

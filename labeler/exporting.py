@@ -1,0 +1,273 @@
+"""The training set out of a project: per-window rows, merged segments and a manifest.
+
+Pure table building: these functions take plain tables (pandas) and dicts and know nothing of SQLite;
+:meth:`labeler.project.Project.export` gathers the inputs and calls them.
+
+**Window rows** (one per labeled window): recording, ``window`` (the window's number within its
+recording, from 0), ``window_id`` (its id in the project), start and end in seconds from the
+recording's first sample, the same as UTC timestamps when the recording file carried clock times,
+the label, ``status`` (``confirmed`` by a person or ``proposed`` by label spreading), confidence and
+margin, and for confirmed windows who confirmed it, when, and through what (``source``: map,
+timeline, queue, audit, import, cli, api, class-merge, undo). ``retired`` marks labels of classes that
+were retired since (kept, never silently dropped).
+
+A confirmed window's confidence is 1 (a person decided it; how far people agree is what
+``labeler agreement`` reports) and its margin is empty. A proposed window's confidence is the share of
+the spread label mass that went to its label and its margin the gap to the runner-up, as the
+proposals engine computes them.
+
+**Segments**: consecutive windows of one recording with one label (no gap between them, no other
+label in between) become one interval. Overlapping windows share samples, so a segment's ``start``
+and ``end`` are not the first window's start and the last window's end: each window stands for the
+one-step-long span around its centre, ``[centre - step/2, centre + step/2]``, and a segment runs from
+the start of its first window's span to the end of its last window's. Adjacent segments therefore meet
+end to start and never overlap, and re-importing a segment file (``labeler import``) gives every window
+back its label: an imported interval labels the windows whose centre lies inside it. Each segment
+carries the number of windows, how many of them were confirmed, and the lowest and mean confidence
+inside.
+
+**Manifest** (JSON): tool and feature-set versions, window settings, the proposal run's parameters,
+content hashes of the recordings, counts per class and status and confirmation source, the selection
+made, the accuracy estimate with its interval and what it rests on (or ``null`` with the reason), and
+the SHA-256 of each table written with it.
+
+Every file is written to a temporary name in its folder and renamed into place (:func:`write_atomic`),
+so a reader sees the previous file or the new one, never half of one.
+
+Proposed labels are suggestions. Where labels feed clinical or safety decisions, a qualified person
+reviews them, and local rules and licensed practice come first.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import uuid
+from pathlib import Path
+from typing import Any, Callable, Iterable, Mapping
+
+import numpy as np
+import pandas as pd
+
+MANIFEST_FORMAT = "labeler-export/1"
+FORMATS = ("csv", "parquet")
+ISO_UTC = "%Y-%m-%dT%H:%M:%S.%fZ"
+CAUTION = ("Proposed labels are suggestions computed from a few confirmed examples. Where labels "
+           "feed clinical or safety decisions, a qualified person reviews them, and local rules and "
+           "licensed practice come first.")
+
+WINDOW_COLUMNS = ["recording", "window", "window_id", "start_s", "end_s", "start_utc", "end_utc",
+                  "label", "status", "confidence", "margin", "annotator", "confirmed_at", "source",
+                  "retired"]
+SEGMENT_COLUMNS = ["recording", "start", "end", "label", "start_utc", "end_utc", "windows",
+                   "confirmed", "confidence_min", "confidence_mean", "retired"]
+
+
+# --------------------------------------------------------------------------- window rows
+
+def window_table(windows: pd.DataFrame, labels: pd.DataFrame, proposals: pd.DataFrame | None,
+                 start_times: Mapping[str, str | None], retired: Iterable[str] = ()) -> pd.DataFrame:
+    """One row per labeled window (columns :data:`WINDOW_COLUMNS`), in recording and time order.
+
+    ``windows``: id, recording, seq, start_s, stop_s. ``labels``: window_id, class, annotator, at,
+    source (the current confirmed labels). ``proposals``: window_id, label, confidence, margin (None
+    when no proposals were made); a confirmation overrides the proposal of its window.
+    ``start_times``: recording name → ISO-8601 UTC time of its first sample, or None.
+    """
+    w = windows[["id", "recording", "seq", "start_s", "stop_s"]].rename(
+        columns={"id": "window_id", "seq": "window", "stop_s": "end_s"})
+    conf = labels[["window_id", "class", "annotator", "at", "source"]].rename(
+        columns={"class": "label", "at": "confirmed_at"})
+    t = w.merge(conf, on="window_id", how="left")
+    t["status"] = np.where(t["label"].notna(), "confirmed", None)
+    t["confidence"] = np.where(t["label"].notna(), 1.0, np.nan)
+    t["margin"] = np.nan
+    if proposals is not None and len(proposals):
+        prop = proposals[["window_id", "label", "confidence", "margin"]].rename(
+            columns={"label": "p_label", "confidence": "p_conf", "margin": "p_margin"})
+        t = t.merge(prop, on="window_id", how="left")
+        use = t["label"].isna() & t["p_label"].notna()
+        t.loc[use, "label"] = t.loc[use, "p_label"]
+        t.loc[use, "status"] = "proposed"
+        t.loc[use, "confidence"] = t.loc[use, "p_conf"].astype(float)
+        t.loc[use, "margin"] = t.loc[use, "p_margin"].astype(float)
+        t = t.drop(columns=["p_label", "p_conf", "p_margin"])
+    t = t[t["label"].notna()].copy()
+    t["start_utc"] = _utc(t["recording"], t["start_s"], start_times)
+    t["end_utc"] = _utc(t["recording"], t["end_s"], start_times)
+    t["confirmed_at"] = pd.to_datetime(t["confirmed_at"], utc=True, format="ISO8601")
+    t["retired"] = t["label"].isin(set(retired))
+    t["window"] = t["window"].astype("int64")
+    t["window_id"] = t["window_id"].astype("int64")
+    t = t.sort_values(["recording", "start_s", "window"], kind="stable")
+    return t[WINDOW_COLUMNS].reset_index(drop=True)
+
+
+def _utc(recording: pd.Series, seconds: pd.Series, start_times: Mapping[str, str | None]) -> pd.Series:
+    base = pd.to_datetime(recording.map(lambda r: start_times.get(r)), utc=True, format="ISO8601")
+    return base + pd.to_timedelta(seconds.astype(float), unit="s")
+
+
+def select(table: pd.DataFrame, *, confirmed_only: bool = False, min_confidence: float | None = None,
+           classes: Iterable[str] | None = None) -> pd.DataFrame:
+    """Rows of a window table kept by the export options.
+
+    ``min_confidence`` drops proposed windows below it (confirmed windows have confidence 1 and stay);
+    ``classes`` keeps only those labels (compared without regard to case).
+    """
+    keep = np.ones(len(table), dtype=bool)
+    if confirmed_only:
+        keep &= (table["status"] == "confirmed").to_numpy()
+    if min_confidence is not None:
+        keep &= (table["confidence"] >= float(min_confidence)).to_numpy()
+    if classes is not None:
+        wanted = {str(c).lower() for c in classes}
+        keep &= table["label"].str.lower().isin(wanted).to_numpy()
+    return table[keep].reset_index(drop=True)
+
+
+# --------------------------------------------------------------------------- segments
+
+def segments(table: pd.DataFrame, geometry: Mapping[str, tuple[float, float]]) -> pd.DataFrame:
+    """Merge consecutive windows of one label into intervals (columns :data:`SEGMENT_COLUMNS`).
+
+    ``geometry``: recording name → (window length s, step s). Windows are consecutive when they follow
+    each other on the recording's window grid (the next window starts one step later: no gap, no
+    window left out by the selection). See the module docstring for where a segment starts and ends.
+    """
+    if len(table) == 0:
+        return pd.DataFrame({c: pd.Series(dtype=_SEGMENT_DTYPES[c]) for c in SEGMENT_COLUMNS})
+    t = table.sort_values(["recording", "start_s", "window"], kind="stable").reset_index(drop=True)
+    length = t["recording"].map(lambda r: geometry[r][0]).to_numpy(float)
+    step = t["recording"].map(lambda r: geometry[r][1]).to_numpy(float)
+    start = t["start_s"].to_numpy(float)
+    rec = t["recording"].to_numpy()
+    lab = t["label"].to_numpy()
+    new = np.ones(len(t), dtype=bool)
+    if len(t) > 1:
+        follows = np.abs(start[1:] - start[:-1] - step[1:]) <= 1e-6 * np.maximum(1.0, step[1:])
+        new[1:] = ~((rec[1:] == rec[:-1]) & (lab[1:] == lab[:-1]) & follows)
+    seg = np.cumsum(new) - 1
+    centre = start + length / 2
+    t["_seg"] = seg
+    t["_a"] = centre - step / 2
+    t["_b"] = centre + step / 2
+    t["_a_utc"] = t["start_utc"] + pd.to_timedelta(length / 2 - step / 2, unit="s")
+    t["_b_utc"] = t["start_utc"] + pd.to_timedelta(length / 2 + step / 2, unit="s")
+    t["_confirmed"] = t["status"] == "confirmed"
+    g = t.groupby("_seg", sort=True)
+    out = pd.DataFrame({
+        "recording": g["recording"].first(),
+        "start": g["_a"].min(),
+        "end": g["_b"].max(),
+        "label": g["label"].first(),
+        "start_utc": g["_a_utc"].first(),
+        "end_utc": g["_b_utc"].last(),
+        "windows": g.size().astype("int64"),
+        "confirmed": g["_confirmed"].sum().astype("int64"),
+        "confidence_min": g["confidence"].min(),
+        "confidence_mean": g["confidence"].mean(),
+        "retired": g["retired"].first().astype(bool),
+    })
+    return out[SEGMENT_COLUMNS].reset_index(drop=True)
+
+
+_SEGMENT_DTYPES = {"recording": object, "start": float, "end": float, "label": object,
+                   "start_utc": "datetime64[ns, UTC]", "end_utc": "datetime64[ns, UTC]",
+                   "windows": "int64", "confirmed": "int64", "confidence_min": float,
+                   "confidence_mean": float, "retired": bool}
+
+
+# --------------------------------------------------------------------------- manifest
+
+def counts(table: pd.DataFrame) -> dict[str, Any]:
+    """Counts per class and status, per status, and per confirmation source."""
+    by_class: dict[str, dict[str, int]] = {}
+    for (label, status), n in table.groupby(["label", "status"]).size().items():
+        by_class.setdefault(str(label), {"confirmed": 0, "proposed": 0})[str(status)] = int(n)
+    by_status = {"confirmed": int((table["status"] == "confirmed").sum()),
+                 "proposed": int((table["status"] == "proposed").sum())}
+    src = table.loc[table["status"] == "confirmed", "source"].value_counts()
+    return {"windows": int(len(table)), "by_class": dict(sorted(by_class.items())),
+            "by_status": by_status,
+            "by_confirmation_source": {str(k): int(v) for k, v in sorted(src.items())}}
+
+
+def build_manifest(*, tool_version: str, created_at: str, created_by: str, project: Mapping,
+                   feature_set_version: str, window_settings: Mapping, recordings: list[Mapping],
+                   classes: list[Mapping], selection: Mapping, proposals: Mapping | None,
+                   accuracy: Mapping | None, accuracy_absent: str | None, table: pd.DataFrame,
+                   files: Mapping[str, Mapping]) -> dict[str, Any]:
+    """The manifest as a JSON-ready dict (see the module docstring)."""
+    return {
+        "format": MANIFEST_FORMAT,
+        "created_at": created_at,
+        "created_by": created_by,
+        "tool": {"name": "labeler", "version": tool_version},
+        "project": dict(project),
+        "feature_set_version": feature_set_version,
+        "windows": dict(window_settings),
+        "recordings": [dict(r) for r in recordings],
+        "classes": [dict(c) for c in classes],
+        "selection": dict(selection),
+        "proposals": None if proposals is None else dict(proposals),
+        "counts": counts(table),
+        "accuracy_estimate": None if accuracy is None else dict(accuracy),
+        "accuracy_estimate_absent": None if accuracy is not None else accuracy_absent,
+        "files": {k: dict(v) for k, v in files.items()},
+        "caution": CAUTION,
+    }
+
+
+# --------------------------------------------------------------------------- writing
+
+def write_atomic(path: str | os.PathLike, write: Callable[[Path], None]) -> str:
+    """Write a file through ``write(tmp_path)`` to a temporary name in the same folder, flush it to
+    disk and rename it over ``path``. Returns the SHA-256 of what was written."""
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.{uuid.uuid4().hex[:8]}.tmp")
+    try:
+        write(tmp)
+        digest = hashlib.sha256()
+        with open(tmp, "rb+") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                digest.update(block)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
+        raise
+    return digest.hexdigest()
+
+
+def write_table(table: pd.DataFrame, path: str | os.PathLike, fmt: str) -> str:
+    """Write a table as CSV (timestamps as ISO-8601 UTC with a Z) or Parquet; returns its SHA-256."""
+    if fmt == "csv":
+        return write_atomic(path, lambda p: table.to_csv(p, index=False, date_format=ISO_UTC,
+                                                         float_format="%.10g"))
+    if fmt == "parquet":
+        return write_atomic(path, lambda p: table.to_parquet(p, index=False, engine="pyarrow"))
+    raise ValueError(f"unknown format {fmt!r}; use one of {', '.join(FORMATS)}")
+
+
+def write_json(obj: Any, path: str | os.PathLike) -> str:
+    text = json.dumps(obj, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default)
+    return write_atomic(path, lambda p: p.write_text(text + "\n", encoding="utf-8"))
+
+
+def _json_default(value: Any) -> Any:
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return None if not np.isfinite(value) else float(value)
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, (pd.Timestamp,)):
+        return value.strftime(ISO_UTC)
+    raise TypeError(f"cannot write {type(value).__name__} to the manifest")
