@@ -30,7 +30,9 @@ def write_demo_files(folder: Path, *, minutes: float = 40.0, people: int = 3,
     for i, rec in enumerate(recs):
         path = folder / "recordings" / f"{rec.name}.csv"
         tmp = path.with_suffix(".csv.tmp")
-        rec.frame.to_csv(tmp, index=False, float_format="%.5g")
+        # 5 significant digits for the signal, 0.1 ms for time
+        rec.frame.assign(time=rec.frame["time"].map("{:.4f}".format)).to_csv(
+            tmp, index=False, float_format="%.5g")
         tmp.replace(path)
         paths.append(path)
         truth = rec.truth.copy()

@@ -149,8 +149,10 @@ def _read_table(path: Path, repairs: list[str]) -> pd.DataFrame:
     if sep != ",":
         repairs.append(f"read as {'semicolon' if sep == ';' else 'tab'}-separated")
     try:
+        # numeric columns parse in C; a column with any non-number stays text and is checked
+        # cell by cell in _numeric_column, which names the first bad row
         frame = pd.read_csv(path, sep=sep, encoding="utf-8-sig", skipinitialspace=True,
-                            dtype=str, keep_default_na=False, na_filter=False)
+                            low_memory=False)
     except pd.errors.ParserError as exc:
         raise InputError(f"{where}: cannot be parsed as CSV ({_short(exc)}); check that every row "
                          "has as many fields as the header") from None
