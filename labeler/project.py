@@ -680,11 +680,10 @@ class Project:
                          "window_length_samples": int(r["window_length"]),
                          "window_step_samples": int(r["window_step"])} for _, r in recs.iterrows()],
             classes=[{"name": c["name"], "colour": c["colour"],
-                      "retired": c["retired_at"] is not None,
-                      "retired_at": c["retired_at"],
-                      "merged_into": (names.get(int(c["merged_into"]))
-                                      if pd.notna(c["merged_into"]) else None)}
-                     for _, c in cls.iterrows()],
+                      "retired": c["retired_at"] is not None, "retired_at": c["retired_at"],
+                      "merged_into": (None if c["merged_into"] is None
+                                      else names.get(c["merged_into"]))}
+                     for c in self.store.classes()],
             selection={"confirmed_only": bool(confirmed_only),
                        "min_confidence": None if min_confidence is None else float(min_confidence),
                        "classes": classes},
