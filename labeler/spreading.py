@@ -32,6 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import sparse
+from sklearn.base import BaseEstimator
 
 from labeler.errors import InputError
 
@@ -161,7 +162,7 @@ def reference_mass(W, alpha: float = DEFAULT_ALPHA, *, tol: float = 1e-6, max_it
     return r.ravel()
 
 
-class LabelSpreader:
+class LabelSpreader(BaseEstimator):
     """Graph label spreading (Zhou et al. 2004) with warm start, in scikit-learn style.
 
     Parameters
