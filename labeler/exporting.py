@@ -255,8 +255,20 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, fmt: str) -> str:
 
 
 def write_json(obj: Any, path: str | os.PathLike) -> str:
-    text = json.dumps(obj, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default)
+    """Write JSON (NaN and infinities as null) atomically; returns its SHA-256."""
+    text = json.dumps(json_ready(obj), indent=2, ensure_ascii=False, allow_nan=False, default=_json_default)
     return write_atomic(path, lambda p: p.write_text(text + "\n", encoding="utf-8"))
+
+
+def json_ready(value: Any) -> Any:
+    """A copy with non-finite floats as None (JSON has no NaN)."""
+    if isinstance(value, dict):
+        return {k: json_ready(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_ready(v) for v in value]
+    if isinstance(value, (float, np.floating)):
+        return float(value) if np.isfinite(value) else None
+    return value
 
 
 def _json_default(value: Any) -> Any:
