@@ -306,8 +306,11 @@ def backup_cmd(project, dest):
 @click.option("--minutes", type=float, default=40.0, show_default=True,
               help="Length of each simulated recording.")
 @click.option("--people", type=int, default=3, show_default=True, help="Simulated pickers.")
-def demo_cmd(folder, minutes, people):
-    """Build the demo project (an invented orchard harvest shift) and show what is in it."""
+@click.option("--port", type=int, default=0, help="Port for the app (default: a free one).")
+@click.option("--no-browser", is_flag=True, help="Print the URL only; do not open a browser.")
+@click.option("--no-serve", is_flag=True, help="Build the demo project and stop (no app).")
+def demo_cmd(folder, minutes, people, port, no_browser, no_serve):
+    """Build the demo project (an invented orchard harvest shift) and open the app on it."""
     from labeler.demo import build_demo
 
     project = build_demo(Path(folder), minutes=minutes, people=people, echo=click.echo)
@@ -315,6 +318,34 @@ def demo_cmd(folder, minutes, people):
 
     with Project.open(project, readonly=True) as p:
         _print_status(p)
+    if no_serve:
+        return
+    _serve_app(project, host="127.0.0.1", port=port, annotator=None, no_browser=no_browser)
+
+
+def _serve_app(project, *, host, port, annotator, no_browser) -> None:
+    """Compute the map and proposals if missing, then serve the app until Ctrl-C."""
+    from labeler.app.prepare import prepare
+    from labeler.app.server import serve
+
+    prepare(project, annotator, echo=click.echo)
+    open_browser = not no_browser and not os.environ.get("CI")
+    serve(project, host=host, port=port, annotator=annotator, open_browser=open_browser,
+          echo=click.echo)
+
+
+@cli.command("open")
+@project_argument
+@click.option("--port", type=int, default=0, help="Port for the app (default: a free one).")
+@click.option("--host", default="127.0.0.1", show_default=True,
+              help="Address to listen on; anything but 127.0.0.1 exposes the recordings.")
+@click.option("--no-browser", is_flag=True, help="Print the URL only; do not open a browser.")
+@annotator_option
+def open_cmd(project, port, host, no_browser, annotator):
+    """Open the labeling app on a project in the browser (serves until Ctrl-C)."""
+    if not 0 <= port <= 65535:
+        raise UserError(f"--port {port}: give a port between 1 and 65535 (or 0 for a free one)")
+    _serve_app(project, host=host, port=port, annotator=annotator, no_browser=no_browser)
 
 
 @cli.command("export")
@@ -431,13 +462,17 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last):
             click.echo("no events match")
             return
         w = p.windows().set_index("id")
-        rows = [("event", "at (UTC)", "annotator", "action", "window", "class", "source", "batch")]
+        by = {b["id"]: b["annotator"] for b in p.store.batches()}
+        # annotator: whose label the event set; by: who acted (differs for undo and class merges)
+        rows = [("event", "at (UTC)", "annotator", "by", "action", "window", "class", "source",
+                 "batch")]
         for ev in h.itertuples(index=False):
             win = (f"{w.at[ev.window_id, 'recording']}#{int(w.at[ev.window_id, 'seq'])}"
                    if ev.window_id in w.index else str(ev.window_id))
             label = "-" if ev.class_id is None or ev.class_id != ev.class_id else str(ev[6])
-            rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator, ev.action, win,
-                         label, ev.source, ev.batch_id[:8]))
+            rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator,
+                         by.get(ev.batch_id, "?"), ev.action, win, label, ev.source,
+                         ev.batch_id[:8]))
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for r in rows:
         click.echo("  ".join(v.ljust(n) for v, n in zip(r, widths)).rstrip())
