@@ -10,7 +10,7 @@ from __future__ import annotations
 import threading
 import time
 import traceback
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
@@ -97,15 +97,19 @@ def _as_xy(got, n: int) -> np.ndarray | None:
 
 
 def _pca2(X: np.ndarray) -> np.ndarray:
-    from sklearn.decomposition import PCA
-
+    """First two principal components of the standardized features (each axis's sign fixed
+    so that its largest loading is positive)."""
     Z = np.asarray(X, dtype=np.float64)
     sd = Z.std(axis=0)
     Z = (Z - Z.mean(axis=0)) / np.where(sd > 0, sd, 1.0)
-    k = min(2, Z.shape[0], Z.shape[1])
     out = np.zeros((Z.shape[0], 2), np.float32)
-    if k:
-        out[:, :k] = PCA(n_components=k, random_state=0).fit_transform(Z)
+    if Z.shape[0] < 2 or Z.shape[1] == 0:
+        return out
+    evals, evecs = np.linalg.eigh(Z.T @ Z)        # covariance route: features x features only
+    k = min(2, evecs.shape[1])
+    comps = evecs[:, ::-1][:, :k].T
+    signs = np.sign(comps[np.arange(k), np.argmax(np.abs(comps), axis=1)])
+    out[:, :k] = Z @ (comps * signs[:, None]).T
     return out
 
 

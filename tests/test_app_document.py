@@ -1,0 +1,257 @@
+"""The app's document, driven from Python on a fresh bokeh Document (no browser, no server)."""
+
+from __future__ import annotations
+
+import html
+import itertools
+import shutil
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+
+import numpy as np
+import pytest
+from bokeh.document import Document
+
+from labeler.app.document import build_document
+from labeler.app.state import CAUTION, _pca2
+from labeler.app.timeline import segments
+from labeler.project import Project
+
+XSS = "<img src=x onerror=alert(1)>"
+
+
+@pytest.fixture(scope="module")
+def base_project(tmp_path_factory):
+    """Two simulated recordings of 2.5 min each; the start of one bout per activity confirmed."""
+    from labeler.synthetic import simulate_recording
+
+    folder = tmp_path_factory.mktemp("app")
+    paths = []
+    truths = {}
+    for person in (1, 2):
+        rec = simulate_recording(150.0, seed=7, person=person)
+        path = folder / f"{rec.name}.csv"
+        rec.frame.to_csv(path, index=False, float_format="%.5g")
+        paths.append(path)
+        truths[rec.name] = rec.truth
+    project = folder / "base.labeler"
+    with Project.create(project, annotator="setup") as p:
+        p.add_recordings(paths)
+        done = set()
+        for name in sorted(truths):                  # the first 15 s of one bout per activity
+            for row in truths[name].itertuples(index=False):
+                if row.activity in done or row.activity == "transition" \
+                        or row.end_s - row.start_s < 8:
+                    continue
+                ids = p.window_ids_in_span(name, row.start_s, min(row.end_s, row.start_s + 15))
+                p.confirm(ids, row.activity, source="import", create_class=True)
+                done.add(row.activity)
+        assert len(done) >= 2
+    return project
+
+
+@pytest.fixture
+def app(base_project, tmp_path):
+    path = tmp_path / "p.labeler"
+    shutil.copy(base_project, path)
+    a = build_document(Document(), path, "ann", background=False)
+    yield a
+    a.close()
+
+
+def _events(path, **filters):
+    with Project.open(path, readonly=True) as p:
+        return p.history(**filters)
+
+
+def test_document_holds_every_window_and_the_caution(app):
+    doc = app.doc
+    assert app.root in doc.roots
+    n = app.state.n
+    assert n > 100
+    src = app.map_src
+    assert all(len(v) == n for v in src.data.values())
+    assert app.map_fig.output_backend == "webgl"
+    tool_types = {type(t).__name__ for t in app.map_fig.tools}
+    assert {"BoxSelectTool", "LassoSelectTool", "HoverTool"} <= tool_types
+    assert html.escape(CAUTION) in app.caution.text
+    # every window has a spot on the map and one row in the timeline bands or none
+    assert np.isfinite(src.data["x"]).all() and np.isfinite(src.data["y"]).all()
+    with Project.open(app.project.path, readonly=True) as p:
+        assert list(src.data["wid"]) == p.windows()["id"].tolist()
+
+
+def test_select_confirm_undo_roundtrip(app):
+    path = app.project.path
+    free = np.flatnonzero(app.state.confirmed < 0)[:5]
+    app.select_map(free)
+    assert app.target_source == "map" and app.target_rows.tolist() == free.tolist()
+    assert app.focus_row in free.tolist()                       # the signal view shows one of them
+    before = len(_events(path))
+    app.press("2")                                               # class 2 on the pad
+    code = app.state.active_codes()[1]
+    ev = _events(path)
+    assert len(ev) == before + 5
+    new = ev.tail(5)
+    assert set(new["source"]) == {"map"} and set(new["annotator"]) == {"ann"}
+    assert new["batch_id"].nunique() == 1
+    assert set(new["class"]) == {app.state.class_names[code]}
+    assert sorted(new["window_id"]) == sorted(app.state.ids[free].tolist())
+    # the map source holds the new labels: confirmed code, opaque, and the confirmed overlay
+    for r in free:
+        assert app.map_src.data["cf"][r] == code
+        assert app.map_src.data["lab"][r] == code
+        assert app.map_src.data["alpha"][r] == pytest.approx(1.0)
+    assert len(app.confirmed_src.data["x"]) == int((app.state.confirmed >= 0).sum())
+    counts_before = app.counts_div.text
+    app.press("u")
+    ev = _events(path)
+    assert ev.iloc[-1]["source"] == "undo"
+    for r in free:
+        assert app.map_src.data["cf"][r] == -1
+    assert app.counts_div.text != counts_before
+    with Project.open(path, readonly=True) as p:
+        assert not set(p.labels()["window_id"]) & set(app.state.ids[free].tolist())
+
+
+def test_add_class_then_confirm_with_its_key(app):
+    n_before = len(app.state.active_codes())
+    app.new_class.value = "resting"
+    app._on_add_class()
+    assert "resting" in app.state.class_names
+    assert len(app.state.active_codes()) == n_before + 1
+    assert len(app.class_mapper.palette) == len(app.state.class_names)
+    labels = [b.label for r in app.class_pad.children for b in r.children]
+    assert any(lbl.endswith("resting") and lbl.startswith(str(n_before + 1)) for lbl in labels)
+    rows = np.flatnonzero(app.state.confirmed < 0)[:3]
+    app.select_map(rows)
+    app.press(str(n_before + 1))
+    with Project.open(app.project.path, readonly=True) as p:
+        lab = p.labels().set_index("window_id")
+        assert set(lab.loc[app.state.ids[rows], "class"]) == {"resting"}
+    # a bad name is refused with one line, nothing added
+    app.add_class("resting")
+    assert "exists" in app.message_div.text
+    assert app.state.class_names.count("resting") == 1
+
+
+def test_timeline_span_confirms_a_bout(app):
+    s = app.state
+    rec = s.rec_names[1]
+    app.pick_span(20.0, 50.0, 0.9, 1.1)                          # a box across strip 1 only
+    with Project.open(app.project.path, readonly=True) as p:
+        want = set(p.window_ids_in_span(rec, 20.0, 50.0).tolist())
+    assert app.target_source == "timeline"
+    assert set(s.ids[app.target_rows].tolist()) == want
+    assert app.map_src.selected.indices == app.target_rows.tolist()
+    app.press("1")
+    ev = _events(app.project.path, source="timeline")
+    assert set(ev["window_id"]) == want and ev["batch_id"].nunique() == 1
+    # a click on the timeline picks the window under it
+    app.pick_time(100.0, 0.0)
+    r = app.target_rows[0]
+    assert s.rec_code[r] == 0 and s.start[r] <= 100.0 <= s.stop[r]
+
+
+def test_class_names_reach_html_escaped(app):
+    app.add_class(XSS)
+    rows = np.flatnonzero(app.state.confirmed < 0)[:2]
+    app.select_map(rows)
+    app.press(str(len(app.state.active_codes())))
+    texts = [app.counts_div.text, app.signal_title.text, app.selection_div.text,
+             app.queue_div.text]
+    assert any(html.escape(XSS) in t for t in texts)
+    assert not any(XSS in t for t in texts)
+
+
+def test_bad_key_and_empty_selection_say_what_to_do(app):
+    before = len(_events(app.project.path))
+    app.press("9")
+    assert "no class number 9" in app.message_div.text
+    app.clear()
+    app.press("1")
+    assert "nothing selected" in app.message_div.text
+    assert len(_events(app.project.path)) == before
+
+
+def test_timeline_runs_match_a_plain_run_length_encoding():
+    # Reference: run-length encoding with Python's itertools.groupby (standard library).
+    rng = np.random.default_rng(3)
+    n = 300
+    rec = np.repeat([0, 1, 2], n // 3)
+    start = np.tile(np.arange(n // 3) * 1.28, 3)
+    stop = start + 2.56
+    confirmed = np.where(rng.random(n) < 0.3, rng.integers(0, 3, n), -1)
+    proposed = rng.integers(0, 3, n)
+    conf = rng.random(n)
+    seg = segments(rec, start, stop, confirmed, proposed, conf)
+    upper = np.isclose(seg["top"], np.round(seg["top"]))     # the confirmed band ends at y = k
+    expected_upper = 0
+    expected_lower = 0
+    for k in range(3):
+        m = rec == k
+        expected_upper += sum(1 for v, _ in itertools.groupby(confirmed[m]) if v >= 0)
+        low = np.where(confirmed[m] >= 0, -2, proposed[m])
+        expected_lower += sum(1 for v, _ in itertools.groupby(low) if v >= 0)
+    assert int(upper.sum()) == expected_upper
+    assert len(seg["left"]) == expected_upper + expected_lower
+    # runs never cross recordings and cover their windows' time
+    assert (seg["right"] > seg["left"]).all()
+
+
+def test_fallback_map_matches_scikit_learn_pca():
+    # Reference: scikit-learn's PCA (Pedregosa et al., "Scikit-learn: Machine Learning in Python",
+    # 2011) on the same standardized matrix; axes agree up to sign.
+    from sklearn.decomposition import PCA
+
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(200, 6)) @ rng.normal(size=(6, 6)) + rng.normal(size=6)
+    Z = (X - X.mean(0)) / X.std(0)
+    ref = PCA(n_components=2).fit_transform(Z)
+    got = _pca2(X.astype(np.float32))
+    for j in range(2):
+        c = np.corrcoef(ref[:, j], got[:, j])[0, 1]
+        assert abs(c) == pytest.approx(1.0, abs=1e-4)
+
+
+def _free_port():
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_open_command_serves_and_warns_off_loopback(base_project, tmp_path):
+    path = tmp_path / "served.labeler"
+    shutil.copy(base_project, path)
+    port = _free_port()
+    proc = subprocess.Popen([sys.executable, "-m", "labeler.cli", "open", str(path), "--port",
+                             str(port), "--host", "0.0.0.0", "--no-browser", "--annotator", "ann"],
+                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        lines = []
+        deadline = time.time() + 60
+        while time.time() < deadline:
+            line = proc.stdout.readline()
+            if not line:
+                break
+            lines.append(line)
+            if "labeler app: http" in line:
+                break
+        out = "".join(lines)
+        assert "warning: serving on 0.0.0.0" in out, out
+        assert f":{port}/" in out
+        body = urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=30).read().decode()
+        assert "bokeh" in body.lower()
+    finally:
+        proc.terminate()
+        proc.wait(20)
+
+
+def test_open_command_refuses_a_missing_file(tmp_path):
+    res = subprocess.run([sys.executable, "-m", "labeler.cli", "open", str(tmp_path / "no.labeler"),
+                          "--no-browser"], capture_output=True, text=True, timeout=60)
+    assert res.returncode == 2
+    assert "no such project file" in res.stderr and len(res.stderr.strip().splitlines()) == 1
