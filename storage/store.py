@@ -284,11 +284,15 @@ class Store:
 
     # ------------------------------------------------------------------ transactions
     @contextlib.contextmanager
-    def atomic(self, retries: int = 8) -> Iterator[None]:
+    def atomic(self, timeout_s: float | None = None) -> Iterator[None]:
         """One write transaction (nested calls join the outer one).
 
         ``BEGIN IMMEDIATE`` takes the write lock up front, so a transaction never fails half-way on a
-        lock; waiting for the lock uses SQLite's busy timeout plus a few bounded retries with jitter.
+        lock. While another process holds the lock, ``BEGIN IMMEDIATE`` is retried after short
+        jittered sleeps (1 ms growing to 20 ms) for up to ``timeout_s`` (default 30 s), then a
+        StoreError says the file stayed busy. Short sleeps keep the wait close to the time the lock
+        is actually held (SQLite's own busy handler sleeps up to 100 ms per try and lets a busy
+        writer starve the others for seconds).
         """
         if self._depth:
             self._depth += 1
@@ -298,17 +302,25 @@ class Store:
                 self._depth -= 1
             return
         t0 = time.perf_counter()
-        for attempt in range(retries + 1):
-            try:
-                self.conn.execute("BEGIN IMMEDIATE")
-                break
-            except sqlite3.OperationalError as exc:
-                if "locked" not in str(exc) and "busy" not in str(exc) or attempt == retries:
-                    raise StoreError(
-                        f"{self.path}: the project file stayed busy ({exc}); another process holds "
-                        "it; try again") from exc
-                self.lock_stats["retries"] += 1
-                time.sleep(0.05 * (2 ** attempt) * (0.5 + random.random()))
+        deadline = t0 + (BUSY_TIMEOUT_S if timeout_s is None else timeout_s)
+        delay = 0.001
+        self.conn.execute("PRAGMA busy_timeout = 0")
+        try:
+            while True:
+                try:
+                    self.conn.execute("BEGIN IMMEDIATE")
+                    break
+                except sqlite3.OperationalError as exc:
+                    busy = "locked" in str(exc) or "busy" in str(exc)
+                    if not busy or time.perf_counter() >= deadline:
+                        raise StoreError(
+                            f"{self.path}: the project file stayed busy ({exc}); another process "
+                            "holds it; try again") from exc
+                    self.lock_stats["retries"] += 1
+                    time.sleep(delay * (0.5 + random.random()))
+                    delay = min(delay * 1.5, 0.02)
+        finally:
+            self.conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
         wait = time.perf_counter() - t0
         stats = self.lock_stats
         stats["transactions"] += 1
@@ -319,10 +331,16 @@ class Store:
             yield
         except BaseException:
             self._depth = 0
-            self.conn.execute("ROLLBACK")
+            if self.conn.in_transaction:  # SQLite may have rolled back already (e.g. disk full)
+                self.conn.execute("ROLLBACK")
             raise
         self._depth = 0
-        self.conn.execute("COMMIT")
+        try:
+            self.conn.execute("COMMIT")
+        except BaseException:
+            if self.conn.in_transaction:  # a failed COMMIT leaves the transaction open: undo it
+                self.conn.execute("ROLLBACK")
+            raise
 
     # ------------------------------------------------------------------ meta
     def meta(self) -> dict[str, str]:

@@ -3,7 +3,9 @@
 Every line printed is one JSON object, written with a single flushed write, so a process killed at any
 moment leaves only whole lines behind (a cut last line is ignored by the reader of the output).
 
-    python writer.py confirm PROJECT SEED N [ANNOTATOR]   N batches (0: until killed), one "ack" each
+    python writer.py confirm PROJECT SEED N [ANNOTATOR [pure]]
+                                                           N batches (0: until killed), one "ack" each;
+                                                           "pure": confirmations only
     python writer.py zygote PROJECT                        import once, then fork a confirming child
                                                            per "fork SEED" line on stdin
     python writer.py reader PROJECT STOPFILE               read transactions until STOPFILE exists
@@ -132,6 +134,7 @@ def reader(project: str, stopfile: str, hold_s: float = 0.0) -> None:
             bad.append(f"{snap['orphan_events']} events without their batch")
         if not snap["annotations_ok"] or not snap["current_ok"]:
             bad.append("label tables differ from the replay of the events")
+        time.sleep(0.005)  # leave the CPU to the writers between reads
     emit({"reads": reads, "violations": bad[:5], "n_violations": len(bad), "max_batches": most,
           "errors": errors[:5]})
 
@@ -171,7 +174,8 @@ def main(argv: list[str]) -> None:
     try:
         if mode == "confirm":
             annotator = argv[4] if len(argv) > 4 else "writer"
-            confirm_loop(project, int(argv[2]), int(argv[3]), annotator)
+            mixed = not (len(argv) > 5 and argv[5] == "pure")
+            confirm_loop(project, int(argv[2]), int(argv[3]), annotator, mixed=mixed)
         elif mode == "zygote":
             zygote(project)
         elif mode == "reader":
