@@ -78,15 +78,17 @@ def window_table(windows: pd.DataFrame, labels: pd.DataFrame, proposals: pd.Data
     """
     w = windows[["id", "recording", "seq", "start_s", "stop_s"]].rename(
         columns={"id": "window_id", "seq": "window", "stop_s": "end_s"})
+    w["window_id"] = w["window_id"].astype("int64")
     conf = labels[["window_id", "class", "annotator", "at", "source"]].rename(
-        columns={"class": "label", "at": "confirmed_at"})
+        columns={"class": "label", "at": "confirmed_at"}).astype({"window_id": "int64"})
     t = w.merge(conf, on="window_id", how="left")
     t["status"] = np.where(t["label"].notna(), "confirmed", None)
     t["confidence"] = np.where(t["label"].notna(), 1.0, np.nan)
     t["margin"] = np.nan
     if proposals is not None and len(proposals):
         prop = proposals[["window_id", "label", "confidence", "margin"]].rename(
-            columns={"label": "p_label", "confidence": "p_conf", "margin": "p_margin"})
+            columns={"label": "p_label", "confidence": "p_conf", "margin": "p_margin"}).astype(
+            {"window_id": "int64"})
         t = t.merge(prop, on="window_id", how="left")
         use = t["label"].isna() & t["p_label"].notna()
         t.loc[use, "label"] = t.loc[use, "p_label"]

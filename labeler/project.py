@@ -633,10 +633,8 @@ class Project:
         folder = Path(folder)
         if folder.exists() and not folder.is_dir():
             raise InputError(f"{folder}: is a file; give a folder for the export")
-        if not folder.exists():
-            if not folder.parent.is_dir():
-                raise InputError(f"{folder}: folder {folder.parent} does not exist; create it first")
-            folder.mkdir()
+        if not folder.exists() and not folder.parent.is_dir():
+            raise InputError(f"{folder}: folder {folder.parent} does not exist; create it first")
         targets = {"windows": folder / f"windows.{fmt}", "segments": folder / f"segments.{fmt}",
                    "manifest": folder / "manifest.json"}
         if not overwrite:
@@ -652,11 +650,19 @@ class Project:
                        for _, r in recs.iterrows()}
         table = ex.window_table(snap["windows"], snap["labels"], snap["proposals"], start_times,
                                 retired)
+        n_labeled = len(table)
         table = ex.select(table, confirmed_only=confirmed_only, min_confidence=min_confidence,
                           classes=classes)
+        if n_labeled == 0:
+            raise InputError(f"{self.path}: nothing to export: no window is confirmed or proposed "
+                             "yet; confirm some windows first")
+        if len(table) == 0:
+            raise InputError(f"{self.path}: nothing to export: no labeled window passes the "
+                             "selection (confirmed only, minimum confidence, classes); loosen it")
         geometry = {r["name"]: (r["window_length"] / r["rate"], r["window_step"] / r["rate"])
                     for _, r in recs.iterrows()}
         segs = ex.segments(table, geometry)
+        folder.mkdir(exist_ok=True)
         files = {}
         for kind, frame in (("windows", table), ("segments", segs)):
             digest = ex.write_table(frame, targets[kind], fmt)

@@ -272,3 +272,16 @@ def test_cli_export_and_class_management(tmp_path, files):
             "--format", "parquet")
     assert r.exit_code == 0
     assert pd.read_parquet(tmp_path / "o3" / "windows.parquet")["label"].tolist() == ["stand"] * 2
+
+
+def test_nothing_to_export(tmp_path, files):
+    with Project.create(tmp_path / "e.labeler", annotator="ana") as p:
+        p.add_recordings(files[:1])
+        with pytest.raises(InputError, match="nothing to export: no window is confirmed or "
+                                              "proposed yet; confirm some windows first"):
+            p.export(tmp_path / "out")
+        assert not (tmp_path / "out").exists()
+        p.confirm([1], "walking", create_class=True)
+        p.add_class("sitting")
+        with pytest.raises(InputError, match="no labeled window passes the selection"):
+            p.export(tmp_path / "out", classes=["sitting"])
