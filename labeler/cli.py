@@ -445,9 +445,15 @@ def _utc_option(value: str | None, option: str) -> str | None:
 @click.option("--until", default=None, metavar="TIME", help="Only events at or before TIME (UTC).")
 @click.option("--batch", "batch_id", default=None, metavar="ID", help="Only events of this batch.")
 @click.option("--last", type=int, default=None, metavar="N", help="Only the last N events.")
-def history_cmd(project, who, class_name, source, since, until, batch_id, last):
+@click.option("--class-log", is_flag=True,
+              help="Show the class changes (add, rename, colour, merge, retire) instead.")
+def history_cmd(project, who, class_name, source, since, until, batch_id, last, class_log):
     """Every label event: when, who, what, through which source, in which batch (undo by batch)."""
     from labeler.project import SOURCES
+
+    if class_log:
+        _print_class_log(project, who)
+        return
 
     if source is not None and source not in SOURCES:
         raise UserError(f"--source {source!r}: unknown; use one of {', '.join(SOURCES)}")
@@ -473,6 +479,29 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last):
             rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator,
                          by.get(ev.batch_id, "?"), ev.action, win, label, ev.source,
                          ev.batch_id[:8]))
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    for r in rows:
+        click.echo("  ".join(v.ljust(n) for v, n in zip(r, widths)).rstrip())
+
+
+def _print_class_log(project, who) -> None:
+    import json
+
+    with _open(project, readonly=True) as p:
+        names = dict(zip(p.classes()["id"], p.classes()["name"]))
+        log = [r for r in p.store.class_log() if who is None or r["annotator"] == who]
+    if not log:
+        click.echo("no class changes match")
+        return
+    rows = [("at (UTC)", "by", "action", "class (now)", "detail")]
+    for r in log:
+        detail = json.loads(r["detail"] or "{}")
+        if "merged_into" in detail:
+            into = detail["merged_into"]
+            detail = {"into": names.get(into, into)} if into is not None else {}
+        text = ", ".join(f"{k} {v}" for k, v in detail.items())
+        rows.append((r["at"][:19].replace("T", " "), r["annotator"], r["action"],
+                     str(names.get(r["class_id"], r["class_id"])), text))
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for r in rows:
         click.echo("  ".join(v.ljust(n) for v, n in zip(r, widths)).rstrip())

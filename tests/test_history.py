@@ -161,3 +161,22 @@ def test_undo_by_batch_shows_in_history(cli_project):
     assert lab == {1: "sit", 3: "sit"}
     r = run("undo", cli_project, "--batch", first[:8], who="cy")
     assert r.exit_code == 2 and first_line(r).startswith(f"Error: batch {first} was undone already")
+
+
+def test_class_log_through_the_cli(cli_project):
+    assert run("class", "rename", cli_project, "walk", "walking", who="ana").exit_code == 0
+    assert run("class", "add", cli_project, "amble", who="bo").exit_code == 0
+    assert run("class", "merge", cli_project, "amble", "walking", who="bo").exit_code == 0
+    assert run("class", "retire", cli_project, "sit", who="cy").exit_code == 0
+    r = run("history", cli_project, "--class-log")
+    rows = [ln.split(None, 2)[2] for ln in r.output.splitlines()[1:]]  # drop date and time
+    assert [" ".join(x.split()) for x in rows] == [
+        "ana add walking name walk, colour #E69F00",
+        "bo add sit name sit, colour #56B4E9",
+        "ana rename walking from walk, to walking",
+        "bo add amble name amble, colour #009E73",
+        "bo merge amble into walking",
+        "cy retire sit",
+    ]
+    r = run("history", cli_project, "--class-log", "--annotator", "cy")
+    assert len(r.output.splitlines()) == 2
