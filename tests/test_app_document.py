@@ -23,16 +23,14 @@ from labeler.project import Project
 XSS = "<img src=x onerror=alert(1)>"
 
 
-@pytest.fixture(scope="module")
-def base_project(tmp_path_factory):
-    """Two simulated recordings of 2.5 min each; the start of one bout per activity confirmed."""
+def make_project(folder, seconds=150.0):
+    """Two simulated recordings; the first 15 s of one bout per activity confirmed (by "setup")."""
     from labeler.synthetic import simulate_recording
 
-    folder = tmp_path_factory.mktemp("app")
     paths = []
     truths = {}
     for person in (1, 2):
-        rec = simulate_recording(150.0, seed=7, person=person)
+        rec = simulate_recording(seconds, seed=7, person=person)
         path = folder / f"{rec.name}.csv"
         rec.frame.to_csv(path, index=False, float_format="%.5g")
         paths.append(path)
@@ -41,7 +39,7 @@ def base_project(tmp_path_factory):
     with Project.create(project, annotator="setup") as p:
         p.add_recordings(paths)
         done = set()
-        for name in sorted(truths):                  # the first 15 s of one bout per activity
+        for name in sorted(truths):
             for row in truths[name].itertuples(index=False):
                 if row.activity in done or row.activity == "transition" \
                         or row.end_s - row.start_s < 8:
@@ -51,6 +49,11 @@ def base_project(tmp_path_factory):
                 done.add(row.activity)
         assert len(done) >= 2
     return project
+
+
+@pytest.fixture(scope="module")
+def base_project(tmp_path_factory):
+    return make_project(tmp_path_factory.mktemp("app"))
 
 
 @pytest.fixture
@@ -251,7 +254,10 @@ def test_open_command_serves_and_warns_off_loopback(base_project, tmp_path):
 
 
 def test_open_command_refuses_a_missing_file(tmp_path):
-    res = subprocess.run([sys.executable, "-m", "labeler.cli", "open", str(tmp_path / "no.labeler"),
-                          "--no-browser"], capture_output=True, text=True, timeout=60)
-    assert res.returncode == 2
-    assert "no such project file" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+    from click.testing import CliRunner
+
+    from labeler.cli import cli
+
+    res = CliRunner().invoke(cli, ["open", str(tmp_path / "no.labeler"), "--no-browser"])
+    assert res.exit_code == 2
+    assert "no such project file" in res.output and len(res.output.strip().splitlines()) == 1

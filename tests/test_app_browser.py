@@ -1,0 +1,171 @@
+"""The app in real headless Chromium: page ready with every point, keyboard confirm and undo written
+to the project file, class names shown as text. Screenshots go to artifacts/ (git-ignored)."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+import pytest
+
+from labeler.project import Project
+
+pytestmark = pytest.mark.browser
+
+CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
+CHROMEDRIVER = shutil.which("chromedriver") or "/usr/bin/chromedriver"
+ARTIFACTS = Path(__file__).resolve().parent.parent / "artifacts"
+XSS = "<img src=x onerror=alert(1)>"
+
+# every string reaching the page that is not ours walks through shadow roots too
+_ALL_TEXT_JS = """
+const out = []; const imgs = [];
+const walk = (node) => {
+  if (node.nodeType === 3) out.push(node.textContent);
+  if (node.nodeType === 1 && node.tagName === "IMG") imgs.push(node.getAttribute("src"));
+  if (node.shadowRoot) walk(node.shadowRoot);
+  for (const c of node.childNodes) walk(c);
+};
+walk(document.body);
+return [out.join(" "), imgs];
+"""
+
+
+def _have_browser() -> bool:
+    return os.path.exists(CHROMIUM) and os.path.exists(CHROMEDRIVER)
+
+
+@pytest.fixture(scope="module")
+def driver():
+    if not _have_browser():
+        if os.environ.get("CI"):
+            pytest.fail(f"CI is set but Chromium ({CHROMIUM}) or chromedriver ({CHROMEDRIVER}) is "
+                        "missing; install Debian's chromium and chromium-driver")
+        pytest.skip("headless Chromium not installed (Debian packages chromium, chromium-driver)")
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    profile = tempfile.mkdtemp(prefix="labeler-chromium-")
+    opts = webdriver.ChromeOptions()
+    opts.binary_location = CHROMIUM
+    for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                "--no-first-run", "--disable-background-networking",
+                "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
+                "--window-size=1120,1400"):
+        opts.add_argument(arg)
+    d = webdriver.Chrome(service=Service(CHROMEDRIVER), options=opts)
+    d.set_page_load_timeout(60)
+    yield d
+    d.quit()
+    shutil.rmtree(profile, ignore_errors=True)
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    from test_app_document import make_project
+
+    from labeler.app.server import AppServer
+
+    path = make_project(tmp_path_factory.mktemp("browser"))
+    srv = AppServer(path, annotator="browser").start_in_thread()
+    yield srv, path
+    srv.stop()
+
+
+def _wait(fn, timeout=30.0, what="condition"):
+    end = time.time() + timeout
+    last = None
+    while time.time() < end:
+        try:
+            last = fn()
+            if last is not None and last is not False:
+                return last
+        except Exception as exc:  # page still loading
+            last = exc
+        time.sleep(0.1)
+    raise AssertionError(f"timed out waiting for {what} (last: {last!r})")
+
+
+def _open(driver, url):
+    driver.get(url)
+    driver.execute_script("window.__alerts = []; window.alert = (m) => window.__alerts.push(m);")
+    return _wait(lambda: driver.execute_script(
+        "const d = Bokeh.documents[0]; if (d == null || !d.is_idle) return null;"
+        "const s = d.get_model_by_name('map_source'); return s == null ? null : s.get_length();"),
+        60, "the map")
+
+
+def _div_text(driver, name):
+    return driver.execute_script(
+        f"return Bokeh.documents[0].get_model_by_name('{name}').text;")
+
+
+def _key(driver, key):
+    from selenium.webdriver.common.action_chains import ActionChains
+
+    ActionChains(driver).send_keys(key).perform()
+
+
+def test_page_shows_every_window_and_a_key_confirms_and_undoes(driver, served):
+    srv, path = served
+    with Project.open(path, readonly=True) as p:
+        n = p.n_windows
+        events_before = len(p.history())
+    got = _open(driver, srv.url)
+    assert got == n
+    counts0 = _div_text(driver, "counts")
+    # pick a window that is not confirmed yet, as a click on the map would
+    with Project.open(path, readonly=True) as p:
+        confirmed = set(p.labels()["window_id"])
+        ids = p.windows()["id"].tolist()
+    row = next(i for i, w in enumerate(ids) if w not in confirmed)
+    driver.execute_script(
+        f"Bokeh.documents[0].get_model_by_name('map_source').selected.indices = [{row}];")
+    _wait(lambda: "1 window" in _div_text(driver, "selection") or None, 20,
+          "the pick to reach the app")
+    driver.find_element("tag name", "body").click()
+    _key(driver, "1")
+    _wait(lambda: _div_text(driver, "counts") != counts0 or None, 20, "the counts to change")
+
+    def events():
+        with Project.open(path, readonly=True) as p:
+            return p.history()
+
+    ev = _wait(lambda: (lambda e: e if len(e) == events_before + 1 else None)(events()), 20,
+               "the confirm event")
+    assert ev.iloc[-1]["window_id"] == ids[row] and ev.iloc[-1]["annotator"] == "browser"
+    assert ev.iloc[-1]["source"] == "map"
+    lab = driver.execute_script(
+        f"return Bokeh.documents[0].get_model_by_name('map_source').data.cf[{row}];")
+    assert lab >= 0
+    ARTIFACTS.mkdir(exist_ok=True)
+    driver.save_screenshot(str(ARTIFACTS / "app_confirmed.png"))
+    _key(driver, "u")
+    ev = _wait(lambda: (lambda e: e if e.iloc[-1]["source"] == "undo" else None)(events()), 20,
+               "the undo event")
+    _wait(lambda: _div_text(driver, "counts") == counts0 or None, 20, "the counts to return")
+    assert driver.execute_script("return window.__alerts.length") == 0
+
+
+def test_hostile_class_name_renders_as_text(driver, served):
+    from selenium.webdriver.common.by import By
+
+    srv, _path = served
+    _open(driver, srv.url)
+    driver.execute_script(
+        "Bokeh.documents[0].get_model_by_name('new_class').value = arguments[0];", XSS)
+    # click the add button inside its shadow root
+    host = _wait(lambda: driver.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name('add_class');"
+        "return Bokeh.index.get_one(m).el;"), 20, "the add button")
+    host.shadow_root.find_element(By.CSS_SELECTOR, "button").click()
+    text, imgs = _wait(lambda: (lambda r: r if XSS in r[0] else None)(
+        driver.execute_script(_ALL_TEXT_JS)), 20, "the new class on the page")
+    assert "x" not in imgs                       # no <img src=x> element was made
+    time.sleep(0.5)
+    assert driver.execute_script("return window.__alerts.length") == 0
+    ARTIFACTS.mkdir(exist_ok=True)
+    driver.save_screenshot(str(ARTIFACTS / "app_class_name_as_text.png"))
