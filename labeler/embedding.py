@@ -1,0 +1,807 @@
+"""The map: every window as a point in 2-D, similar windows close together.
+
+Pure numerics (numpy, scipy, scikit-learn, openTSNE); no storage, no display.
+
+Pipeline
+--------
+1. **Standardize** each feature column to mean 0, standard deviation 1 (constant columns stay 0).
+2. **PCA** to ``min(50, n_features, n_windows - 1)`` axes (at least 2), computed from the covariance
+   matrix in float64 (exact, one pass over the windows, memory of n_features²). Signs are fixed so
+   that the largest loading of each axis is positive, as scikit-learn does.
+3. **2-D**:
+
+   - ``method="pca"``: the first two principal axes. Instant; what the app shows first.
+   - ``method="tsne"``: t-SNE (van der Maaten & Hinton, "Visualizing data using t-SNE", 2008) with
+     FFT-accelerated interpolation of the repulsive forces (Linderman et al., "Fast
+     interpolation-based t-SNE for improved visualization of single-cell RNA-seq data", 2019),
+     through openTSNE's split into affinities, initialization and optimization.
+
+t-SNE parameters chosen from the number of windows N
+-----------------------------------------------------
+- Learning rate ``max(N / 12, 200)`` with early exaggeration 12: Belkina et al., "Automated
+  optimized parameters for t-distributed stochastic neighbor embedding improve visualization and
+  analysis of large datasets", 2019 (learning rate = N / early exaggeration), also recommended by
+  Kobak & Berens, "The art of using t-SNE for single-cell transcriptomics", 2019. The floor of 200
+  is the classic default for small N (van der Maaten's implementation).
+- Perplexity 30 (Kobak & Berens 2019 keep 30 as the default at every N), lowered to ``(N - 1) / 3``
+  for tiny N so that each window has the 3 × perplexity neighbours the affinities need.
+- PCA initialization, first axis scaled to standard deviation 1e-4 (Kobak & Berens 2019), via
+  ``openTSNE.initialization.rescale``, plus openTSNE's tiny jitter.
+- 250 iterations of early exaggeration (momentum 0.5), then ``n_iter`` (default 500) plain
+  iterations (momentum 0.8): openTSNE's defaults.
+
+Neighbours
+----------
+t-SNE's affinities need the 3 × perplexity nearest neighbours of each window. Up to
+:data:`EXACT_NEIGHBORS_UP_TO` windows they are exact (brute force with BLAS). Above, the windows are
+first grouped into about sqrt(N) k-means cells, and each window's neighbours are sought among the
+windows of the :data:`N_PROBE` cells nearest to its own cell (an inverted-file search, as in
+Jégou, Douze & Schmid, "Product quantization for nearest neighbor search", 2011); distances to the
+candidates are exact. Windows are also reordered by cell during the optimization, so that
+neighbours sit close in memory (the attractive-force pass is then about twice as fast); the result
+is returned in the caller's order.
+
+Placing new windows into an existing map
+----------------------------------------
+A fitted map keeps a :class:`MapState` made of plain arrays only (no pickled objects): the
+standardization mean and scale, the PCA components, the reduced features of the *reference*
+windows (the ones the map was fitted on) and their 2-D coordinates, plus a JSON-able dict of
+parameters. :meth:`MapState.to_bytes` writes them as an ``.npz`` archive (read back with
+``allow_pickle=False``), so a project file can keep it as a blob.
+
+:func:`place` rebuilds the placement from those arrays: the new windows are standardized and
+projected with the stored mean, scale and components; their nearest reference windows are found
+in the stored reduced features; openTSNE's affinities of new to reference points (perplexity 5,
+normalized per new point) are rebuilt from them; each new window starts at the median position of
+its 25 nearest reference windows and is then optimized against the fixed reference map only
+(``TSNEEmbedding.prepare_partial`` + ``optimize`` with openTSNE's ``transform`` settings: learning
+rate 0.1, exaggeration 1.5, momentum 0.8, gradient clipped to 0.25, 250 iterations). New windows do
+not move the reference windows or each other. For a PCA map placement is the projection itself.
+
+Large N
+-------
+Above :data:`FIT_AT_MOST` windows t-SNE is fitted on a stratified subsample of that many windows
+(strata from the caller, e.g. the recording id; otherwise k-means cells of the reduced features),
+and the other windows are placed into that map as above, in chunks. Every stratum keeps at least
+:data:`MIN_PER_STRATUM` windows (or all of its windows), so a short recording or a rare kind of
+movement is still part of the reference.
+
+Reproducibility: for a given ``random_state`` and ``n_jobs`` the coordinates are identical from run
+to run (k-means, jitter and the optimization are seeded; openTSNE's threaded sums run per point).
+
+The map is a picture for finding and selecting windows; distances between far-apart groups on a
+t-SNE map carry little meaning, and nothing here is a label.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import scipy.sparse as sp
+
+from labeler.errors import InputError
+
+#: Called with (fraction done in [0, 1], message).
+Progress = Callable[[float, str], None]
+
+METHODS = ("pca", "tsne")
+
+#: Upper bound on the number of PCA axes kept before t-SNE (common practice, no source: 50 is the
+#: usual number in the t-SNE literature, e.g. Kobak & Berens 2019).
+MAX_COMPONENTS = 50
+
+#: Windows fitted by t-SNE at most; above, a stratified subsample is fitted and the rest placed.
+#: Measured in benchmarks/bench_map.py: a fit of 100k windows takes about as long as placing 1M.
+FIT_AT_MOST = 200_000
+
+#: Windows kept per stratum at least when subsampling (or all of a smaller stratum).
+MIN_PER_STRATUM = 200
+
+#: Exact neighbour search up to this many reference windows; k-means cells above.
+EXACT_NEIGHBORS_UP_TO = 10_000
+
+#: Cells searched per query in the cell search (the query's own cell and the nearest others).
+N_PROBE = 10
+
+EARLY_EXAGGERATION = 12.0
+EARLY_EXAGGERATION_ITER = 250
+N_ITER = 500
+DEFAULT_PERPLEXITY = 30.0
+
+#: Placement settings: openTSNE's ``TSNEEmbedding.transform`` defaults (Poličar, Stražar & Zupan,
+#: "openTSNE: a modular Python library for t-SNE dimensionality reduction and embedding", 2019).
+PLACE_PERPLEXITY = 5.0
+PLACE_K = 25
+PLACE_LEARNING_RATE = 0.1
+PLACE_EXAGGERATION = 1.5
+PLACE_MOMENTUM = 0.8
+PLACE_MAX_GRAD_NORM = 0.25
+PLACE_N_ITER = 250
+#: New windows placed per optimization chunk (bounds memory; chunks are independent).
+PLACE_CHUNK = 50_000
+
+_CALLBACK_EVERY = 25
+_BLOCK = 4_000_000  # distance-matrix entries computed at once in the neighbour search
+
+
+class MapInputError(InputError, ValueError):
+    """Bad input to the map (also a ValueError, as scikit-learn conventions expect)."""
+
+
+# --------------------------------------------------------------------------------------------------
+# parameter rules
+
+
+def default_perplexity(n: int) -> float:
+    """Perplexity for N windows: 30 (Kobak & Berens 2019), at most (N - 1) / 3."""
+    return float(min(DEFAULT_PERPLEXITY, max(1.0, (n - 1) / 3.0)))
+
+
+def default_learning_rate(n: int) -> float:
+    """Learning rate max(N / 12, 200) (Belkina et al. 2019, with early exaggeration 12)."""
+    return float(max(n / EARLY_EXAGGERATION, 200.0))
+
+
+# --------------------------------------------------------------------------------------------------
+# checks and progress
+
+
+def _check_features(X, what: str = "features") -> np.ndarray:
+    X = np.asarray(X)
+    if X.ndim != 2:
+        raise MapInputError(f"{what} must be a 2-D array (windows x features), got shape {X.shape}")
+    if X.shape[1] < 1:
+        raise MapInputError(f"{what} have no column; compute features before making a map")
+    if not np.issubdtype(X.dtype, np.number) or np.issubdtype(X.dtype, np.complexfloating):
+        raise MapInputError(f"{what} must be real numbers, got dtype {X.dtype}")
+    X = np.ascontiguousarray(X, dtype=np.float32)
+    finite = np.isfinite(X)
+    if not finite.all():
+        r, c = np.argwhere(~finite)[0]
+        raise MapInputError(f"{what} have a non-finite value ({X[r, c]}) at window {r}, feature "
+                            f"column {c}; recompute features or drop that window")
+    return X
+
+
+class _Stage:
+    """Maps a sub-task's fraction [0, 1] onto [start, end] of the caller's progress."""
+
+    def __init__(self, progress: Progress | None, start: float = 0.0, end: float = 1.0):
+        self.progress, self.start, self.end = progress, start, end
+
+    def __call__(self, fraction: float, message: str) -> None:
+        if self.progress is not None:
+            f = self.start + (self.end - self.start) * min(max(fraction, 0.0), 1.0)
+            self.progress(float(f), message)
+
+    def sub(self, a: float, b: float) -> "_Stage":
+        w = self.end - self.start
+        return _Stage(self.progress, self.start + w * a, self.start + w * b)
+
+
+# --------------------------------------------------------------------------------------------------
+# standardize + PCA
+
+
+def fit_reduction(X: np.ndarray, n_components: int | None = None
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Standardization and PCA fitted on X (checked float32 array).
+
+    Returns (mean, scale, components, explained_variance): ``components`` is (k, n_features) and
+    applies to standardized rows; k = ``n_components`` or min(50, n_features, n - 1), at least 1.
+    """
+    n, d = X.shape
+    if n < 2:
+        raise MapInputError(f"need at least 2 windows to make a map, got {n}")
+    mean = np.zeros(d)
+    sq = np.zeros(d)
+    step = max(1, 8_000_000 // max(d, 1))
+    for a in range(0, n, step):
+        block = X[a:a + step].astype(np.float64)
+        mean += block.sum(axis=0)
+    mean /= n
+    for a in range(0, n, step):
+        block = X[a:a + step].astype(np.float64) - mean
+        sq += np.einsum("ij,ij->j", block, block)
+    scale = np.sqrt(sq / n)
+    scale[~(scale > 1e-12 * np.maximum(1.0, np.abs(mean)))] = 1.0  # constant columns stay 0
+    cov = np.zeros((d, d))
+    for a in range(0, n, step):
+        block = (X[a:a + step].astype(np.float64) - mean) / scale
+        cov += block.T @ block
+    cov /= n - 1
+    values, vectors = np.linalg.eigh(cov)
+    values, vectors = values[::-1], vectors[:, ::-1]
+    k = n_components if n_components is not None else min(MAX_COMPONENTS, d, n - 1)
+    k = int(max(1, min(k, d)))
+    comps = vectors[:, :k].T.copy()
+    # sign: the largest absolute loading of each axis is positive
+    big = np.argmax(np.abs(comps), axis=1)
+    signs = np.sign(comps[np.arange(k), big])
+    signs[signs == 0] = 1.0
+    comps *= signs[:, None]
+    return mean, scale, comps, np.maximum(values[:k], 0.0)
+
+
+def apply_reduction(X: np.ndarray, mean: np.ndarray, scale: np.ndarray, components: np.ndarray
+                    ) -> np.ndarray:
+    """Standardize rows of X and project them on ``components``: float32 (n, k)."""
+    n = X.shape[0]
+    k = components.shape[0]
+    out = np.empty((n, k), dtype=np.float32)
+    W = components.T / scale[:, None]  # (d, k): ((x - mean) / scale) @ C.T
+    offset = (mean / scale) @ components.T
+    step = max(1, 8_000_000 // max(X.shape[1], 1))
+    for a in range(0, n, step):
+        out[a:a + step] = X[a:a + step].astype(np.float64) @ W - offset
+    return out
+
+
+# --------------------------------------------------------------------------------------------------
+# neighbours
+
+
+def _kmeans(Z: np.ndarray, n_cells: int, random_state: int) -> np.ndarray:
+    from sklearn.cluster import KMeans
+
+    rng = np.random.RandomState(random_state)
+    m = min(Z.shape[0], 40 * n_cells)
+    sample = Z[np.sort(rng.choice(Z.shape[0], m, replace=False))] if m < Z.shape[0] else Z
+    km = KMeans(n_clusters=n_cells, n_init=1, max_iter=20, random_state=random_state,
+                algorithm="lloyd").fit(sample.astype(np.float32))
+    return km.cluster_centers_.astype(np.float32)
+
+
+def _nearest_centroid(Z: np.ndarray, centroids: np.ndarray) -> np.ndarray:
+    cc = np.einsum("ij,ij->i", centroids, centroids)
+    out = np.empty(Z.shape[0], dtype=np.int64)
+    step = max(1, _BLOCK // max(1, centroids.shape[0]))
+    for a in range(0, Z.shape[0], step):
+        d = cc[None, :] - 2.0 * (Z[a:a + step] @ centroids.T)
+        out[a:a + step] = np.argmin(d, axis=1)
+    return out
+
+
+class CellIndex:
+    """Nearest neighbours among reference rows: exact up to ``exact_up_to`` rows, k-means cells above.
+
+    ``build()`` returns each reference row's neighbours among the others, ``query(Q, k)`` those of
+    new rows; both give (indices int64 (m, k), distances float64 (m, k)), nearest first, ties by
+    index. Duck-types ``openTSNE.nearest_neighbors.KNNIndex``.
+    """
+
+    def __init__(self, data: np.ndarray, k: int, *, random_state: int = 0,
+                 exact_up_to: int = EXACT_NEIGHBORS_UP_TO, n_probe: int = N_PROBE,
+                 progress: Progress | None = None):
+        self.data = np.ascontiguousarray(data, dtype=np.float32)
+        self.n_samples = self.data.shape[0]
+        self.k = int(k)
+        self.random_state = random_state
+        n = self.n_samples
+        if n <= exact_up_to:
+            self.n_cells = 1
+            labels = np.zeros(n, dtype=np.int64)
+            self.centroids = self.data.mean(axis=0, keepdims=True)
+        else:
+            self.n_cells = int(min(4096, max(2, round(math.sqrt(n)))))
+            self.centroids = _kmeans(self.data, self.n_cells, random_state)
+            labels = _nearest_centroid(self.data, self.centroids)
+        self.labels = labels
+        self.order = np.argsort(labels, kind="stable")
+        self.sorted = self.data[self.order]
+        self.sorted_sq = np.einsum("ij,ij->i", self.sorted, self.sorted)
+        counts = np.bincount(labels, minlength=self.n_cells)
+        self.starts = np.concatenate([[0], np.cumsum(counts)])
+        self.n_probe = int(min(n_probe, self.n_cells))
+        self._progress = progress
+
+    def _probes(self, cell: int, need: int) -> np.ndarray:
+        """Cells to search for queries of ``cell``: nearest centroids until enough candidates."""
+        c = self.centroids
+        d = np.einsum("ij,ij->i", c - c[cell], c - c[cell])
+        order = np.lexsort((np.arange(self.n_cells), d))
+        counts = self.starts[1:] - self.starts[:-1]
+        total = np.cumsum(counts[order])
+        m = max(self.n_probe, int(np.searchsorted(total, need)) + 1)
+        return np.sort(order[:m])
+
+    def _search(self, Q: np.ndarray, q_labels: np.ndarray, k: int, self_ids: np.ndarray | None
+                ) -> tuple[np.ndarray, np.ndarray]:
+        m = Q.shape[0]
+        kk = k + (1 if self_ids is not None else 0)
+        ind = np.empty((m, k), dtype=np.int64)
+        dist = np.empty((m, k), dtype=np.float64)
+        q_order = np.argsort(q_labels, kind="stable")
+        q_counts = np.bincount(q_labels, minlength=self.n_cells)
+        q_starts = np.concatenate([[0], np.cumsum(q_counts)])
+        done = 0
+        for cell in range(self.n_cells):
+            rows = q_order[q_starts[cell]:q_starts[cell + 1]]
+            if rows.size == 0:
+                continue
+            probes = self._probes(cell, kk)
+            cand = np.concatenate([np.arange(self.starts[p], self.starts[p + 1]) for p in probes])
+            C = self.sorted[cand]
+            csq = self.sorted_sq[cand]
+            step = max(1, _BLOCK // max(1, cand.size))
+            for a in range(0, rows.size, step):
+                r = rows[a:a + step]
+                q = Q[r]
+                d2 = csq[None, :] - 2.0 * (q @ C.T)
+                top = np.argpartition(d2, kk - 1, axis=1)[:, :kk] if kk < cand.size else \
+                    np.broadcast_to(np.arange(cand.size), (r.size, cand.size))
+                ids = self.order[cand[top]]  # reference row ids
+                diff = self.data[ids].astype(np.float64) - q[:, None, :].astype(np.float64)
+                dd = np.sqrt(np.einsum("ijk,ijk->ij", diff, diff))
+                if self_ids is not None:
+                    own = ids == self_ids[r][:, None]
+                    missing = ~own.any(axis=1)
+                    # a row is its own neighbour at distance 0; where duplicates pushed it out,
+                    # drop the farthest candidate instead
+                    far = np.argmax(np.where(own, -np.inf, dd), axis=1)
+                    own[missing, far[missing]] = True
+                    ids = ids[~own].reshape(r.size, kk - 1)
+                    dd = dd[~own].reshape(r.size, kk - 1)
+                o = np.lexsort((ids, dd), axis=1)[:, :k]
+                ind[r] = np.take_along_axis(ids, o, 1)
+                dist[r] = np.take_along_axis(dd, o, 1)
+            done += rows.size
+            if self._progress is not None:
+                self._progress(done / m, "finding neighbours")
+        return ind, dist
+
+    def build(self) -> tuple[np.ndarray, np.ndarray]:
+        k = min(self.k, self.n_samples - 1)
+        return self._search(self.data, self.labels, k, np.arange(self.n_samples))
+
+    def query(self, query: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+        Q = np.ascontiguousarray(query, dtype=np.float32)
+        k = min(int(k), self.n_samples)
+        labels = np.zeros(Q.shape[0], dtype=np.int64) if self.n_cells == 1 else \
+            _nearest_centroid(Q, self.centroids)
+        return self._search(Q, labels, k, None)
+
+
+# --------------------------------------------------------------------------------------------------
+# subsampling
+
+
+def stratified_subsample(n: int, size: int, strata: np.ndarray, *, random_state: int = 0,
+                         min_per_stratum: int = MIN_PER_STRATUM) -> np.ndarray:
+    """Sorted indices of ``size`` of ``n`` rows, spread over ``strata`` in proportion to their size.
+
+    Every stratum keeps at least ``min(min_per_stratum, its size)`` rows; the remainder is shared in
+    proportion to stratum size (largest remainders first), drawn at random within each stratum.
+    """
+    strata = np.asarray(strata)
+    if strata.shape != (n,):
+        raise MapInputError(f"strata must have one value per window ({n}), got shape {strata.shape}")
+    if size >= n:
+        return np.arange(n)
+    _, codes = np.unique(strata, return_inverse=True)
+    counts = np.bincount(codes)
+    floor = np.minimum(counts, min_per_stratum)
+    if floor.sum() > size:  # too many strata for the floor: share equally as far as it goes
+        floor = np.minimum(counts, max(1, size // counts.size))
+    rest = size - floor.sum()
+    extra_cap = counts - floor
+    share = extra_cap / max(extra_cap.sum(), 1) * max(rest, 0)
+    take = floor + np.floor(share).astype(np.int64)
+    short = size - take.sum()
+    if short > 0:
+        frac = share - np.floor(share)
+        for s in np.lexsort((np.arange(counts.size), -frac)):
+            if short == 0:
+                break
+            if take[s] < counts[s]:
+                take[s] += 1
+                short -= 1
+    rng = np.random.RandomState(random_state)
+    order = np.argsort(codes, kind="stable")
+    starts = np.concatenate([[0], np.cumsum(counts)])
+    picked = []
+    for s in range(counts.size):
+        members = order[starts[s]:starts[s + 1]]
+        t = int(min(take[s], members.size))
+        if t:
+            picked.append(rng.choice(members, t, replace=False))
+    out = np.sort(np.concatenate(picked)) if picked else np.empty(0, dtype=np.int64)
+    return out[:size]
+
+
+# --------------------------------------------------------------------------------------------------
+# state and result
+
+
+@dataclass
+class MapState:
+    """Everything needed to place new windows into a fitted map, as plain arrays.
+
+    ``components`` apply to standardized features ((x - mean) / scale). For a t-SNE map
+    ``reference`` holds the reduced features (float32, n_ref x k) of the windows the map was fitted
+    on and ``reference_coords`` their 2-D coordinates; both are empty for a PCA map.
+    """
+
+    method: str
+    mean: np.ndarray
+    scale: np.ndarray
+    components: np.ndarray
+    reference: np.ndarray
+    reference_coords: np.ndarray
+    params: dict = field(default_factory=dict)
+
+    _ARRAYS = ("mean", "scale", "components", "reference", "reference_coords")
+
+    def to_arrays(self) -> dict[str, np.ndarray]:
+        out = {name: np.asarray(getattr(self, name)) for name in self._ARRAYS}
+        out["method"] = np.frombuffer(self.method.encode(), dtype=np.uint8)
+        out["params"] = np.frombuffer(json.dumps(self.params, sort_keys=True).encode(), dtype=np.uint8)
+        return out
+
+    @classmethod
+    def from_arrays(cls, arrays) -> "MapState":
+        try:
+            method = bytes(np.asarray(arrays["method"], dtype=np.uint8)).decode()
+            params = json.loads(bytes(np.asarray(arrays["params"], dtype=np.uint8)).decode())
+            vals = {name: np.asarray(arrays[name]) for name in cls._ARRAYS}
+        except (KeyError, ValueError, UnicodeDecodeError) as exc:
+            raise MapInputError(f"stored map state is incomplete or damaged ({exc}); "
+                                "compute the map again") from None
+        state = cls(method=method, params=params, **vals)
+        state.validate()
+        return state
+
+    def to_bytes(self) -> bytes:
+        buf = io.BytesIO()
+        np.savez(buf, **self.to_arrays())
+        return buf.getvalue()
+
+    @classmethod
+    def from_bytes(cls, data: bytes) -> "MapState":
+        try:
+            with np.load(io.BytesIO(data), allow_pickle=False) as z:
+                arrays = {name: z[name] for name in z.files}
+        except (OSError, ValueError, EOFError) as exc:
+            raise MapInputError(f"stored map state cannot be read ({exc}); compute the map again"
+                                ) from None
+        return cls.from_arrays(arrays)
+
+    @property
+    def n_features(self) -> int:
+        return int(self.mean.shape[0])
+
+    def validate(self) -> None:
+        d = self.mean.shape[0]
+        ok = (self.method in METHODS and self.mean.ndim == 1 and self.scale.shape == (d,)
+              and self.components.ndim == 2 and self.components.shape[1] == d
+              and self.reference.ndim == 2 and self.reference_coords.ndim == 2
+              and self.reference.shape[0] == self.reference_coords.shape[0])
+        if ok and self.method == "tsne":
+            ok = (self.reference.shape[1] == self.components.shape[0]
+                  and self.reference_coords.shape[1] == 2 and self.reference.shape[0] >= 2)
+        if not ok:
+            raise MapInputError("stored map state has inconsistent array shapes; compute the map again")
+
+
+@dataclass
+class MapResult:
+    """A map: ``coords`` float32 (n, 2) in the order of the input rows.
+
+    ``fitted`` marks the rows the map was fitted on (all of them unless the input was subsampled;
+    the others were placed into the map). ``params`` is JSON-able.
+    """
+
+    coords: np.ndarray
+    method: str
+    params: dict
+    state: MapState
+    fitted: np.ndarray
+
+
+# --------------------------------------------------------------------------------------------------
+# t-SNE pieces
+
+
+def _callback(stage: _Stage, message: str, n_iter: int):
+    def cb(iteration, error, embedding):
+        stage(iteration / max(n_iter, 1), f"{message} {iteration}/{n_iter}")
+        return False
+    return cb
+
+
+def _reference_embedding(state: MapState, n_jobs: int):
+    """openTSNE ``TSNEEmbedding`` of the reference windows, able to place new points.
+
+    The embedding is centred (openTSNE centres it in place when it prepares the interpolation grid);
+    the returned shift must be added back to placed coordinates.
+    """
+    from openTSNE import TSNEEmbedding
+    from openTSNE.affinity import Affinities, joint_probabilities_nn
+
+    ref = state.reference_coords.astype(np.float64)
+    shift = (ref.max(axis=0) + ref.min(axis=0)) / 2.0
+    index = CellIndex(state.reference, PLACE_K, random_state=int(state.params.get("random_state", 0)))
+    n_ref = ref.shape[0]
+
+    class _ToReference(Affinities):
+        """Affinities of new points to the fixed reference windows (openTSNE ``to_new`` contract)."""
+
+        def __init__(self):
+            super().__init__()
+            self.P = sp.csr_matrix((n_ref, n_ref))
+            self.knn_index = index
+
+        def to_new(self, data, perplexity=PLACE_PERPLEXITY, return_distances=False,
+                   k_neighbors=PLACE_K):
+            k = min(int(k_neighbors), n_ref)
+            nb, dist = index.query(data, k)
+            P = joint_probabilities_nn(nb, dist, [min(float(perplexity), k / 3.0)], symmetrize=False,
+                                       normalization="point-wise", n_reference_samples=n_ref,
+                                       n_jobs=n_jobs)
+            return (P, nb, dist) if return_distances else P
+
+    emb = TSNEEmbedding(ref - shift, _ToReference(), negative_gradient_method="fft",
+                        n_jobs=n_jobs, random_state=int(state.params.get("random_state", 0)))
+    return emb, shift
+
+
+def _place_reduced(state: MapState, Z: np.ndarray, stage: _Stage, n_jobs: int) -> np.ndarray:
+    n = Z.shape[0]
+    out = np.empty((n, 2), dtype=np.float32)
+    if n == 0:
+        return out
+    if state.method == "pca":
+        out[:] = Z[:, :2] if Z.shape[1] >= 2 else np.column_stack([Z[:, 0], np.zeros(n)])
+        return out
+    emb, shift = _reference_embedding(state, n_jobs)
+    n_chunks = -(-n // PLACE_CHUNK)
+    for i, a in enumerate(range(0, n, PLACE_CHUNK)):
+        part_stage = stage.sub(i / n_chunks, (i + 1) / n_chunks)
+        chunk = Z[a:a + PLACE_CHUNK]
+        part_stage(0.0, "placing windows: neighbours")
+        partial = emb.prepare_partial(chunk, initialization="median", k=PLACE_K,
+                                      perplexity=PLACE_PERPLEXITY, k_neighbors=PLACE_K)
+        partial.optimize(PLACE_N_ITER, learning_rate=PLACE_LEARNING_RATE,
+                         exaggeration=PLACE_EXAGGERATION, momentum=PLACE_MOMENTUM,
+                         max_grad_norm=PLACE_MAX_GRAD_NORM, inplace=True,
+                         callbacks=_callback(part_stage.sub(0.2, 1.0), "placing windows",
+                                             PLACE_N_ITER),
+                         callbacks_every_iters=_CALLBACK_EVERY)
+        out[a:a + PLACE_CHUNK] = np.asarray(partial) + shift
+    stage(1.0, "placed windows")
+    return out
+
+
+def _fit_tsne(Z: np.ndarray, *, perplexity: float, learning_rate: float, n_iter: int,
+              early_exaggeration_iter: int, random_state: int, n_jobs: int, stage: _Stage
+              ) -> tuple[np.ndarray, dict]:
+    from openTSNE import TSNEEmbedding, initialization
+    from openTSNE.affinity import PerplexityBasedNN
+    from openTSNE.nearest_neighbors import PrecomputedNeighbors
+
+    n = Z.shape[0]
+    k = min(n - 1, int(3 * perplexity))
+    stage(0.0, "finding neighbours")
+    index = CellIndex(Z, k, random_state=random_state, progress=stage.sub(0.0, 0.25))
+    nb, dist = index.build()
+    # work in cell order so that neighbours sit close in memory
+    order = index.order
+    inv = np.empty(n, dtype=np.int64)
+    inv[order] = np.arange(n)
+    nb = inv[nb[order]]
+    dist = dist[order]
+    Zo = Z[order]
+    stage(0.25, "computing affinities")
+    aff = PerplexityBasedNN(knn_index=PrecomputedNeighbors(nb, dist), perplexity=perplexity,
+                            n_jobs=n_jobs)
+    init = initialization.rescale(Zo[:, :2].astype(np.float64))
+    init = initialization.jitter(init, random_state=random_state)
+    emb = TSNEEmbedding(init, aff, negative_gradient_method="fft", n_jobs=n_jobs,
+                        random_state=random_state)
+    total = early_exaggeration_iter + n_iter
+    w_ee = early_exaggeration_iter / max(total, 1)
+    run = stage.sub(0.3, 1.0)
+    if early_exaggeration_iter:
+        emb = emb.optimize(early_exaggeration_iter, exaggeration=EARLY_EXAGGERATION, momentum=0.5,
+                           learning_rate=learning_rate, inplace=True,
+                           callbacks=_callback(run.sub(0.0, w_ee), "t-SNE (early exaggeration)",
+                                               early_exaggeration_iter),
+                           callbacks_every_iters=_CALLBACK_EVERY)
+    if n_iter:
+        emb = emb.optimize(n_iter, exaggeration=1.0, momentum=0.8, learning_rate=learning_rate,
+                           inplace=True,
+                           callbacks=_callback(run.sub(w_ee, 1.0), "t-SNE", n_iter),
+                           callbacks_every_iters=_CALLBACK_EVERY)
+    Y = np.empty((n, 2), dtype=np.float32)
+    Y[order] = np.asarray(emb, dtype=np.float32)
+    info = {"neighbors": "exact" if index.n_cells == 1 else "cells", "n_cells": index.n_cells,
+            "n_probe": index.n_probe if index.n_cells > 1 else 0, "k_neighbors": k,
+            "kl_divergence": None if emb.kl_divergence is None else float(emb.kl_divergence)}
+    return Y, info
+
+
+# --------------------------------------------------------------------------------------------------
+# estimator and functions
+
+
+class MapMaker:
+    """Makes a 2-D map of windows (scikit-learn conventions).
+
+    Parameters
+    ----------
+    method : "pca" or "tsne"
+    perplexity, learning_rate : float or "auto" (chosen from N, see the module docs)
+    n_iter : plain t-SNE iterations after early exaggeration
+    early_exaggeration_iter : iterations of early exaggeration (factor 12)
+    n_components : PCA axes before t-SNE, or None for min(50, n_features, N - 1)
+    fit_at_most : fit t-SNE on a stratified subsample above this many windows, place the rest
+    random_state : seed (int); n_jobs : threads for openTSNE (results depend on it)
+
+    Attributes after ``fit``: ``embedding_`` (float32 (n, 2)), ``state_`` (:class:`MapState`),
+    ``params_`` (dict), ``fitted_`` (bool mask of the rows the map was fitted on),
+    ``explained_variance_`` (PCA variances of the kept axes).
+    """
+
+    def __init__(self, method: str = "tsne", *, perplexity="auto", learning_rate="auto",
+                 n_iter: int = N_ITER, early_exaggeration_iter: int = EARLY_EXAGGERATION_ITER,
+                 n_components: int | None = None, fit_at_most: int = FIT_AT_MOST,
+                 random_state: int = 0, n_jobs: int = 1):
+        self.method = method
+        self.perplexity = perplexity
+        self.learning_rate = learning_rate
+        self.n_iter = n_iter
+        self.early_exaggeration_iter = early_exaggeration_iter
+        self.n_components = n_components
+        self.fit_at_most = fit_at_most
+        self.random_state = random_state
+        self.n_jobs = n_jobs
+
+    def _validate(self, n: int) -> None:
+        if self.method not in METHODS:
+            raise MapInputError(f"unknown map method {self.method!r}; use 'pca' or 'tsne'")
+        if not isinstance(self.random_state, (int, np.integer)) or isinstance(self.random_state, bool):
+            raise MapInputError(f"random_state must be an integer, got {self.random_state!r}")
+        if not isinstance(self.n_jobs, (int, np.integer)) or self.n_jobs < 1:
+            raise MapInputError(f"n_jobs must be an integer >= 1, got {self.n_jobs!r}")
+        for name in ("n_iter", "early_exaggeration_iter"):
+            v = getattr(self, name)
+            if not isinstance(v, (int, np.integer)) or v < 0:
+                raise MapInputError(f"{name} must be an integer >= 0, got {v!r}")
+        if not isinstance(self.fit_at_most, (int, np.integer)) or self.fit_at_most < 10:
+            raise MapInputError(f"fit_at_most must be an integer >= 10, got {self.fit_at_most!r}")
+        if self.n_components is not None and (not isinstance(self.n_components, (int, np.integer))
+                                              or self.n_components < 2):
+            raise MapInputError(f"n_components must be an integer >= 2 or None, got {self.n_components!r}")
+        for name in ("perplexity", "learning_rate"):
+            v = getattr(self, name)
+            if not (v == "auto" or (isinstance(v, (int, float, np.number)) and not isinstance(v, bool)
+                                    and math.isfinite(v) and v > 0)):
+                raise MapInputError(f"{name} must be 'auto' or a positive number, got {v!r}")
+        if self.method == "tsne" and n < 10:
+            raise MapInputError(f"a t-SNE map needs at least 10 windows, got {n}; use method 'pca'")
+
+    def fit(self, X, strata=None, progress: Progress | None = None) -> "MapMaker":
+        """Fit the map on features X (n_windows, n_features).
+
+        ``strata`` (one value per row, e.g. recording id) guides the subsample when N is above
+        ``fit_at_most``; ``progress(fraction, message)`` is called as the work advances.
+        """
+        t0 = time.perf_counter()
+        X = _check_features(X)
+        n = X.shape[0]
+        self._validate(n)
+        stage = _Stage(progress)
+        stage(0.0, "standardizing and reducing features")
+        mean, scale, comps, var = fit_reduction(X, self.n_components)
+        if comps.shape[0] < 2:  # a single feature: second axis of zeros
+            comps = np.vstack([comps, np.zeros_like(comps)])
+            var = np.append(var, 0.0)
+        Z = apply_reduction(X, mean, scale, comps)
+        self.explained_variance_ = var
+        params = {"method": self.method, "n_windows": int(n), "n_features": int(X.shape[1]),
+                  "n_components": int(comps.shape[0]), "random_state": int(self.random_state)}
+        fitted = np.ones(n, dtype=bool)
+        if self.method == "pca":
+            coords = np.ascontiguousarray(Z[:, :2], dtype=np.float32)
+            state = MapState("pca", mean, scale, comps[:2], np.empty((0, 2), np.float32),
+                             np.empty((0, 2), np.float32), params)
+            params["n_fitted"] = int(n)
+        else:
+            stage = stage.sub(0.03, 1.0)
+            fit_idx = np.arange(n)
+            if n > self.fit_at_most:
+                if strata is None:
+                    cells = CellIndex(Z, 1, random_state=self.random_state, exact_up_to=0)
+                    strata_used, how = cells.labels, "k-means cells"
+                else:
+                    strata_used, how = np.asarray(strata), "given strata"
+                fit_idx = stratified_subsample(n, int(self.fit_at_most), strata_used,
+                                               random_state=self.random_state)
+                fitted[:] = False
+                fitted[fit_idx] = True
+                params["subsample"] = how
+                fit_stage, place_stage = stage.sub(0.0, 0.6), stage.sub(0.6, 1.0)
+            else:
+                fit_stage, place_stage = stage, None
+            m = fit_idx.size
+            perplexity = default_perplexity(m) if self.perplexity == "auto" else \
+                float(min(self.perplexity, (m - 1) / 3.0))
+            lr = default_learning_rate(m) if self.learning_rate == "auto" else float(self.learning_rate)
+            Zf = Z[fit_idx]
+            Yf, info = _fit_tsne(Zf, perplexity=perplexity, learning_rate=lr,
+                                 n_iter=int(self.n_iter),
+                                 early_exaggeration_iter=int(self.early_exaggeration_iter),
+                                 random_state=int(self.random_state), n_jobs=int(self.n_jobs),
+                                 stage=fit_stage)
+            params.update({"n_fitted": int(m), "perplexity": perplexity, "learning_rate": lr,
+                           "early_exaggeration": EARLY_EXAGGERATION,
+                           "early_exaggeration_iter": int(self.early_exaggeration_iter),
+                           "n_iter": int(self.n_iter), "n_jobs": int(self.n_jobs), **info})
+            state = MapState("tsne", mean, scale, comps, np.ascontiguousarray(Zf, np.float32), Yf,
+                             params)
+            coords = np.empty((n, 2), dtype=np.float32)
+            coords[fit_idx] = Yf
+            if place_stage is not None:
+                rest = np.flatnonzero(~fitted)
+                coords[rest] = _place_reduced(state, Z[rest], place_stage, int(self.n_jobs))
+        params["seconds"] = round(time.perf_counter() - t0, 3)
+        state.params = dict(params)
+        self.state_, self.params_, self.fitted_, self.embedding_ = state, params, fitted, coords
+        _Stage(progress)(1.0, "map ready")
+        return self
+
+    def fit_transform(self, X, strata=None, progress: Progress | None = None) -> np.ndarray:
+        return self.fit(X, strata=strata, progress=progress).embedding_
+
+    def transform(self, X, progress: Progress | None = None) -> np.ndarray:
+        """Place new windows into the fitted map (the map itself does not move)."""
+        if not hasattr(self, "state_"):
+            raise MapInputError("this MapMaker is not fitted yet; call fit first")
+        return place(self.state_, X, progress=progress, n_jobs=int(self.n_jobs))
+
+
+def pca_map(X, *, progress: Progress | None = None) -> MapResult:
+    """PCA map: the first two principal axes of the standardized features."""
+    mm = MapMaker("pca").fit(X, progress=progress)
+    return MapResult(mm.embedding_, "pca", mm.params_, mm.state_, mm.fitted_)
+
+
+def tsne_map(X, *, random_state: int = 0, progress: Progress | None = None, n_jobs: int = 1,
+             strata=None, **kwargs) -> MapResult:
+    """t-SNE map (see :class:`MapMaker` for the keyword arguments)."""
+    mm = MapMaker("tsne", random_state=random_state, n_jobs=n_jobs, **kwargs)
+    mm.fit(X, strata=strata, progress=progress)
+    return MapResult(mm.embedding_, "tsne", mm.params_, mm.state_, mm.fitted_)
+
+
+def make_map(X, method: str = "pca", **kwargs) -> MapResult:
+    """``pca_map`` or ``tsne_map`` by name."""
+    if method == "pca":
+        return pca_map(X, progress=kwargs.get("progress"))
+    if method == "tsne":
+        return tsne_map(X, **kwargs)
+    raise MapInputError(f"unknown map method {method!r}; use 'pca' or 'tsne'")
+
+
+def place(state: MapState, X_new, *, progress: Progress | None = None, n_jobs: int = 1
+          ) -> np.ndarray:
+    """Coordinates float32 (n_new, 2) of new windows placed into the map ``state`` describes."""
+    state.validate()
+    X_new = np.asarray(X_new)
+    if X_new.ndim == 2 and X_new.shape[0] == 0:
+        return np.empty((0, 2), dtype=np.float32)
+    X_new = _check_features(X_new, "new windows' features")
+    if X_new.shape[1] != state.n_features:
+        raise MapInputError(f"new windows have {X_new.shape[1]} feature columns but the map was made "
+                            f"with {state.n_features}; compute the same features or remake the map")
+    Z = apply_reduction(X_new, state.mean, state.scale, state.components)
+    stage = _Stage(progress)
+    out = _place_reduced(state, Z, stage, int(n_jobs))
+    stage(1.0, "placed windows")
+    return out
