@@ -42,15 +42,16 @@ _CONFIRM_JS = """
 const done = arguments[arguments.length - 1]; const rows = arguments[0];
 const s = Bokeh.documents[0].get_model_by_name('map_source');
 const sel = Bokeh.documents[0].get_model_by_name('selection');
-const before = sel.text;
+const before = sel.text; const tsel = performance.now();
 s.selected.indices = rows;
 const go = () => {
-  if (sel.text === before) { setTimeout(go, 5); return; }
+  if (sel.text === before && performance.now() - tsel < 20000) { setTimeout(go, 5); return; }
   const t0 = performance.now();
   document.dispatchEvent(new KeyboardEvent('keydown', {key: '1', bubbles: true}));
   const tick = () => {
     const cf = s.data.cf;
     if (rows.every((r) => cf[r] >= 0)) requestAnimationFrame(() => done(performance.now() - t0));
+    else if (performance.now() - t0 > 30000) done(-1);
     else setTimeout(tick, 2);
   };
   tick();
@@ -65,7 +66,9 @@ const s = Bokeh.documents[0].get_model_by_name('map_source');
 const sel = Bokeh.documents[0].get_model_by_name('selection');
 const before = sel.text; const t0 = performance.now();
 s.selected.indices = [row];
-const tick = () => { if (sel.text !== before) done(performance.now() - t0); else setTimeout(tick, 2); };
+const tick = () => {
+  if (sel.text !== before) done(performance.now() - t0);
+  else if (performance.now() - t0 > 30000) done(-1); else setTimeout(tick, 2); };
 tick();
 """
 
@@ -125,6 +128,7 @@ def run(n: int, folder: Path) -> None:
     from labeler.app.prepare import prepare
     from labeler.app.server import AppServer
 
+    print(f"{n} windows: building the project", flush=True)
     t0 = time.perf_counter()
     path = make_project(folder, n)
     t_make = time.perf_counter() - t0
@@ -138,6 +142,7 @@ def run(n: int, folder: Path) -> None:
         start = time.time() * 1000.0
         d.get(srv.url)
         ready_ms = d.execute_async_script(_READY_JS, n, start)
+        print(f"  page ready {ready_ms / 1000:.2f} s", flush=True)
         rng = np.random.default_rng(1)
         confirm = []
         for k in range(3):
