@@ -387,6 +387,8 @@ def _accuracy_line(manifest: dict) -> str:
     if isinstance(lo, (int, float)) and isinstance(hi, (int, float)):
         text += f" ({lo:.3f}-{hi:.3f})"
     rests = est.get("method") or est.get("basis")
+    if rests and isinstance(est.get("n"), int):
+        rests = f"{rests} of {est['n']} window(s)"
     return text + (f", {rests}" if rests else "")
 
 

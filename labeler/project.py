@@ -695,6 +695,7 @@ class Project:
                        "classes": classes},
             proposals=snap["proposal_params"], accuracy=snap["accuracy"],
             accuracy_absent=snap["accuracy_absent"], table=table, files=files)
+        manifest = ex.json_ready(manifest)
         ex.write_json(manifest, targets["manifest"])
         return {"files": {k: str(v) for k, v in targets.items()}, "windows": int(len(table)),
                 "segments": int(len(segs)), "manifest": manifest}
@@ -717,8 +718,33 @@ class Project:
 
     def _export_proposals(self) -> dict:
         """The latest proposals and the accuracy estimate, as the export writes them."""
-        return {"proposals": None, "proposal_params": None, "accuracy": None,
-                "accuracy_absent": "no proposals in this project yet"}
+        absent = {"proposals": None, "proposal_params": None, "accuracy": None,
+                  "accuracy_absent": "no proposals in this project yet"}
+        getter = getattr(self, "proposals", None)
+        if not callable(getter):
+            return absent
+        df = getter()
+        if df is None or len(df) == 0:
+            return absent
+        df = pd.DataFrame(df)
+        label = next(c for c in ("label", "proposed", "class") if c in df.columns)
+        prop = pd.DataFrame({"window_id": df["window_id"].astype("int64"), "label": df[label],
+                             "confidence": df["confidence"].astype(float),
+                             "margin": (df["margin"].astype(float) if "margin" in df.columns
+                                        else np.nan)})
+        prop = prop[prop["label"].notna()]
+        run = self.store.latest_run("proposals")
+        params = None if run is None else {"run_id": run["id"], "created_at": run["created_at"],
+                                            "created_by": run["created_by"], **run["params"]}
+        out = {"proposals": prop, "proposal_params": params, "accuracy": None,
+               "accuracy_absent": "this project gives no accuracy estimate"}
+        est_fn = getattr(self, "accuracy_estimate", None)
+        if callable(est_fn):
+            est = est_fn()
+            if est is not None:
+                est = est.as_dict() if hasattr(est, "as_dict") else dict(est)
+                out["accuracy"] = est
+        return out
 
     # ------------------------------------------------------------------ several annotators
     def annotations(self) -> pd.DataFrame:

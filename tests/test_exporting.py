@@ -285,3 +285,42 @@ def test_nothing_to_export(tmp_path, files):
         p.add_class("sitting")
         with pytest.raises(InputError, match="no labeled window passes the selection"):
             p.export(tmp_path / "out", classes=["sitting"])
+
+
+class WithProposals(Project):
+    """A project whose proposals and accuracy estimate are fixed, to check how export uses them."""
+
+    def proposals(self):
+        w = self.windows()
+        return pd.DataFrame({"window_id": w["id"], "label": ["walking"] * len(w),
+                             "confidence": np.linspace(0.3, 0.9, len(w)),
+                             "margin": np.linspace(0.0, 0.6, len(w))})
+
+    def accuracy_estimate(self):
+        return {"value": 0.8, "low": 0.7, "high": 0.9, "basis": "audit", "n": 40,
+                "ece": float("nan")}
+
+
+def test_export_with_proposals(tmp_path, files):
+    with Project.create(tmp_path / "p.labeler", annotator="ana") as p:
+        p.add_recordings(files[:1])
+        p.confirm([1, 2], "sitting", create_class=True)
+        p.add_class("walking")
+    p = WithProposals.open(tmp_path / "p.labeler", annotator="ana")
+    out = p.export(tmp_path / "out")
+    t = pd.read_csv(out["files"]["windows"])
+    assert len(t) == p.n_windows
+    assert t["status"].tolist()[:3] == ["confirmed", "confirmed", "proposed"]
+    assert t["label"].tolist()[:3] == ["sitting", "sitting", "walking"]
+    conf = np.linspace(0.3, 0.9, p.n_windows)
+    assert t["confidence"].iloc[2:].tolist() == pytest.approx(conf[2:].tolist())
+    m = read_manifest(out)
+    assert m["accuracy_estimate"] == {"value": 0.8, "low": 0.7, "high": 0.9, "basis": "audit",
+                                      "n": 40, "ece": None}
+    assert m["accuracy_estimate_absent"] is None
+    assert m["counts"]["by_status"] == {"confirmed": 2, "proposed": p.n_windows - 2}
+    keep = p.export(tmp_path / "o2", min_confidence=0.6)
+    t2 = pd.read_csv(keep["files"]["windows"])
+    assert (t2.loc[t2["status"] == "proposed", "confidence"] >= 0.6).all()
+    assert (t2["status"] == "confirmed").sum() == 2
+    p.close()
