@@ -327,6 +327,12 @@ class LabelerApp:
         self.signal_x.start, self.signal_x.end = a - CONTEXT_S, b + CONTEXT_S
         for span in self.signal_spans:
             span.left, span.right = a, b
+        self._retitle_signal(r)
+
+    def _retitle_signal(self, r: int) -> None:
+        s = self.state
+        k = int(s.rec_code[r])
+        a, b = float(s.start[r]), float(s.stop[r])
         lab = self._window_words(r)
         self.signal_title.text = (
             f"<b>Signal</b> · window {int(s.ids[r])} · {html.escape(s.rec_names[k])} · "
@@ -620,8 +626,8 @@ class LabelerApp:
         self._send_rows(changed)
         if queue_target:
             self._next_item()
-        else:
-            self.show_signal(self.focus_row)
+        elif self.focus_row is not None:
+            self._retitle_signal(self.focus_row)
         self._refresh_counts()
         self.request_proposals()
 
@@ -692,7 +698,7 @@ class LabelerApp:
         self._send_rows(changed)
         self._refresh_counts()
         if self.focus_row is not None:
-            self.show_signal(self.focus_row)
+            self._retitle_signal(self.focus_row)
         self._refresh_queue()
         self.request_proposals()
 
@@ -802,9 +808,7 @@ class LabelerApp:
             self._refresh_estimate()
             self._refresh_queue()
             if self.focus_row is not None:
-                self.show_signal(self.focus_row)
-        if self.worker.busy() and not isinstance(got, Exception):
-            pass
+                self._retitle_signal(self.focus_row)
         self._refresh_progress()
 
     def close(self) -> None:

@@ -72,11 +72,18 @@ def read_map(project, n: int) -> tuple[np.ndarray, np.ndarray, str]:
             xy = _as_xy(got, n)
             if xy is not None:
                 return xy[:, 0], xy[:, 1], kind
-    X, _ = project.features()
-    if X.shape[0] == 0:
-        return np.zeros(0, np.float32), np.zeros(0, np.float32), "none"
-    xy = _pca2(X)
+    key = (str(project.path), n)
+    if key not in _FALLBACK_MAPS:            # one per served file, not one per session
+        X, _ = project.features()
+        if X.shape[0] == 0:
+            return np.zeros(0, np.float32), np.zeros(0, np.float32), "none"
+        _FALLBACK_MAPS.clear()
+        _FALLBACK_MAPS[key] = _pca2(X)
+    xy = _FALLBACK_MAPS[key]
     return xy[:, 0], xy[:, 1], "pca"
+
+
+_FALLBACK_MAPS: dict[tuple[str, int], np.ndarray] = {}
 
 
 def _as_xy(got, n: int) -> np.ndarray | None:
