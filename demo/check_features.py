@@ -21,36 +21,23 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
 from labeler.features import window_features
-from labeler.synthetic import CHANNELS, simulate_recording, window_truth
+from labeler.recordings import recording_from_frame
+from labeler.synthetic import simulate_recording, window_truth
 from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
 
 
-def on_grid(rec):
-    """Samples on a regular grid: consecutive rows are consecutive samples (the clock may run a
-    little fast or slow, the time stamps jitter), a jump in time of more than 1.5 sample periods is
-    a gap of that many samples. valid marks samples present and finite (gaps and NaN runs are not).
-    """
-    dt = np.diff(rec.frame["time"].to_numpy())
-    period = float(np.median(dt))
-    step = np.where(dt > 1.5 * period, np.round(dt / period), 1).astype(np.int64)
-    idx = np.concatenate([[0], np.cumsum(step)])
-    n = int(idx.max()) + 1
-    sig = np.full((n, len(CHANNELS)), np.nan, dtype=np.float32)
-    sig[idx] = rec.frame[list(CHANNELS)].to_numpy(np.float32)
-    valid = np.isfinite(sig).all(axis=1)
-    return np.where(valid[:, None], sig, 0.0).astype(np.float32), valid
-
-
-def windows_of(rec):
-    sig, valid = on_grid(rec)
+def windows_of(sim):
+    """Windows as labeler makes them: onto the sample grid (short NaN runs interpolated, gaps
+    left out), cut, features; truth per window."""
+    rec = recording_from_frame(sim.frame, where="simulator", content_hash=sim.name, name=sim.name)
     length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
-    starts = cut_windows(valid, length, step)
-    X, names = window_features(sig, starts, length, rec.rate, list(CHANNELS))
+    starts = cut_windows(rec.valid, length, step)
+    X, names = window_features(rec.signal, starts, length, rec.rate, rec.channels)
     t0 = starts / rec.rate
-    y = window_truth(rec.truth, t0, t0 + length / rec.rate).astype(str)
+    y = window_truth(sim.truth, t0, t0 + length / rec.rate).astype(str)
     # bout id of each window: the truth interval holding its centre
     mid = t0 + length / rec.rate / 2
-    bout = np.searchsorted(rec.truth["end_s"].to_numpy(), mid, side="right")
+    bout = np.searchsorted(sim.truth["end_s"].to_numpy(), mid, side="right")
     return X, y, bout, names
 
 
@@ -61,6 +48,7 @@ def main(hours: float = 2.0, seed: int = 7) -> None:
     print(f"{rec.name}: {hours:g} h, {len(y)} windows, {X.shape[1]} features "
           f"({time.perf_counter() - t:.1f} s)")
     labels, counts = np.unique(y, return_counts=True)
+    labels = [str(v) for v in labels]
     print("windows per class:", dict(zip(labels, counts.tolist())))
     model = make_pipeline(StandardScaler(), KNeighborsClassifier(n_neighbors=5))
     shuffled = cross_val_score(model, X, y, cv=StratifiedKFold(5, shuffle=True, random_state=0))
@@ -79,7 +67,7 @@ def main(hours: float = 2.0, seed: int = 7) -> None:
     pred = np.empty_like(y)
     for tr, te in GroupKFold(5).split(X, y, bout):
         pred[te] = model.fit(X[tr], y[tr]).predict(X[te])
-    print("confusion (grouped by bout), rows = truth:", list(labels))
+    print("confusion (grouped by bout), rows = truth, columns = predicted:", labels)
     print(confusion_matrix(y, pred, labels=labels))
 
 

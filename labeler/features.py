@@ -174,15 +174,19 @@ def _spectral(ws: _Workspace, plan: _Plan) -> dict[str, np.ndarray]:
     if p1.shape[-1]:
         dom = np.argmax(p1, axis=-1)
         out["dom_freq"] = np.where(has_power, plan.freqs[1:][dom], 0.0)
-        out["bands"] = (p1 @ plan.bands) * inv_total[..., None]
-        p1 *= inv_total[..., None]  # normalized spectrum p
-        logs = p1 + np.float32(1e-30)
+        # bands and entropy of the channels only (magnitudes do not need them)
+        C = plan.n_channels
+        pc = p1[:C]
+        inv_c = inv_total[:C, :, None]
+        out["bands"] = (pc @ plan.bands) * inv_c
+        pc *= inv_c  # normalized spectrum p
+        logs = pc + np.float32(1e-30)
         np.log(logs, out=logs)
-        out["spec_entropy"] = -_dot(p1, logs) / plan.entropy_norm
+        out["spec_entropy"] = -_dot(pc, logs) / plan.entropy_norm
     else:
         out["dom_freq"] = np.zeros(lead)
-        out["bands"] = np.zeros(lead + (plan.bands.shape[1],))
-        out["spec_entropy"] = np.zeros(lead)
+        out["bands"] = np.zeros(lead + (plan.bands.shape[1],))[:plan.n_channels]
+        out["spec_entropy"] = np.zeros(lead)[:plan.n_channels]
     del p1
     # linear autocorrelation: the inverse FFT of a real, even spectrum is the DCT-I of its half
     lo, hi = plan.ac_lo, plan.ac_hi

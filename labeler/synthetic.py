@@ -178,18 +178,17 @@ def _events(rng: np.random.Generator, n: int, rate: float, mean_interval: float,
     return _upsample(np.clip(bump, 0.0, 1.0), low_rate, n, rate)
 
 
-def _random_rotation(rng: np.random.Generator, max_deg: float, yaw_deg: float = 0.0) -> np.ndarray:
-    """Rotation about a random axis by up to max_deg (half-normal), then about z by +-yaw_deg."""
-    axis = rng.standard_normal(3)
-    axis /= np.linalg.norm(axis)
-    angle = math.radians(min(abs(rng.normal(0.0, max_deg / 2)), max_deg))
-    k = np.array([[0, -axis[2], axis[1]], [axis[2], 0, -axis[0]], [-axis[1], axis[0], 0]])
-    r = np.eye(3) + math.sin(angle) * k + (1 - math.cos(angle)) * (k @ k)
-    if yaw_deg:
-        y = math.radians(rng.uniform(-yaw_deg, yaw_deg))
-        rz = np.array([[math.cos(y), -math.sin(y), 0], [math.sin(y), math.cos(y), 0], [0, 0, 1]])
-        r = r @ rz
-    return r
+def _mount_rotation(rng: np.random.Generator, sd_x: float, sd_y: float, sd_z: float
+                    ) -> np.ndarray:
+    """How a sensor sits on its segment: small rotations about the segment's x, y and z axes
+    (normal, standard deviations in degrees, clipped at 2.5 of them): sensor = R @ segment."""
+    def angle(sd):
+        return math.radians(float(np.clip(rng.normal(0.0, sd), -2.5 * sd, 2.5 * sd)))
+    ax, ay, az = angle(sd_x), angle(sd_y), angle(sd_z)
+    rx = np.array([[1, 0, 0], [0, math.cos(ax), -math.sin(ax)], [0, math.sin(ax), math.cos(ax)]])
+    ry = np.array([[math.cos(ay), 0, math.sin(ay)], [0, 1, 0], [-math.sin(ay), 0, math.cos(ay)]])
+    rz = np.array([[math.cos(az), -math.sin(az), 0], [math.sin(az), math.cos(az), 0], [0, 0, 1]])
+    return rx @ ry @ rz
 
 
 def _to_body(ax, ay, az, yaw, pitch, roll):
@@ -238,12 +237,12 @@ def _person(person: int) -> _Person:
         step_freq=float(np.clip(r.normal(1.85, 0.11), 1.55, 2.15)),
         carry_factor=float(r.uniform(0.84, 0.95)),
         climb_freq=float(r.uniform(0.55, 0.85)),
-        intensity=float(np.exp(r.normal(0.0, 0.15))),
+        intensity=float(np.clip(np.exp(r.normal(0.0, 0.12)), 0.8, 1.25)),
         swing=float(r.uniform(0.22, 0.45)),
         bounce=float(r.uniform(0.22, 0.34)),
         sit_lean=float(r.uniform(8.0, 28.0)),
-        roll_offset=float(r.uniform(-30.0, 30.0)),
-        vigour=float(np.exp(r.normal(0.0, 0.2))),
+        roll_offset=float(r.uniform(-20.0, 20.0)),
+        vigour=float(np.clip(np.exp(r.normal(0.0, 0.2)), 0.7, 1.4)),
         swing_phase=float(r.uniform(0, 2 * np.pi)),
     )
 
@@ -483,7 +482,10 @@ def simulate_recording(duration_s: float, *, seed: int, person: int = 0, rate: f
 
     # ---- sensors
     srng = _rng(seed, person, 2)
-    mounts = {"wrist": _random_rotation(srng, 30.0), "hip": _random_rotation(srng, 25.0, 40.0)}
+    # a watch turns a little about the forearm and tilts on the wrist; a belt clip sits further
+    # front or back around the waist (about the vertical) and tilts with the belt
+    mounts = {"wrist": _mount_rotation(srng, 10.0, 6.0, 6.0),
+              "hip": _mount_rotation(srng, 6.0, 6.0, 25.0)}
     data = np.empty((len(CHANNELS), n), dtype=_F32)  # one contiguous row per channel
     knots = max(2, int(duration_s / 30.0) + 2)  # bias drift: a random walk, one step per 30 s
     drift_rate = (knots - 1) / duration_s
