@@ -8,6 +8,8 @@ practice in human activity recognition, no source; 2-5 s windows with 50 % overl
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 DEFAULT_LENGTH_S = 2.56
@@ -16,12 +18,12 @@ DEFAULT_STEP_S = 1.28
 
 def window_samples(rate: float, length_s: float, step_s: float) -> tuple[int, int]:
     """Window length and step in samples (at least one sample each)."""
-    if not (rate > 0):
+    if not (0 < rate < math.inf):
         raise ValueError(f"sampling rate must be > 0, got {rate}")
-    if not (length_s > 0):
-        raise ValueError(f"window length must be > 0 s, got {length_s}")
-    if not (step_s > 0):
-        raise ValueError(f"window step must be > 0 s, got {step_s}")
+    if not (0 < length_s < math.inf):
+        raise ValueError(f"window length must be > 0 s and finite, got {length_s}")
+    if not (0 < step_s < math.inf):
+        raise ValueError(f"window step must be > 0 s and finite, got {step_s}")
     length = max(1, int(round(length_s * rate)))
     step = max(1, int(round(step_s * rate)))
     return length, step

@@ -23,7 +23,9 @@ def test_defaults_at_50_hz():
     assert window_samples(100.0, DEFAULT_LENGTH_S, DEFAULT_STEP_S) == (256, 128)
     assert window_samples(20.0, DEFAULT_LENGTH_S, DEFAULT_STEP_S) == (51, 26)
     assert window_samples(1.0, 0.1, 0.1) == (1, 1)  # at least one sample
-    for bad in ((0.0, 1.0, 1.0), (50.0, 0.0, 1.0), (50.0, 1.0, -1.0), (float("nan"), 1, 1)):
+    inf, nan = float("inf"), float("nan")
+    for bad in ((0.0, 1.0, 1.0), (50.0, 0.0, 1.0), (50.0, 1.0, -1.0), (nan, 1, 1), (inf, 1, 1),
+                (50.0, inf, 1.0), (50.0, 1.0, inf), (50.0, nan, 1.0)):
         with pytest.raises(ValueError):
             window_samples(*bad)
 
