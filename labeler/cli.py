@@ -545,6 +545,109 @@ def agreement_cmd(project):
                    f"labeled: {kappa}")
 
 
+# ------------------------------------------------------------------------------ proposals
+
+def _progress_bar(label: str):
+    bar = click.progressbar(length=1000, label=label, file=sys.stderr, show_eta=False,
+                            hidden=not sys.stderr.isatty())
+    state = {"done": 0}
+
+    def progress(frac, _msg):
+        step = int(frac * 1000) - state["done"]
+        if step > 0:
+            bar.update(step)
+            state["done"] += step
+
+    return bar, progress
+
+
+@cli.command("propose")
+@project_argument
+@click.option("--alpha", type=float, default=None, metavar="A",
+              help="Share of a window's scores that comes from its neighbours (0-1, default 0.9).")
+@click.option("--neighbors", type=int, default=10, show_default=True,
+              help="Nearest neighbours per window in the graph.")
+@click.option("--temporal-weight", type=float, default=None, metavar="W",
+              help="Weight of the edge between consecutive windows (0 turns it off).")
+@annotator_option
+def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
+    """Propose labels for every unconfirmed window by spreading the confirmed ones."""
+    with _open(project, annotator) as p:
+        bar, progress = _progress_bar("proposing")
+        with bar:
+            s = p.refresh_proposals(alpha=alpha, n_neighbors=neighbors,
+                                    temporal_weight=temporal_weight, progress=progress)
+    mean = s["mean_confidence"]
+    click.echo(f"proposals run {s['run_id']}: {s['proposed']} window(s) proposed from "
+               f"{s['confirmed']} confirmed in {len(s['classes'])} class(es) in {s['seconds']:.2f} s"
+               + (", graph rebuilt" if s["graph_rebuilt"] else "")
+               + (", warm start" if s["warm_start"] else ""))
+    if mean is not None:
+        click.echo(f"  mean confidence {mean:.3f}; {s['low_support']} window(s) far from any "
+                   f"confirmation; {s['conflicts']} confirmed window(s) in conflict")
+    click.echo("  proposed labels are suggestions; a qualified person reviews them before use")
+
+
+@cli.command("queue")
+@project_argument
+@click.option("-n", "n", type=int, default=20, show_default=True, help="How many windows.")
+@annotator_option
+def queue_cmd(project, n, annotator):
+    """Windows to review next, most useful first, with the reason for each."""
+    with _open(project, annotator) as p:
+        q = p.review_queue(n)
+    click.echo(f"{'window':>8}  {'reason':12}  {'recording':20}  {'start s':>9}  proposal")
+    for r in q.itertuples(index=False):
+        prop = "-" if r.proposed is None or r.proposed != r.proposed else \
+            f"{r.proposed} ({r.confidence:.2f})"
+        click.echo(f"{r.window_id:>8}  {r.reason:12}  {str(r.recording):20}  {r.start_s:>9.2f}  {prop}")
+
+
+@cli.command("audit")
+@project_argument
+@click.option("-n", "n", type=int, default=30, show_default=True,
+              help="How many windows to draw.")
+@click.option("--status", "show_status", is_flag=True,
+              help="Show the audit so far instead of drawing.")
+@click.option("--seed", type=int, default=None, help="Seed of the random draw (for repeatability).")
+@annotator_option
+def audit_cmd(project, n, show_status, seed, annotator):
+    """Draw a random sample of proposed windows to label blind (for an unbiased accuracy)."""
+    with _open(project, annotator) as p:
+        if show_status:
+            a = p.audit_status()
+            done = a[a["answer"].notna()]
+            right = int((done["correct"] == True).sum())  # noqa: E712 (object column)
+            click.echo(f"{len(a)} window(s) drawn, {len(done)} answered, {right} proposal(s) right")
+            return
+        d = p.draw_audit(n, random_state=seed)
+    click.echo(f"drew {len(d)} window(s); label each without looking at its proposal, e.g. "
+               "`labeler confirm PROJECT CLASS --windows ID`:")
+    for r in d.itertuples(index=False):
+        click.echo(f"  window {r.window_id}  {r.recording}  {r.start_s:.2f} s")
+
+
+@cli.command("accuracy")
+@project_argument
+@annotator_option
+def accuracy_cmd(project, annotator):
+    """How accurate the proposals are, and what the estimate rests on."""
+    with _open(project, annotator) as p:
+        e = p.accuracy_estimate()
+    if e["basis"] == "none":
+        click.echo(f"no estimate: {e['note']}")
+        return
+    click.echo(f"accuracy of proposed windows {e['value']:.3f} ({e['level']:.0%} interval "
+               f"{e['low']:.3f}-{e['high']:.3f}), {e['basis']} of {e['n']} window(s)")
+    if e.get("training_set"):
+        t = e["training_set"]
+        click.echo(f"  training set (confirmed counted as right) {t['value']:.3f} "
+                   f"({t['low']:.3f}-{t['high']:.3f})")
+    if e.get("ece") is not None:
+        click.echo(f"  expected calibration error of the confidence {e['ece']:.3f}")
+    click.echo(f"  {e['note']}")
+
+
 def main(argv=None):
     """Console entry point."""
     try:

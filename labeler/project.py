@@ -746,6 +746,340 @@ class Project:
                 out["accuracy"] = est
         return out
 
+    # ------------------------------------------------------------------ proposals
+    # Label spreading over the window graph (labeler.graph, labeler.spreading), the review queue
+    # (labeler.review) and accuracy estimates (labeler.quality). The graph is cached as a blob and
+    # rebuilt only when the recordings, the feature set or the graph parameters change; each
+    # refresh is a run (kind "proposals") with its parameters and summary, and the latest per-window
+    # results are kept as one blob. Proposed labels are suggestions for a person to review.
+
+    _GRAPH_BLOB = "proposals/graph"
+    _LATEST_BLOB = "proposals/latest"
+
+    def _graph_key(self, params: dict) -> str:
+        import hashlib
+        import json
+
+        recs = self.recordings()
+        ident = {"recordings": [[int(i), str(h)] for i, h in zip(recs["id"], recs["content_hash"])],
+                 "features": self.feature_set_version, "n_windows": self.n_windows, **params}
+        return hashlib.sha256(json.dumps(ident, sort_keys=True).encode()).hexdigest()[:16]
+
+    def _graph_seq(self) -> tuple[np.ndarray, np.ndarray]:
+        """(recording id, sequence) per window for temporal edges: consecutive windows of one
+        recording are one window step apart; a gap in the recording adds a jump of 2."""
+        w = self.windows()
+        recs = self.recordings().set_index("id")
+        rid = w["recording_id"].to_numpy(np.int64)
+        start = w["start_sample"].to_numpy(np.int64)
+        seq = np.zeros(len(w), dtype=np.int64)
+        for r in np.unique(rid):
+            idx = np.flatnonzero(rid == r)
+            idx = idx[np.argsort(start[idx], kind="stable")]
+            step = int(recs.loc[r, "window_step"])
+            jumps = np.where(np.diff(start[idx]) == step, 1, 2)
+            seq[idx] = np.concatenate([[0], np.cumsum(jumps)])
+        return rid, seq
+
+    def _graph(self, params: dict, progress: Progress | None = None):
+        """(graph, key, rebuilt): the cached window graph, built when missing or outdated."""
+        import io
+
+        from scipy import sparse
+
+        from labeler.graph import build_graph
+
+        key = self._graph_key(params)
+        cached = self._cache.get("graph")
+        if cached is not None and cached[1] == key:
+            return cached[0], key, False
+        got = self.store.get_blob(self._GRAPH_BLOB)
+        if got is not None and got[1].get("key") == key:
+            W = sparse.load_npz(io.BytesIO(got[0])).tocsr()
+            self._cache["graph"] = (W, key)
+            return W, key, False
+        X, _ = self.features()
+        if X.shape[0] < 2:
+            raise InputError(f"{self.path}: proposals need at least 2 windows; add recordings "
+                             "first with `labeler add`")
+        if progress:
+            progress(0.1, f"graph of {X.shape[0]} windows")
+        rid, seq = self._graph_seq()
+        pca = params["pca_components"]
+        W = build_graph(X, recording=rid, seq=seq, n_neighbors=params["n_neighbors"],
+                        temporal_weight=params["temporal_weight"],
+                        pca_components=pca if pca and pca < X.shape[1] else None)
+        buf = io.BytesIO()
+        sparse.save_npz(buf, W)
+        self.store.put_blob(self._GRAPH_BLOB, buf.getvalue(), {"key": key, **params})
+        self._cache["graph"] = (W, key)
+        return W, key, True
+
+    def _latest_proposals(self) -> dict | None:
+        """The latest stored proposal arrays (npz) with their run, or None."""
+        import io
+
+        got = self.store.get_blob(self._LATEST_BLOB)
+        if got is None:
+            return None
+        with np.load(io.BytesIO(got[0]), allow_pickle=False) as z:
+            out = {k: z[k] for k in z.files}
+        out["meta"] = got[1]
+        return out
+
+    def _class_codes(self, y: np.ndarray, names: list[str]) -> np.ndarray:
+        """Label vector as class ids (stable across runs), -1 unlabeled."""
+        ids = {str(n): int(i) for i, n in zip(self.classes()["id"], self.classes()["name"])}
+        lut = np.array([ids[n] for n in names], dtype=np.int64) if names else np.zeros(0, np.int64)
+        return np.where(y >= 0, lut[np.maximum(y, 0)] if lut.size else -1, -1)
+
+    def refresh_proposals(self, *, alpha: float | None = None, n_neighbors: int = 10,
+                          temporal_weight: float | None = None, pca_components: int | None = 30,
+                          progress: Progress | None = None) -> dict:
+        """Spread the confirmed labels over the window graph; store the result as a run.
+
+        Starts from the previous run's scores (warm start) when the graph is unchanged. Returns
+        the run's summary (run id, confirmed windows, classes, proposed windows, mean confidence,
+        solver iterations, seconds, whether the graph was rebuilt).
+        """
+        import io
+        import time
+
+        from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
+        from labeler.spreading import DEFAULT_ALPHA, LabelSpreader
+
+        t0 = time.perf_counter()
+        alpha = DEFAULT_ALPHA if alpha is None else float(alpha)
+        if not 0 < alpha < 1:
+            raise InputError(f"alpha {alpha} must lie strictly between 0 and 1; give e.g. 0.9")
+        tw = DEFAULT_TEMPORAL_WEIGHT if temporal_weight is None else float(temporal_weight)
+        gparams = {"n_neighbors": int(n_neighbors), "temporal_weight": tw,
+                   "pca_components": None if pca_components is None else int(pca_components)}
+        y_idx, names = self.label_vector()
+        y = self._class_codes(y_idx, names)
+        if not (y >= 0).any():
+            raise InputError(f"{self.path}: no confirmed window yet; confirm a few windows of each "
+                             "activity first (e.g. `labeler confirm` or the review queue)")
+        try:
+            W, key, rebuilt = self._graph(gparams, progress)
+        except ValueError as exc:
+            raise InputError(f"{self.path}: {exc}") from None
+        if progress:
+            progress(0.6, "spreading labels")
+        spreader = LabelSpreader(alpha=alpha)
+        prev = self._latest_proposals()
+        init = init_classes = None
+        if prev is not None and prev["meta"].get("graph_key") == key \
+                and prev["meta"].get("alpha") == alpha and prev["F"].shape[0] == y.size:
+            init, init_classes = prev["F"].astype(np.float64), prev["classes"]
+        spreader.fit(W, y, init=init, init_classes=init_classes)
+        if prev is not None and prev["meta"].get("graph_key") == key \
+                and prev["meta"].get("alpha") == alpha and "reference" in prev:
+            reference = prev["reference"].astype(np.float64)
+        else:
+            reference = spreader.reference_mass()
+        out = spreader.outputs(y, reference=reference)
+        unconf = y < 0
+        counts = {self.class_name(int(c)): int((y == c).sum()) for c in spreader.classes_}
+        summary = {"confirmed": int((~unconf).sum()), "windows": int(y.size),
+                   "classes": counts, "proposed": int(unconf.sum()),
+                   "mean_confidence": float(out.confidence[unconf].mean()) if unconf.any() else None,
+                   "low_support": int((out.support[unconf] < 0.05).sum()),
+                   "conflicts": int(((~unconf) & (out.conflict > 0.5)).sum()),
+                   "iterations": int(spreader.n_iter_), "warm_start": init is not None,
+                   "graph_rebuilt": bool(rebuilt), "graph_edges": int(W.nnz // 2)}
+        params = {"alpha": alpha, **gparams, "solver": spreader.solver, "tol": spreader.tol,
+                  "method": "label spreading (Zhou et al. 2004) on a kNN graph with local "
+                            "scaling (Zelnik-Manor & Perona 2004)", "graph_key": key}
+        buf = io.BytesIO()
+        np.savez(buf, window_id=self.windows()["id"].to_numpy(np.int64),
+                 F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
+                 label=out.label, confidence=out.confidence.astype(np.float32),
+                 margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
+                 conflict=out.conflict.astype(np.float32), y=y,
+                 reference=np.asarray(reference, dtype=np.float32))
+        summary["seconds"] = round(time.perf_counter() - t0, 3)
+        with self.store.atomic():
+            run_id = self.store.add_run("proposals", params, summary, created_by=self.annotator)
+            self.store.put_blob(self._LATEST_BLOB, buf.getvalue(),
+                                {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
+        self._invalidate("proposals")
+        if progress:
+            progress(1.0, "done")
+        return {"run_id": run_id, **summary}
+
+    def proposals(self) -> pd.DataFrame:
+        """Latest proposals: window_id, label (class name), class_id, confidence, margin, support,
+        conflict, confirmed (whether the window was confirmed at that run). Empty when none yet."""
+        cols = ["window_id", "label", "class_id", "confidence", "margin", "support", "conflict",
+                "confirmed"]
+        if "proposals" in self._cache:
+            return self._cache["proposals"].copy()
+        p = self._latest_proposals()
+        if p is None:
+            return pd.DataFrame(columns=cols)
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        df = pd.DataFrame({"window_id": p["window_id"], "class_id": p["label"],
+                           "confidence": p["confidence"].astype(np.float64),
+                           "margin": p["margin"].astype(np.float64),
+                           "support": p["support"].astype(np.float64),
+                           "conflict": p["conflict"].astype(np.float64),
+                           "confirmed": p["y"] >= 0})
+        df.insert(1, "label", df["class_id"].map(names))
+        df = df[df["window_id"].isin(self.windows()["id"])][cols].reset_index(drop=True)
+        self._cache["proposals"] = df
+        return df.copy()
+
+    def _open_audit_windows(self) -> np.ndarray:
+        rows = list(self.store.db["audits"].rows)
+        lab = set(self.labels()["window_id"].tolist())
+        return np.array(sorted({r["window_id"] for r in rows} - lab), dtype=np.int64)
+
+    def review_queue(self, n: int = 50) -> pd.DataFrame:
+        """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
+        unexplored), score, proposed label and its confidence. Uses the latest proposals; before
+        any confirmation it spreads its picks over the graph."""
+        from labeler.review import review_queue as _queue
+        from labeler.spreading import WindowOutputs
+
+        if int(n) != n or n < 1:
+            raise InputError(f"queue length {n} must be a whole number >= 1")
+        w = self.windows()
+        if len(w) < 2:
+            raise InputError(f"{self.path}: the project has fewer than 2 windows; add recordings first")
+        run = self.store.latest_run("proposals")
+        gp = {k: run["params"][k] for k in ("n_neighbors", "temporal_weight", "pca_components")} \
+            if run else None
+        if gp is None:
+            from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
+            gp = {"n_neighbors": 10, "temporal_weight": DEFAULT_TEMPORAL_WEIGHT, "pca_components": 30}
+        W, key, _ = self._graph(gp)
+        ids = w["id"].to_numpy(np.int64)
+        labeled = np.isin(ids, self.labels()["window_id"].to_numpy())
+        p = self._latest_proposals()
+        outputs = None
+        if p is not None and p["meta"].get("graph_key") == key and p["window_id"].size == ids.size:
+            outputs = WindowOutputs(p["classes"], p["label"], np.zeros((ids.size, 0)),
+                                    p["confidence"], p["margin"], p["support"], p["conflict"])
+            # a conflict is about the label confirmed at the run; newer confirmations are not
+            outputs.conflict = np.where(p["y"] >= 0, p["conflict"], 0.0)
+        dis = np.isin(ids, self.disagreements())
+        excl = np.isin(ids, self._open_audit_windows())
+        rid, seq = self._graph_seq()
+        q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl)
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        df = pd.DataFrame({"window_id": ids[q.index], "reason": q.reason, "score": q.score})
+        if outputs is not None:
+            df["proposed"] = pd.Series(outputs.label[q.index]).map(names).to_numpy()
+            df["confidence"] = outputs.confidence[q.index].astype(np.float64)
+        else:
+            df["proposed"] = None
+            df["confidence"] = np.nan
+        w_idx = w.set_index("id").loc[df["window_id"]]
+        df["recording"] = w_idx["recording"].to_numpy()
+        df["start_s"] = w_idx["start_s"].to_numpy()
+        return df
+
+    def draw_audit(self, n: int = 30, *, random_state=None) -> pd.DataFrame:
+        """Draw a uniformly random sample of ``n`` proposed, unconfirmed windows for an audit.
+
+        The proposal and its confidence are stored with the draw (for the accuracy estimate) and
+        are not returned, so the annotator labels the windows without seeing them. Returns
+        window_id, position, recording, start_s. Confirm the windows with source "audit".
+        """
+        from labeler.quality import draw_audit as _draw
+
+        from storage.store import utc_now
+
+        if int(n) != n or n < 1:
+            raise InputError(f"audit size {n} must be a whole number >= 1; give e.g. 30")
+        p = self._latest_proposals()
+        if p is None:
+            raise InputError(f"{self.path}: no proposals yet; run `labeler propose` first")
+        w = self.windows()
+        ids = p["window_id"]
+        known = np.isin(ids, w["id"].to_numpy())
+        labeled = np.isin(ids, self.labels()["window_id"].to_numpy())
+        in_audit = np.isin(ids, [r["window_id"] for r in self.store.db["audits"].rows])
+        cand = known & ~labeled & ~in_audit & (p["support"] > 0)
+        if not cand.any():
+            raise InputError(f"{self.path}: no unconfirmed window with a proposal is left to audit")
+        seed = random_state if random_state is not None else int.from_bytes(os.urandom(4), "little")
+        pick = _draw(cand, int(n), random_state=seed)
+        run = p["meta"]["run_id"]
+        now = utc_now()
+        with self.store.atomic():
+            start = self.store.conn.execute(
+                "SELECT coalesce(max(position), -1) + 1 FROM audits").fetchone()[0]
+            self.store.db["audits"].insert_all(
+                [{"run_id": int(run), "window_id": int(ids[i]), "position": int(start + k),
+                  "drawn_at": now, "drawn_by": self.annotator,
+                  "proposed_class_id": int(p["label"][i]), "confidence": float(p["confidence"][i])}
+                 for k, i in enumerate(pick)])
+        wi = w.set_index("id").loc[ids[pick]]
+        return pd.DataFrame({"window_id": ids[pick], "position": start + np.arange(pick.size),
+                             "recording": wi["recording"].to_numpy(),
+                             "start_s": wi["start_s"].to_numpy()})
+
+    def audit_status(self) -> pd.DataFrame:
+        """Every audited window: window_id, run_id, proposed (at draw time), confidence, answer
+        (its current label, None while unanswered), correct."""
+        rows = list(self.store.db["audits"].rows)
+        df = pd.DataFrame(rows, columns=["id", "run_id", "window_id", "position", "drawn_at",
+                                         "drawn_by", "proposed_class_id", "confidence"])
+        cur = dict(zip(self.labels()["window_id"], self.labels()["class_id"]))
+        names = dict(zip(self.classes()["id"], self.classes()["name"]))
+        df["answer_class_id"] = df["window_id"].map(cur)
+        df["proposed"] = df["proposed_class_id"].map(names)
+        df["answer"] = df["answer_class_id"].map(names)
+        df["correct"] = np.where(df["answer_class_id"].isna(), None,
+                                 df["answer_class_id"] == df["proposed_class_id"])
+        return df[["window_id", "run_id", "position", "proposed", "confidence", "answer", "correct"]]
+
+    def accuracy_estimate(self, *, cross_validate: bool = True) -> dict:
+        """Accuracy of the proposals, with what it rests on (see :mod:`labeler.quality`).
+
+        An audit of at least ``quality.MIN_AUDIT`` answered windows is preferred; otherwise
+        cross-validation on the confirmed windows (biased; the note says why). Keys: value, low,
+        high, basis, n, scope, level, ece, note, accuracy (= value), training_set (the same for the
+        exported set, confirmed windows counted as right), run_id.
+        """
+        from labeler.quality import (accuracy_estimate as _choose, audit_accuracy,
+                                     cross_validated_accuracy, training_set_estimate)
+        from labeler.spreading import LabelSpreader
+
+        run = self.store.latest_run("proposals")
+        if run is None:
+            raise InputError(f"{self.path}: no proposals yet; run `labeler propose` first")
+        a = self.audit_status()
+        done = a[a["answer"].notna()]
+        audit = audit_accuracy(done["proposed"].to_numpy(object), done["answer"].to_numpy(object),
+                               done["confidence"].to_numpy(np.float64) if len(done) else None) \
+            if len(done) else None
+        cv = None
+        if cross_validate and (audit is None or audit.n < 30):
+            gp = {k: run["params"][k] for k in ("n_neighbors", "temporal_weight", "pca_components")}
+            W, _, _ = self._graph(gp)
+            y_idx, names = self.label_vector()
+            y = self._class_codes(y_idx, names)
+            cv = cross_validated_accuracy(W, y, spreader=LabelSpreader(alpha=run["params"]["alpha"]))
+        est = _choose(audit=audit, cv=cv)
+        out = est.as_dict()
+        out["accuracy"] = out["value"]
+        out["run_id"] = int(run["id"])
+        if audit is not None and est.basis == "audit":
+            runs = sorted(set(done["run_id"].astype(int)))
+            out["note"] += f"; drawn from proposal run(s) {', '.join(map(str, runs))}"
+        p = self.proposals()
+        n_conf = int(len(self.labels()))
+        n_prop = int(max(0, len(p) - p["window_id"].isin(self.labels()["window_id"]).sum()))
+        if est.basis != "none" and n_conf + n_prop:
+            out["training_set"] = training_set_estimate(est, n_conf, n_prop).as_dict()
+        for k in ("value", "low", "high", "accuracy"):
+            if isinstance(out[k], float) and not np.isfinite(out[k]):
+                out[k] = None
+        return out
+
     # ------------------------------------------------------------------ several annotators
     def annotations(self) -> pd.DataFrame:
         """Every annotator's current label of every window they labeled: window_id, annotator,

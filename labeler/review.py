@@ -103,7 +103,7 @@ def review_scores(graph, outputs=None, labeled_mask=None, *, w_uncertain: float 
 def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=None, n: int = 50, *,
                  disagreement=None, conflict_threshold: float = 0.5, w_uncertain: float = 1.0,
                  w_unexplored: float = 1.0, w_density: float = 0.5, bout_gap: int = 3,
-                 explore_hops: int = 4, exclude=None) -> ReviewQueue:
+                 explore_hops: int = 2, suppress_neighbors: bool = True, exclude=None) -> ReviewQueue:
     """Up to ``n`` windows to show next (see the module docstring).
 
     ``outputs`` is a :class:`labeler.spreading.WindowOutputs` (None before any confirmation);
@@ -171,13 +171,13 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
         available[i] = False
         if np.isfinite(first[i]):
             continue  # conflicts and disagreements do not suppress the rest
-        if reason[i] == "uncertain" or unexp[i] > 0:
+        if suppress_neighbors:
             suppressed[W.indices[W.indptr[i]:W.indptr[i + 1]]] = True
         if unexp.any():
             d = dijkstra(W, directed=False, indices=i, unweighted=True, limit=H - 0.5)
             near = np.isfinite(d)
             hop_factor[near] = np.minimum(hop_factor[near], d[near] / H)
-        if bouts is not None:
+        if bouts is not None and bout_gap >= 0:
             # same bout, and the bout_gap windows either side in time
             lo, hi = b_lo[bout[i]], b_hi[bout[i]]
             near_t = tord[max(0, lo - bout_gap):hi + bout_gap]
