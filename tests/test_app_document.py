@@ -261,3 +261,33 @@ def test_open_command_refuses_a_missing_file(tmp_path):
     res = CliRunner().invoke(cli, ["open", str(tmp_path / "no.labeler"), "--no-browser"])
     assert res.exit_code == 2
     assert "no such project file" in res.output and len(res.output.strip().splitlines()) == 1
+
+
+def test_proposals_queue_accept_skip_and_audit(app):
+    s = app.state
+    app.request_proposals()                       # background=False: computed here
+    assert (s.proposals.proposed >= 0).sum() > s.n // 2
+    assert (np.asarray(app.map_src.data["prop"]) >= 0).sum() == (s.proposals.proposed >= 0).sum()
+    assert "up to date" in app.progress_div.text
+    assert app.estimate_div.text and "none yet" not in app.estimate_div.text
+    app.press("r")
+    item = s.current_item()
+    assert item is not None and app.target_source == "queue"
+    with Project.open(app.project.path, readonly=True) as p:
+        assert item.window_id == int(p.review_queue(50)["window_id"].iloc[0])
+    proposed = s.proposals.proposed[item.row]
+    if proposed >= 0 and s.confirmed[item.row] < 0:
+        app.press("Enter")
+        ev = _events(app.project.path, source="queue")
+        assert ev.iloc[-1]["window_id"] == item.window_id
+        assert ev.iloc[-1]["class"] == s.class_names[proposed]
+    nxt = s.current_item()
+    app.press("s")                                 # skip writes nothing
+    assert s.current_item() is not nxt
+    app.queue_mode.active = 1                      # audit: a random sample, proposal hidden
+    item = s.current_item()
+    assert item is not None and app.target_source == "audit"
+    assert "hidden" in app.queue_div.text
+    app.press("1")
+    ev = _events(app.project.path, source="audit")
+    assert ev.iloc[-1]["window_id"] == item.window_id

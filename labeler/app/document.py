@@ -102,9 +102,8 @@ class LabelerApp:
         self.progress_text = ""
         self._build()
         doc.title = f"labeler · {Path(str(project.path)).name}"
-        if has_proposals_api(project) and (self.state.confirmed >= 0).any() \
-                and not (self.state.proposals.proposed >= 0).any():
-            self.request_proposals()
+        if has_proposals_api(project) and (self.state.confirmed >= 0).any():
+            self.request_proposals()         # brings the accuracy estimate too, off the page
 
     # ================================================================== building
     def _build(self) -> None:
@@ -284,10 +283,14 @@ class LabelerApp:
                     f.line("t", ch, source=src, color=colour, line_width=1.6,
                            legend_label=f"acc {parts[-1]}")
             f.legend.orientation = "horizontal"
-            f.legend.location = "top_left"
-            f.legend.label_text_font_size = "9px"
-            f.legend.background_fill_alpha = 0.6
-            f.legend.padding = 2
+            f.legend.label_text_font_size = "10px"
+            f.legend.padding = 0
+            f.legend.margin = 0
+            f.legend.border_line_color = None
+            if self.signal_figs:                 # one legend, above the first panel, off the traces
+                f.legend.visible = False
+            else:
+                f.add_layout(f.legend[0], "above")
             span = BoxAnnotation(left=0, right=0, fill_color="#56B4E9", fill_alpha=0.18,
                                  line_color="#0072B2", line_alpha=0.6)
             f.add_layout(span)
@@ -508,7 +511,7 @@ class LabelerApp:
         est = self.state.accuracy()
         if est is None:
             self.estimate_div.text = ("<span style='color:#555'>Accuracy estimate: none yet — "
-                                      "it needs proposals and an audit sample.</span>")
+                                      "it comes with the proposals.</span>")
             return
         self.estimate_div.text = _estimate_html(est)
 
@@ -757,12 +760,14 @@ class LabelerApp:
             self.worker.request()
         else:
             self._worker_started()
-            from labeler.app.state import read_proposals
+            from labeler.app.state import estimate_of, read_proposals
 
             try:
                 self.project._invalidate()
                 self.project.refresh_proposals()
                 got = read_proposals(self.project, dict(self.state.class_code), self.state.n)
+                if got is not None:
+                    got.estimate = estimate_of(self.project)
             except Exception as exc:
                 got = exc
             self._apply_proposals(got)

@@ -40,6 +40,7 @@ class Proposals:
     confidence: np.ndarray        # float32 in [0, 1]
     support: np.ndarray           # float32 in [0, 1]; low = no confirmed window nearby
     note: str = ""
+    estimate: dict | None = None  # Project.accuracy_estimate() computed with these proposals
 
 
 @dataclass
@@ -155,6 +156,21 @@ def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | N
                      np.clip(np.nan_to_num(support), 0, 1))
 
 
+def estimate_of(project) -> dict | None:
+    """Project.accuracy_estimate() as a dict, or {"text": why not} (slow: call it off the page)."""
+    est = getattr(project, "accuracy_estimate", None)
+    if not callable(est):
+        return None
+    try:
+        got = est()
+    except LabelerError as exc:
+        return {"text": str(exc)}
+    if got is not None and not isinstance(got, dict):
+        got = {k: getattr(got, k) for k in dir(got) if not k.startswith("_")
+               and not callable(getattr(got, k))}
+    return got
+
+
 # ---------------------------------------------------------------------------- the session state
 
 class SessionState:
@@ -233,9 +249,10 @@ class SessionState:
         return changed
 
     def set_proposals(self, got: Proposals) -> np.ndarray:
-        old_lab, old_alpha = self.display_label(), self.display_alpha()
+        old = self.proposals
         self.proposals = got
-        return np.flatnonzero((old_lab != self.display_label()) | (old_alpha != self.display_alpha()))
+        return np.flatnonzero((old.proposed != got.proposed) | (old.confidence != got.confidence)
+                              | (old.support != got.support))
 
     def display_label(self, rows=None) -> np.ndarray:
         """Class code drawn per window: the confirmed one, else the proposed one, else -1."""
@@ -279,19 +296,8 @@ class SessionState:
         return out
 
     def accuracy(self) -> dict | None:
-        est = getattr(self.project, "accuracy_estimate", None)
-        if not callable(est):
-            return None
-        try:
-            got = est()
-        except LabelerError as exc:
-            return {"text": str(exc)}
-        if got is None:
-            return None
-        if not isinstance(got, dict):
-            got = {k: getattr(got, k) for k in dir(got) if not k.startswith("_")
-                   and not callable(getattr(got, k))}
-        return got
+        """The accuracy estimate that came with the latest proposals (computed off the page)."""
+        return self.proposals.estimate
 
     # -------------------------------------------------------------- review queue and audit
     def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
@@ -377,6 +383,7 @@ class ProposalWorker:
                 p.refresh_proposals()
                 got = read_proposals(p, self._class_code(), self._n)
                 if got is not None:
+                    got.estimate = estimate_of(p)
                     got.note = f"{time.perf_counter() - t0:.1f} s"
                 self._deliver(got)
             except Exception as exc:  # reported in the status line, never lost silently
