@@ -33,15 +33,18 @@ from labeler.errors import InputError
 #: repeats the measurement): exact search (scikit-learn, kd-tree) took 2.3 s at 20k windows and
 #: 43 s at 100k windows in 20 dimensions; pynndescent took 1.3 s at 20k and 10.5 s at 100k once
 #: compiled, with a recall of 0.94 / 0.87 of the true 10 neighbours, but its just-in-time
-#: compilation costs about 60 s in every new process (also with a numba cache). Exact search in the
-#: PCA-reduced space stays below that cost up to a few hundred thousand windows, so the switch sits
-#: far above the sizes a single annotator labels; "auto" takes the exact path below it.
-APPROXIMATE_ABOVE = 300_000
+#: compilation costs about 60 s in every new process (also with a numba cache). Exact time grows
+#: about with n**2 (43 s * (n / 100k)**2), approximate about linearly plus the compilation
+#: (10.5 s * n / 100k + 60 s); they cross near 130k windows, so "auto" switches there.
+APPROXIMATE_ABOVE = 130_000
 
 #: K of local scaling: sigma_i is the distance to the K-th neighbour (Zelnik-Manor & Perona 2004).
 LOCAL_SCALE_K = 7
 
-#: Default weight of an edge between consecutive windows (tuned in benchmarks/bench_proposals.py).
+#: Default weight of an edge between consecutive windows. Measured on the demo simulator with
+#: random confirmations (benchmarks/bench_proposals.py --part tune): accuracy 0.902 / 0.943 at
+#: 50 / 150 confirmations without temporal edges, 0.888 / 0.940 with weight 0.5, so they neither
+#: help nor hurt much there; the annotator benchmark (queue-picked confirmations) runs with 0.5.
 DEFAULT_TEMPORAL_WEIGHT = 0.5
 
 

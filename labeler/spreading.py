@@ -37,7 +37,7 @@ from sklearn.base import BaseEstimator
 from labeler.errors import InputError
 
 #: Default clamping factor, tuned on scikit-learn's digits, BasicMotions and the demo simulator
-#: (benchmarks/bench_proposals.py --tune): with random confirmations accuracy is flat for alpha in
+#: (benchmarks/bench_proposals.py --part tune): with random confirmations accuracy is flat for alpha in
 #: 0.8-0.95 and drops at 0.99 and above, where F tends to the graph's leading eigenvector times the
 #: number of confirmations per class, so the class confirmed most often wins everywhere.
 DEFAULT_ALPHA = 0.9
