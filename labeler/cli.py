@@ -648,6 +648,32 @@ def accuracy_cmd(project, annotator):
     click.echo(f"  {e['note']}")
 
 
+@cli.command("map")
+@project_argument
+@click.option("--method", type=click.Choice(["pca", "tsne"]), default="tsne", show_default=True,
+              help="pca: instant; tsne: similar windows closer together (takes longer).")
+@click.option("--seed", type=int, default=0, show_default=True, help="Random seed of the t-SNE map.")
+@click.option("--jobs", type=click.IntRange(1, 64), default=1, show_default=True,
+              help="Threads for t-SNE (the map depends on it as well as on the seed).")
+@annotator_option
+def map_cmd(project, method, seed, jobs, annotator):
+    """Compute the 2-D map of every window (a full re-fit) and store it in the project."""
+    with _open(project, annotator) as p:
+        with click.progressbar(length=1000, label="map", file=sys.stderr, show_eta=False,
+                               hidden=not sys.stderr.isatty()) as bar:
+            state = {"done": 0}
+
+            def progress(frac, _msg):
+                step = int(frac * 1000) - state["done"]
+                if step > 0:
+                    bar.update(step)
+                    state["done"] += step
+
+            out = p.compute_map(method, progress=progress, random_state=seed, n_jobs=jobs)
+        click.echo(f"map run {out['run_id']} ({out['method']}): {out['n_windows']} windows, "
+                   f"{out['n_fitted']} fitted, {out['seconds']:.1f} s")
+
+
 def main(argv=None):
     """Console entry point."""
     try:
