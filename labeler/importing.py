@@ -86,7 +86,7 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
             raise InputError(f"{where}: row {line}, column 'recording': empty; name the recording")
         try:
             start, end = float(d["start"]), float(d["end"])
-        except ValueError:
+        except (ValueError, TypeError):
             raise InputError(f"{where}: row {line}: start {d['start']!r} and end {d['end']!r} must "
                              "be seconds") from None
         if not (np.isfinite(start) and np.isfinite(end)):
@@ -100,6 +100,9 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
         label = str(d["label"]).strip()
         if not label:
             raise InputError(f"{where}: row {line}, column 'label': empty; give a class name")
+        if not _ANNOTATOR.fullmatch(label):  # the rule of class names (labeler.project)
+            raise InputError(f"{where}: row {line}, column 'label': {label[:70]!r} must be 1-60 "
+                             "printable characters; shorten it or fix the class name")
         who = str(d.get("annotator") or "").strip() or None
         if who is not None and not _ANNOTATOR.fullmatch(who):
             raise InputError(f"{where}: row {line}, column 'annotator': {who[:70]!r} must be 1-60 "
