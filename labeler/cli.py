@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import glob
 import os
+import sqlite3
 import sys
 from pathlib import Path
 
@@ -28,10 +29,20 @@ class _Group(click.Group):
     """Turns labeler's typed errors into one line on stderr and exit code 2, never a traceback."""
 
     def invoke(self, ctx):
+        from storage import StoreError
+
         try:
             return super().invoke(ctx)
-        except LabelerError as exc:
+        except click.UsageError as exc:
+            # click would print usage, a hint and the error on three lines: one line instead
+            where = exc.ctx.command_path if exc.ctx is not None else ctx.command_path
+            raise UserError(_one_line(f"{exc.format_message()}; see `{where} --help`")) from None
+        except (LabelerError, StoreError) as exc:
             raise UserError(_one_line(str(exc))) from None
+        except sqlite3.DatabaseError as exc:  # a project file damaged past what opening checks
+            name = _opened.get("path") or "the project file"
+            raise UserError(_one_line(f"{name}: the project file cannot be read ({exc}); restore it "
+                                      "from a backup")) from None
         except OSError as exc:
             name = getattr(exc, "filename", None) or ""
             raise UserError(_one_line(f"{name}: {exc.strerror or exc}; check the path and "
@@ -42,9 +53,13 @@ def _one_line(text: str) -> str:
     return " ".join(str(text).split())
 
 
+_opened: dict[str, str] = {}  # the project file of this command, for error messages
+
+
 def _open(path: str, annotator: str | None = None, readonly: bool = False):
     from labeler.project import Project
 
+    _opened["path"] = str(path)
     return Project.open(path, annotator=annotator, readonly=readonly)
 
 
@@ -97,7 +112,10 @@ def add_cmd(project, files, rate, time_column, acc_unit, gyr_unit, annotator):
     """Add recording files (CSV or Parquet; globs allowed) to a project: all of them or none."""
     paths: list[str] = []
     for pattern in files:
-        hits = sorted(glob.glob(pattern)) if glob.has_magic(pattern) else [pattern]
+        if os.path.exists(pattern):  # a file name may hold glob characters ([1], *)
+            hits = [pattern]
+        else:
+            hits = sorted(glob.glob(pattern)) if glob.has_magic(pattern) else [pattern]
         if not hits:
             raise UserError(f"{pattern}: matches no file; check the pattern")
         paths.extend(hits)
@@ -149,6 +167,9 @@ def _print_status(p) -> None:
             click.echo("  " + line)
 
 
+MAX_RANGE = 1_000_000
+
+
 def _parse_ids(text: str) -> list[int]:
     ids: list[int] = []
     for part in text.replace(" ", ",").split(","):
@@ -160,6 +181,9 @@ def _parse_ids(text: str) -> list[int]:
                 lo, hi = int(a), int(b)
                 if hi < lo:
                     raise UserError(f"--windows: range {part} runs backwards; write it low-high")
+                if hi - lo >= MAX_RANGE:
+                    raise UserError(f"--windows: range {part} spans more than {MAX_RANGE:,} "
+                                    "windows; give a shorter range or use --span")
                 ids.extend(range(lo, hi + 1))
             else:
                 ids.append(int(part))

@@ -74,8 +74,9 @@ class Project:
     @classmethod
     def create(cls, path: str | os.PathLike, *, window_length_s: float = DEFAULT_LENGTH_S,
                window_step_s: float = DEFAULT_STEP_S, annotator: str | None = None) -> "Project":
-        if not (window_length_s > 0) or not (window_step_s > 0):
-            raise InputError(f"window length and step must be > 0 s (got {window_length_s}, "
+        if not (0 < window_length_s <= 3600) or not (0 < window_step_s <= 3600):
+            raise InputError(f"window length and step must be > 0 s and at most an hour (got "
+                             f"{window_length_s}, "
                              f"{window_step_s}); give e.g. --window 2.56 --step 1.28")
         if window_step_s > window_length_s:
             raise InputError(f"window step {window_step_s} s is longer than the window "
@@ -86,7 +87,11 @@ class Project:
             store = Store.create(path, settings, tool_version=labeler.__version__)
         except StoreError as exc:
             raise ProjectError(str(exc)) from None
-        return cls(store, annotator)
+        try:
+            return cls(store, annotator)
+        except BaseException:  # e.g. a bad annotator name: leave the file closed and as it was
+            store.close()
+            raise
 
     @classmethod
     def open(cls, path: str | os.PathLike, *, annotator: str | None = None,
@@ -95,7 +100,11 @@ class Project:
             store = Store.open(path, readonly=readonly)
         except StoreError as exc:
             raise ProjectError(str(exc)) from None
-        return cls(store, annotator)
+        try:
+            return cls(store, annotator)
+        except BaseException:  # e.g. a bad annotator name: leave the file closed and as it was
+            store.close()
+            raise
 
     def close(self) -> None:
         self.store.close()
@@ -519,7 +528,7 @@ class Project:
         missing = np.setdiff1d(ids, known)
         if missing.size:
             raise InputError(f"window {int(missing[0])} is not in the project (window ids run from "
-                             f"{int(known.min())} to {int(known.max())})")
+                             f"{int(known.min())} to {int(known.max())}); give ids in that range")
         return ids
 
     def undo(self, batch_id: str | None = None) -> str:

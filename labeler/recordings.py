@@ -41,6 +41,7 @@ DEFAULT_MAX_FILL_S = 0.25
 # devices at up to 200 g / 4000 deg/s)
 ABSURD = {"acc": 400.0, "gyr": 40000.0}
 MIN_RATE, MAX_RATE = 1.0, 10000.0
+MAX_GRID_SAMPLES = 5_000_000  # a grid may exceed 10x the file's samples up to this (28 h at 50 Hz)
 
 
 @dataclass
@@ -146,6 +147,15 @@ def _read_table(path: Path, repairs: list[str]) -> pd.DataFrame:
     if not first.strip():
         raise InputError(f"{where}: the first line is empty; the first line must name the columns")
     sep = _sniff_separator(first)
+    names = [c.strip() for c in next(csv.reader([first], delimiter=sep))]
+    if "\n" not in text_head and "\r" not in text_head:
+        names = names[:-1]  # the header goes on past the first block; its last name may be cut
+    seen: set[str] = set()
+    for c in names:
+        if c and c in seen:  # the CSV reader would rename the second one and drop it silently
+            raise InputError(f"{where}: column {c!r} appears twice in the header; rename or drop "
+                             "one")
+        seen.add(c)
     if sep != ",":
         repairs.append(f"read as {'semicolon' if sep == ';' else 'tab'}-separated")
     try:
@@ -263,6 +273,11 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         t = np.arange(len(frame), dtype=np.float64) / rate
     else:
         t, start_time = _time_column(frame[tcol], where, tcol)
+        infinite = np.flatnonzero(~np.isfinite(t))
+        if infinite.size:
+            r = int(infinite[0])
+            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: time {t[r]:g} is not a finite "
+                             "number of seconds; fix the cell")
     if len(t) >= 2:
         dt = np.diff(t)
         back = np.flatnonzero(dt < 0)
@@ -278,7 +293,7 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         nominal_dt = 1.0 / rate if rate is not None else float(np.median(dt))
         if not (nominal_dt > 0 and MIN_RATE <= 1.0 / nominal_dt <= MAX_RATE):
             raise InputError(f"{where}: column {tcol!r}: median time step {nominal_dt:.6g} s is "
-                             "not a sampling rate (give seconds, or --rate HZ)")
+                             "not a sampling rate; give the time in seconds, or --rate HZ")
         small = np.flatnonzero(dt < 0.25 * nominal_dt)
         if small.size:
             r = int(small[0]) + 1
@@ -288,6 +303,14 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         fs = 1.0 / nominal_dt
         if rate is None:
             fs = _tidy_rate(fs)
+        # the uniform grid spans first to last time; pauses fill it with gaps. A grid far larger
+        # than the file means a clock jump, not a pause, and would not fit in memory
+        n_grid = (t[-1] - t[0]) * fs + 1
+        if n_grid > max(10 * len(t), MAX_GRID_SAMPLES):
+            r = int(np.argmax(dt)) + 1
+            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: time jumps from "
+                             f"{t[r - 1]:.6g} to {t[r]:.6g} s, a pause of {dt[r - 1]:.3g} s in "
+                             f"{len(t)} samples; fix the clock or split the recording there")
     else:
         fs = float(rate) if rate is not None else None
         if fs is None:

@@ -162,6 +162,7 @@ class Store:
         self.conn = conn
         self.db = sqlite_utils.Database(conn)
         self._depth = 0
+        self._readonly = False
         # how long this connection waited for the write lock (for benchmarks and diagnostics)
         self.lock_stats = {"transactions": 0, "retries": 0, "worst_wait_s": 0.0,
                            "total_wait_s": 0.0}
@@ -227,12 +228,28 @@ class Store:
         if app_id != APPLICATION_ID:
             raise NotAProjectError(
                 f"{path}: a SQLite file, but not a labeler project; give a file made by `labeler new`")
-        if readonly:
+        # a file shorter than the size its header states was cut (copy or download broke off);
+        # only meaningful without a -wal, which may hold pages a checkpoint had not yet written
+        page_size = int.from_bytes(head[16:18], "big")
+        page_size = 65536 if page_size == 1 else page_size
+        n_pages = int.from_bytes(head[28:32], "big")
+        wal = Path(f"{path}-wal")
+        if (head[24:28] == head[92:96] and n_pages and not (wal.exists() and wal.stat().st_size)
+                and path.stat().st_size < n_pages * page_size):
+            raise NotAProjectError(
+                f"{path}: the project file is truncated ({path.stat().st_size} of "
+                f"{n_pages * page_size} bytes); restore it from a backup")
+        writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
+        if readonly and not writable:
             conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
                                    isolation_level=None, check_same_thread=False)
         else:
+            # a read-only use of a writable file still opens it read-write, with writes refused
+            # (query_only): so the connection removes the -wal it creates when it closes, and a
+            # refused file is left exactly as it was
             conn = cls._connect(path)
         store = cls(path, conn)
+        store._readonly = readonly
         try:
             store._check_and_migrate()
             if not readonly:
@@ -242,6 +259,8 @@ class Store:
                 conn.execute("PRAGMA synchronous = FULL")
             conn.execute("PRAGMA foreign_keys = ON")
             conn.execute("CREATE TEMP TABLE IF NOT EXISTS touched (window_id INTEGER PRIMARY KEY)")
+            if readonly:
+                conn.execute("PRAGMA query_only = ON")
         except sqlite3.DatabaseError as exc:
             conn.close()
             raise NotAProjectError(
@@ -266,6 +285,10 @@ class Store:
             raise NewerSchemaError(
                 f"{self.path}: written by a newer labeler (schema {version}, this one reads up to "
                 f"{SCHEMA_VERSION}); upgrade labeler to open it")
+        if version < SCHEMA_VERSION and getattr(self, "_readonly", False):
+            raise StoreError(
+                f"{self.path}: written by an older labeler (schema {version}); open it once "
+                "for writing (e.g. `labeler open`) to upgrade it, then read it")
         if version < SCHEMA_VERSION:
             with self.atomic():
                 for step in MIGRATIONS[version:]:
@@ -650,12 +673,22 @@ class Store:
         dest = Path(dest)
         if dest.exists():
             raise StoreError(f"{dest}: exists already; choose a new file name for the backup")
+        if not dest.parent.is_dir():
+            raise StoreError(f"{dest}: folder {dest.parent} does not exist; create it first")
+        if dest.resolve() == Path(self.path).resolve():
+            raise StoreError(f"{dest}: is the project itself; choose another file name")
         tmp = dest.with_name(f".{dest.name}.{uuid.uuid4().hex[:8]}.tmp")
         target = sqlite3.connect(str(tmp))
         try:
-            self.conn.backup(target)
+            self.conn.backup(target)  # all pages in one step: one consistent snapshot
             target.execute("PRAGMA journal_mode = DELETE")
+            check = target.execute("PRAGMA integrity_check").fetchone()[0]
+            if check != "ok":
+                raise StoreError(f"{dest}: the copy failed its integrity check ({check}); nothing "
+                                 "written; check the disk and try again")
             target.close()
+            with open(tmp, "rb+") as fh:  # on disk before it takes the final name
+                os.fsync(fh.fileno())
             os.replace(tmp, dest)
         except BaseException:
             target.close()
