@@ -21,7 +21,7 @@ t-SNE parameters chosen from the number of windows N
 - Learning rate ``max(N / 12, 200)`` with early exaggeration 12: Belkina et al., "Automated
   optimized parameters for t-distributed stochastic neighbor embedding improve visualization and
   analysis of large datasets", 2019 (learning rate = N / early exaggeration), also recommended by
-  Kobak & Berens, "The art of using t-SNE for single-cell transcriptomics", 2019. The floor of 200
+  Kobak & Berens, Nature Communications 10:5416, 2019 (journal reference from memory). The floor of 200
   is the classic default for small N (van der Maaten's implementation).
 - Perplexity 30 (Kobak & Berens 2019 keep 30 as the default at every N), lowered to ``(N - 1) / 3``
   for tiny N so that each window has the 3 × perplexity neighbours the affinities need.
