@@ -1065,14 +1065,18 @@ class Project:
             gp = {"n_neighbors": 10, "temporal_weight": DEFAULT_TEMPORAL_WEIGHT, "pca_components": 30}
         W, key, _ = self._graph(gp)
         ids = w["id"].to_numpy(np.int64)
-        labeled = np.isin(ids, self.labels()["window_id"].to_numpy())
+        lab = self.labels()
+        labeled = np.isin(ids, lab["window_id"].to_numpy())
+        # a window confirmed while looked at alone (queue or audit) is not raised as a conflict
+        # again: the person has seen its signal and the proposal; bulk picks are where slips hide
+        looked = np.isin(ids, lab.loc[lab["source"].isin(("queue", "audit")), "window_id"])
         p = self._latest_proposals()
         outputs = None
         if p is not None and p["meta"].get("graph_key") == key and p["window_id"].size == ids.size:
             outputs = WindowOutputs(p["classes"], p["label"], np.zeros((ids.size, 0)),
                                     p["confidence"], p["margin"], p["support"], p["conflict"])
             # a conflict is about the label confirmed at the run; newer confirmations are not
-            outputs.conflict = np.where(p["y"] >= 0, p["conflict"], 0.0)
+            outputs.conflict = np.where((p["y"] >= 0) & ~looked, p["conflict"], 0.0)
         dis = np.isin(ids, self.disagreements())
         excl = np.isin(ids, self._open_audit_windows())
         rid, seq = self._graph_seq()

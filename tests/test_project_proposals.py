@@ -117,6 +117,29 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     assert set(st["window_id"]) <= set(props.index)
 
 
+def test_a_conflict_is_raised_until_someone_looks_at_it_alone(project, sims):
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(40)["window_id"], truth)
+    props = p.refresh_proposals() and p.proposals()
+    # a slip in a bulk pick: a confident, unconfirmed window confirmed as another class
+    open_ = props[~props["confirmed"]].sort_values("confidence", ascending=False)
+    wid = int(open_["window_id"].iloc[0])
+    other = next(c for c in p.active_classes() if c != open_["label"].iloc[0])
+    p.confirm([wid], other, source="map")
+    p.refresh_proposals()
+    q = p.review_queue(20)
+    assert q.loc[q["window_id"] == wid, "reason"].tolist() == ["conflict"]
+    # the annotator looks at it in the queue and keeps the label: it is not raised again
+    p.confirm([wid], other, source="queue")
+    p.refresh_proposals()
+    assert wid not in p.review_queue(20)["window_id"].tolist()
+    # a later bulk pick over it makes it a candidate again
+    p.confirm([wid], other, source="map")
+    p.refresh_proposals()
+    assert wid in p.review_queue(20)["window_id"].tolist()
+
+
 def run(*args):
     r = CliRunner().invoke(cli, [str(x) for x in args], env={"LABELER_ANNOTATOR": "cli-user"})
     return r
