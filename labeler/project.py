@@ -27,7 +27,8 @@ from storage import Store, StoreError
 # Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
 # colorblind people", 2008: eight colours distinguishable with the common colour-vision deficiencies.
 # Black is last; it is used for the eighth class.
-PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000")
+# Okabe & Ito (2008) colours, ordered so that the first classes are the most distinct
+PALETTE = ("#E69F00", "#0072B2", "#009E73", "#CC79A7", "#F0E442", "#56B4E9", "#D55E00", "#000000")
 CHUNK_SECONDS = 60.0
 SOURCES = ("map", "timeline", "queue", "audit", "import", "cli", "api", "class-merge", "undo")
 _CLASS_NAME = re.compile(r"^[^\x00-\x1f\x7f]{1,60}$")

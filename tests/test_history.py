@@ -172,7 +172,7 @@ def test_class_log_through_the_cli(cli_project):
     rows = [ln.split(None, 2)[2] for ln in r.output.splitlines()[1:]]  # drop date and time
     assert [" ".join(x.split()) for x in rows] == [
         "ana add walking name walk, colour #E69F00",
-        "bo add sit name sit, colour #56B4E9",
+        "bo add sit name sit, colour #0072B2",
         "ana rename walking from walk, to walking",
         "bo add amble name amble, colour #009E73",
         "bo merge amble into walking",
