@@ -26,8 +26,8 @@ from storage import Store, StoreError
 
 # Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
 # colorblind people", 2008: eight colours distinguishable with the common colour-vision deficiencies.
-# Black is last; it is used for the eighth class.
-# Okabe & Ito (2008) colours, ordered so that the first classes are the most distinct
+# Ordered so that the first classes get the most distinct (orange, blue, green, purple); the two
+# blues and the two oranges are kept apart. Black is last; it is used for the eighth class.
 PALETTE = ("#E69F00", "#0072B2", "#009E73", "#CC79A7", "#F0E442", "#56B4E9", "#D55E00", "#000000")
 CHUNK_SECONDS = 60.0
 SOURCES = ("map", "timeline", "queue", "audit", "import", "cli", "api", "class-merge", "undo")
@@ -814,15 +814,11 @@ class Project:
     def _export_snapshot(self, attempts: int = 5) -> dict:
         """Labels, proposals and accuracy estimate that belong together: read again when another
         process changed the history while they were being read."""
-        def last_event() -> int:
-            return int(self.store.conn.execute("SELECT coalesce(max(id), 0) FROM events")
-                       .fetchone()[0])
-
         for _ in range(attempts):
-            before = last_event()
+            before = self.store.last_event_id()
             snap = {"windows": self.windows(), "labels": self.labels(), "as_of_event": before}
             snap.update(self._export_proposals())
-            if last_event() == before:
+            if self.store.last_event_id() == before:
                 return snap
         raise ProjectError(f"{self.path}: labels kept changing while the export read them; "
                            "try again when the other annotators pause")
@@ -1042,9 +1038,8 @@ class Project:
         return df.copy()
 
     def _open_audit_windows(self) -> np.ndarray:
-        rows = list(self.store.db["audits"].rows)
         lab = set(self.labels()["window_id"].tolist())
-        return np.array(sorted({r["window_id"] for r in rows} - lab), dtype=np.int64)
+        return np.array(sorted(set(self.store.audited_window_ids()) - lab), dtype=np.int64)
 
     def review_queue(self, n: int = 50) -> pd.DataFrame:
         """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
@@ -1115,22 +1110,15 @@ class Project:
         ids = p["window_id"]
         known = np.isin(ids, w["id"].to_numpy())
         labeled = np.isin(ids, self.labels()["window_id"].to_numpy())
-        in_audit = np.isin(ids, [r["window_id"] for r in self.store.db["audits"].rows])
+        in_audit = np.isin(ids, self.store.audited_window_ids())
         cand = known & ~labeled & ~in_audit & (p["support"] > 0)
         if not cand.any():
             raise InputError(f"{self.path}: no unconfirmed window with a proposal is left to audit")
         seed = random_state if random_state is not None else int.from_bytes(os.urandom(4), "little")
         pick = _draw(cand, int(n), random_state=seed)
-        run = p["meta"]["run_id"]
-        now = utc_now()
-        with self.store.atomic():
-            start = self.store.conn.execute(
-                "SELECT coalesce(max(position), -1) + 1 FROM audits").fetchone()[0]
-            self.store.db["audits"].insert_all(
-                [{"run_id": int(run), "window_id": int(ids[i]), "position": int(start + k),
-                  "drawn_at": now, "drawn_by": self.annotator,
-                  "proposed_class_id": int(p["label"][i]), "confidence": float(p["confidence"][i])}
-                 for k, i in enumerate(pick)])
+        start = self.store.add_audit(
+            p["meta"]["run_id"], self.annotator,
+            [(ids[i], p["label"][i], p["confidence"][i]) for i in pick])
         wi = w.set_index("id").loc[ids[pick]]
         return pd.DataFrame({"window_id": ids[pick], "position": start + np.arange(pick.size),
                              "recording": wi["recording"].to_numpy(),
@@ -1139,8 +1127,7 @@ class Project:
     def audit_status(self) -> pd.DataFrame:
         """Every audited window: window_id, run_id, proposed (at draw time), confidence, answer
         (its current label, None while unanswered), correct."""
-        rows = list(self.store.db["audits"].rows)
-        df = pd.DataFrame(rows, columns=["id", "run_id", "window_id", "position", "drawn_at",
+        df = pd.DataFrame(self.store.audits(), columns=["id", "run_id", "window_id", "position", "drawn_at",
                                          "drawn_by", "proposed_class_id", "confidence"])
         cur = dict(zip(self.labels()["window_id"], self.labels()["class_id"]))
         names = dict(zip(self.classes()["id"], self.classes()["name"]))
