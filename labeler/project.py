@@ -1099,8 +1099,6 @@ class Project:
         """
         from labeler.quality import draw_audit as _draw
 
-        from storage.store import utc_now
-
         if int(n) != n or n < 1:
             raise InputError(f"audit size {n} must be a whole number >= 1; give e.g. 30")
         p = self._latest_proposals()
@@ -1127,8 +1125,9 @@ class Project:
     def audit_status(self) -> pd.DataFrame:
         """Every audited window: window_id, run_id, proposed (at draw time), confidence, answer
         (its current label, None while unanswered), correct."""
-        df = pd.DataFrame(self.store.audits(), columns=["id", "run_id", "window_id", "position", "drawn_at",
-                                         "drawn_by", "proposed_class_id", "confidence"])
+        df = pd.DataFrame(self.store.audits(),
+                          columns=["id", "run_id", "window_id", "position", "drawn_at",
+                                   "drawn_by", "proposed_class_id", "confidence"])
         cur = dict(zip(self.labels()["window_id"], self.labels()["class_id"]))
         names = dict(zip(self.classes()["id"], self.classes()["name"]))
         df["answer_class_id"] = df["window_id"].map(cur)

@@ -529,7 +529,7 @@ class Store:
                 "INSERT INTO batches (id, at, annotator, action, source, n_events, note, undoes) "
                 "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                 (batch_id, now, annotator, action, source, len(changes), note, undoes))
-            first = self.conn.execute("SELECT coalesce(max(id), 0) FROM events").fetchone()[0] + 1
+            first = self.last_event_id() + 1
             self.conn.executemany(
                 "INSERT INTO events (at, annotator, action, window_id, class_id, source, batch_id, "
                 "note) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
@@ -663,6 +663,39 @@ class Store:
     def delete_blobs(self, prefix: str) -> None:
         with self.atomic():
             self.conn.execute("DELETE FROM blobs WHERE key LIKE ?", (prefix.replace("%", "") + "%",))
+
+    # ------------------------------------------------------------------ audits
+    def add_audit(self, run_id: int, drawn_by: str,
+                  picks: Sequence[tuple[int, int, float]]) -> int:
+        """Append one audit draw in one transaction: ``picks`` are (window_id, proposed class id,
+        confidence) in the order they are shown. Positions continue after the last drawn window,
+        so two draws never share one. Returns the position of the first pick."""
+        now = utc_now()
+        with self.atomic():
+            start = self.conn.execute(
+                "SELECT coalesce(max(position), -1) + 1 FROM audits").fetchone()[0]
+            self.conn.executemany(
+                "INSERT INTO audits (run_id, window_id, position, drawn_at, drawn_by, "
+                "proposed_class_id, confidence) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                ((int(run_id), int(w), start + k, now, drawn_by, int(c), float(conf))
+                 for k, (w, c, conf) in enumerate(picks)))
+        return int(start)
+
+    def audits(self) -> list[dict[str, Any]]:
+        """Every audited window in the order drawn: id, run_id, window_id, position, drawn_at,
+        drawn_by, proposed_class_id, confidence."""
+        return [dict(r) for r in self.db.query(
+            "SELECT id, run_id, window_id, position, drawn_at, drawn_by, proposed_class_id, "
+            "confidence FROM audits ORDER BY position, id")]
+
+    def audited_window_ids(self) -> list[int]:
+        """Ids of the windows drawn into any audit (each once, ascending)."""
+        return [r[0] for r in self.conn.execute(
+            "SELECT DISTINCT window_id FROM audits ORDER BY window_id")]
+
+    def last_event_id(self) -> int:
+        """Id of the newest label event (0 before the first); grows with every change of a label."""
+        return int(self.conn.execute("SELECT coalesce(max(id), 0) FROM events").fetchone()[0])
 
     # ------------------------------------------------------------------ checks and copies
     def integrity_check(self) -> str:

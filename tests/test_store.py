@@ -131,3 +131,39 @@ def test_backup_is_consistent_copy(tmp_path, store):
     assert copy.replay() == store.replay()
     assert copy.integrity_check() == "ok"
     copy.close()
+
+
+def test_audit_draws_keep_positions_and_order(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    run = store.add_run("proposals", {}, {})
+    assert store.audits() == [] and store.audited_window_ids() == []
+    assert store.add_audit(run, "ann", [(5, c1, 0.9), (2, c1, 0.5)]) == 0
+    # a second draw continues after the first, so no two picks share a position
+    assert store.add_audit(run, "bea", [(7, c1, 0.75)]) == 2
+    rows = store.audits()
+    assert [(r["window_id"], r["position"], r["drawn_by"]) for r in rows] == [
+        (5, 0, "ann"), (2, 1, "ann"), (7, 2, "bea")]
+    assert [r["confidence"] for r in rows] == [0.9, 0.5, 0.75]
+    assert {r["run_id"] for r in rows} == {run} and {r["proposed_class_id"] for r in rows} == {c1}
+    assert rows[0]["drawn_at"].endswith("Z")
+    assert store.audited_window_ids() == [2, 5, 7]
+
+
+def test_audit_draw_is_all_or_nothing(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    store.add_audit(1, "ann", [(1, c1, 0.5)])
+    with pytest.raises(ValueError):
+        store.add_audit(1, "ann", [(2, c1, 0.5), (3, c1, "not a number")])
+    assert [r["window_id"] for r in store.audits()] == [1]
+
+
+def test_last_event_id_follows_the_history(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    assert store.last_event_id() == 0
+    store.apply_batch("ann", "confirm", "cli", [(1, c1), (2, c1)])
+    assert store.last_event_id() == max(e["id"] for e in store.events()) == 2
+    store.apply_batch("ann", "withdraw", "cli", [(1, None)])
+    assert store.last_event_id() == 3
