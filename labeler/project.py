@@ -21,7 +21,8 @@ import labeler
 from labeler import features as _features
 from labeler.errors import InputError, LabelerError, ProjectError
 from labeler.recordings import Recording, read_recording
-from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+from labeler.windows import (DEFAULT_LENGTH_S, DEFAULT_STEP_S, check_window_settings, cut_windows,
+                             window_samples)
 from storage import Store, StoreError
 
 # Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
@@ -75,14 +76,8 @@ class Project:
     @classmethod
     def create(cls, path: str | os.PathLike, *, window_length_s: float = DEFAULT_LENGTH_S,
                window_step_s: float = DEFAULT_STEP_S, annotator: str | None = None) -> "Project":
-        if not (0 < window_length_s <= 3600) or not (0 < window_step_s <= 3600):
-            raise InputError(f"window length and step must be > 0 s and at most an hour (got "
-                             f"{window_length_s}, "
-                             f"{window_step_s}); give e.g. --window 2.56 --step 1.28")
-        if window_step_s > window_length_s:
-            raise InputError(f"window step {window_step_s} s is longer than the window "
-                             f"{window_length_s} s; samples in between would never be labeled")
-        settings = {"window_length_s": float(window_length_s), "window_step_s": float(window_step_s),
+        window_length_s, window_step_s = check_window_settings(window_length_s, window_step_s)
+        settings = {"window_length_s": window_length_s, "window_step_s": window_step_s,
                     "feature_set_version": _features.FEATURE_SET_VERSION}
         try:
             store = Store.create(path, settings, tool_version=labeler.__version__)

@@ -12,8 +12,43 @@ import math
 
 import numpy as np
 
+from labeler.errors import InputError
+
 DEFAULT_LENGTH_S = 2.56
 DEFAULT_STEP_S = 1.28
+MAX_SECONDS = 3600.0  # an hour: longer windows hold several activities
+
+
+def _seconds(value) -> float | None:
+    """``value`` as a float, None when it is no number at all."""
+    if isinstance(value, bool):
+        return None
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return None
+
+
+def check_window_settings(length_s, step_s) -> tuple[float, float]:
+    """The window length and step of a project, checked; InputError names the option and the fix.
+
+    Both must be finite numbers of seconds, > 0 and at most an hour, and the step no longer than
+    the window (a longer step would leave samples between windows that no window holds).
+    """
+    length, step = _seconds(length_s), _seconds(step_s)
+    if length is None or not (0 < length <= MAX_SECONDS):
+        shown = length_s if length is None else f"{length:g}"
+        raise InputError(f"--window {shown}: the window length must be a number of seconds > 0 "
+                         f"and at most {MAX_SECONDS:g}; give e.g. --window {DEFAULT_LENGTH_S:g}")
+    if step is None or not (0 < step <= MAX_SECONDS):
+        shown = step_s if step is None else f"{step:g}"
+        raise InputError(f"--step {shown}: the step between windows must be a number of seconds "
+                         f"> 0 and at most {MAX_SECONDS:g}; give e.g. --step {DEFAULT_STEP_S:g}")
+    if step > length:
+        raise InputError(f"--step {step:g}: longer than the window ({length:g} s), so samples "
+                         f"between windows would never be labeled; give a step of at most "
+                         f"{length:g}")
+    return length, step
 
 
 def window_samples(rate: float, length_s: float, step_s: float) -> tuple[int, int]:
@@ -24,6 +59,8 @@ def window_samples(rate: float, length_s: float, step_s: float) -> tuple[int, in
         raise ValueError(f"window length must be > 0 s and finite, got {length_s}")
     if not (0 < step_s < math.inf):
         raise ValueError(f"window step must be > 0 s and finite, got {step_s}")
+    if step_s > length_s:
+        raise ValueError(f"window step {step_s} s must not be longer than the window {length_s} s")
     length = max(1, int(round(length_s * rate)))
     step = max(1, int(round(step_s * rate)))
     return length, step

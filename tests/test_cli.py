@@ -1,3 +1,5 @@
+import pytest
+
 from click.testing import CliRunner
 
 from labeler.cli import cli
@@ -65,3 +67,35 @@ def test_errors_are_one_line_exit_2(tmp_path, write_csv):
     assert r.exit_code == 2 and first_line(r) == "Error: nothing to undo for annotator 'cli-user'"
     for result in (r,):
         assert "Traceback" not in result.output
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--window", "inf"], "--window inf: the window length must be a number of seconds > 0 and at "
+                          "most 3600; give e.g. --window 2.56"),
+    (["--window", "nan"], "--window nan: the window length must be a number of seconds > 0 and at "
+                          "most 3600; give e.g. --window 2.56"),
+    (["--window", "0"], "--window 0: the window length must be a number of seconds > 0 and at "
+                        "most 3600; give e.g. --window 2.56"),
+    (["--window", "-2"], "--window -2: the window length must be a number of seconds > 0 and at "
+                         "most 3600; give e.g. --window 2.56"),
+    (["--step", "inf"], "--step inf: the step between windows must be a number of seconds > 0 and "
+                        "at most 3600; give e.g. --step 1.28"),
+    (["--step", "nan"], "--step nan: the step between windows must be a number of seconds > 0 and "
+                        "at most 3600; give e.g. --step 1.28"),
+    (["--step", "0"], "--step 0: the step between windows must be a number of seconds > 0 and "
+                      "at most 3600; give e.g. --step 1.28"),
+    (["--window", "2", "--step", "3"], "--step 3: longer than the window (2 s), so samples between "
+                                       "windows would never be labeled; give a step of at most 2"),
+])
+def test_new_refuses_bad_window_settings(tmp_path, args, message):
+    proj = tmp_path / "p.labeler"
+    r = run("new", proj, *args)
+    assert r.exit_code == 2
+    assert first_line(r) == f"Error: {message}"
+    assert len(r.stderr.strip().splitlines()) == 1
+    assert list(tmp_path.iterdir()) == []  # nothing written, not even a temporary file
+
+
+def test_new_accepts_step_equal_to_window(tmp_path):
+    r = run("new", tmp_path / "p.labeler", "--window", "2", "--step", "2")
+    assert r.exit_code == 0 and r.output == f"created {tmp_path / 'p.labeler'} (windows 2 s, step 2 s)\n"

@@ -143,3 +143,17 @@ def test_import_intervals(project, tmp_path):
     f.write_text("recording,start,end,label\nzeta,1,6,walking\n")
     with pytest.raises(InputError, match="row 2, column 'recording': no recording 'zeta'"):
         project.import_intervals(f)
+
+
+@pytest.mark.parametrize("length, step, option", [
+    (float("inf"), 1.28, "--window inf"), (float("nan"), 1.28, "--window nan"),
+    (0, 1.28, "--window 0"), (-1.0, 1.28, "--window -1"), ("long", 1.28, "--window long"),
+    (None, 1.28, "--window None"), (2.56, float("inf"), "--step inf"),
+    (2.56, float("nan"), "--step nan"), (2.56, -0.5, "--step -0.5"), (2.56, 3.0, "--step 3"),
+])
+def test_create_refuses_bad_window_settings(tmp_path, length, step, option):
+    with pytest.raises(InputError) as info:
+        Project.create(tmp_path / "p.labeler", window_length_s=length, window_step_s=step)
+    msg = str(info.value)
+    assert msg.startswith(f"{option}: ") and "give" in msg and "\n" not in msg
+    assert list(tmp_path.iterdir()) == []

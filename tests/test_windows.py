@@ -25,7 +25,7 @@ def test_defaults_at_50_hz():
     assert window_samples(1.0, 0.1, 0.1) == (1, 1)  # at least one sample
     inf, nan = float("inf"), float("nan")
     for bad in ((0.0, 1.0, 1.0), (50.0, 0.0, 1.0), (50.0, 1.0, -1.0), (nan, 1, 1), (inf, 1, 1),
-                (50.0, inf, 1.0), (50.0, 1.0, inf), (50.0, nan, 1.0)):
+                (50.0, inf, 1.0), (50.0, 1.0, inf), (50.0, nan, 1.0), (50.0, 1.0, 1.5)):
         with pytest.raises(ValueError):
             window_samples(*bad)
 
