@@ -63,6 +63,21 @@ def _open(path: str, annotator: str | None = None, readonly: bool = False):
     return Project.open(path, annotator=annotator, readonly=readonly)
 
 
+def _progress_bar(label: str):
+    """A progress bar on stderr (hidden when it is no terminal) and the callback that moves it."""
+    bar = click.progressbar(length=1000, label=label, file=sys.stderr, show_eta=False,
+                            hidden=not sys.stderr.isatty())
+    state = {"done": 0}
+
+    def progress(frac, _msg):
+        step = int(frac * 1000) - state["done"]
+        if step > 0:
+            bar.update(step)
+            state["done"] += step
+
+    return bar, progress
+
+
 annotator_option = click.option(
     "--annotator", "-a", envvar="LABELER_ANNOTATOR", default=None, metavar="NAME",
     help="Who is labeling (default: $LABELER_ANNOTATOR or your login name).")
@@ -120,16 +135,8 @@ def add_cmd(project, files, rate, time_column, acc_unit, gyr_unit, annotator):
             raise UserError(f"{pattern}: matches no file; check the pattern")
         paths.extend(hits)
     with _open(project, annotator) as p:
-        with click.progressbar(length=1000, label="adding", file=sys.stderr, show_eta=False,
-                               hidden=not sys.stderr.isatty()) as bar:
-            state = {"done": 0}
-
-            def progress(frac, _msg):
-                step = int(frac * 1000) - state["done"]
-                if step > 0:
-                    bar.update(step)
-                    state["done"] += step
-
+        bar, progress = _progress_bar("adding")
+        with bar:
             added = p.add_recordings(paths, rate=rate, time_column=time_column,
                                      acc_unit=acc_unit, gyr_unit=gyr_unit, progress=progress)
         for a in added:
@@ -571,20 +578,6 @@ def agreement_cmd(project):
 
 # ------------------------------------------------------------------------------ proposals
 
-def _progress_bar(label: str):
-    bar = click.progressbar(length=1000, label=label, file=sys.stderr, show_eta=False,
-                            hidden=not sys.stderr.isatty())
-    state = {"done": 0}
-
-    def progress(frac, _msg):
-        step = int(frac * 1000) - state["done"]
-        if step > 0:
-            bar.update(step)
-            state["done"] += step
-
-    return bar, progress
-
-
 @cli.command("propose")
 @project_argument
 @click.option("--alpha", type=float, default=None, metavar="A",
@@ -683,16 +676,8 @@ def accuracy_cmd(project, annotator):
 def map_cmd(project, method, seed, jobs, annotator):
     """Compute the 2-D map of every window (a full re-fit) and store it in the project."""
     with _open(project, annotator) as p:
-        with click.progressbar(length=1000, label="map", file=sys.stderr, show_eta=False,
-                               hidden=not sys.stderr.isatty()) as bar:
-            state = {"done": 0}
-
-            def progress(frac, _msg):
-                step = int(frac * 1000) - state["done"]
-                if step > 0:
-                    bar.update(step)
-                    state["done"] += step
-
+        bar, progress = _progress_bar("map")
+        with bar:
             out = p.compute_map(method, progress=progress, random_state=seed, n_jobs=jobs)
         click.echo(f"map run {out['run_id']} ({out['method']}): {out['n_windows']} windows, "
                    f"{out['n_fitted']} fitted, {out['seconds']:.1f} s")

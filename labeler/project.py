@@ -79,21 +79,18 @@ class Project:
         window_length_s, window_step_s = check_window_settings(window_length_s, window_step_s)
         settings = {"window_length_s": window_length_s, "window_step_s": window_step_s,
                     "feature_set_version": _features.FEATURE_SET_VERSION}
-        try:
-            store = Store.create(path, settings, tool_version=labeler.__version__)
-        except StoreError as exc:
-            raise ProjectError(str(exc)) from None
-        try:
-            return cls(store, annotator)
-        except BaseException:  # e.g. a bad annotator name: leave the file closed and as it was
-            store.close()
-            raise
+        return cls._with_store(lambda: Store.create(path, settings, tool_version=labeler.__version__),
+                               annotator)
 
     @classmethod
     def open(cls, path: str | os.PathLike, *, annotator: str | None = None,
              readonly: bool = False) -> "Project":
+        return cls._with_store(lambda: Store.open(path, readonly=readonly), annotator)
+
+    @classmethod
+    def _with_store(cls, make_store, annotator: str | None) -> "Project":
         try:
-            store = Store.open(path, readonly=readonly)
+            store = make_store()
         except StoreError as exc:
             raise ProjectError(str(exc)) from None
         try:

@@ -613,18 +613,7 @@ class Store:
 
     def replay(self) -> tuple[dict[tuple[int, str], int], dict[int, int]]:
         """Recompute (annotations, current labels) from the events alone, without touching tables."""
-        ann: dict[tuple[int, str], tuple[int, int]] = {}
-        for eid, who, w, c in self.conn.execute(
-                "SELECT id, annotator, window_id, class_id FROM events ORDER BY id"):
-            if c is None:
-                ann.pop((w, who), None)
-            else:
-                ann[(w, who)] = (c, eid)
-        current: dict[int, tuple[int, int]] = {}
-        for (w, _who), (c, eid) in ann.items():
-            if w not in current or eid > current[w][1]:
-                current[w] = (c, eid)
-        return ({k: v[0] for k, v in ann.items()}, {w: v[0] for w, v in current.items()})
+        return replay_events(self.conn)
 
     # ------------------------------------------------------------------ runs and results
     def add_run(self, kind: str, params: dict, summary: dict, created_by: str = "") -> int:
@@ -728,6 +717,27 @@ class Store:
             with contextlib.suppress(FileNotFoundError):
                 tmp.unlink()
             raise
+
+
+def replay_events(conn: sqlite3.Connection) -> tuple[dict[tuple[int, str], int], dict[int, int]]:
+    """(annotations, current labels) recomputed from the ``events`` table alone, read through
+    ``conn`` (any connection to a project file; the caller decides on the read transaction).
+
+    An event sets (class id) or withdraws (None) one annotator's label of a window; of the
+    annotators' labels of a window, the one set by the most recent event is the current label.
+    """
+    ann: dict[tuple[int, str], tuple[int, int]] = {}
+    for eid, who, w, c in conn.execute(
+            "SELECT id, annotator, window_id, class_id FROM events ORDER BY id"):
+        if c is None:
+            ann.pop((w, who), None)
+        else:
+            ann[(w, who)] = (c, eid)
+    current: dict[int, tuple[int, int]] = {}
+    for (w, _who), (c, eid) in ann.items():
+        if w not in current or eid > current[w][1]:
+            current[w] = (c, eid)
+    return ({k: v[0] for k, v in ann.items()}, {w: v[0] for w, v in current.items()})
 
 
 def _py(values: Sequence) -> list:

@@ -96,27 +96,18 @@ def read_snapshot(conn: sqlite3.Connection) -> dict:
             orphans += 1
     ann_rows = conn.execute("SELECT window_id, annotator, class_id FROM annotations").fetchall()
     cur_rows = conn.execute("SELECT window_id, class_id FROM current_labels").fetchall()
-    # replay from the events alone (the same rule as storage.Store.replay, recomputed here)
-    ann: dict[tuple[int, str], tuple[int, int]] = {}
-    for eid, who, w, c in conn.execute(
-            "SELECT id, annotator, window_id, class_id FROM events ORDER BY id"):
-        if c is None:
-            ann.pop((w, who), None)
-        else:
-            ann[(w, who)] = (c, eid)
-    current: dict[int, tuple[int, int]] = {}
-    for (w, _who), (c, eid) in ann.items():
-        if w not in current or eid > current[w][1]:
-            current[w] = (c, eid)
+    # replay from the events alone, through this connection (same read transaction as above)
+    from storage.store import replay_events
+
+    ann, current = replay_events(conn)
     return {
         "batches": batches,
         "events": events,
         "orphan_events": orphans,
         "partial": sorted(b for b, info in batches.items()
                           if len(events.get(b, [])) != info["n_events"]),
-        "annotations_ok": {(w, who): c for w, who, c in ann_rows}
-        == {k: v[0] for k, v in ann.items()},
-        "current_ok": dict(cur_rows) == {w: v[0] for w, v in current.items()},
+        "annotations_ok": {(w, who): c for w, who, c in ann_rows} == ann,
+        "current_ok": dict(cur_rows) == current,
     }
 
 
