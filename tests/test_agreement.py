@@ -154,6 +154,27 @@ def test_project_agreement_and_disagreements(project):
     assert project.labels().set_index("window_id").at[w, "annotator"] == "bo"
 
 
+def test_withdrawing_hands_the_window_back_and_disagreements_head_the_queue(project):
+    ana, bo = project, Project(project.store, annotator="bo")
+    ana.confirm([5, 6], "sit")
+    bo.confirm([5], "walk")
+    ana.confirm([6], "lift")  # ana changes her mind; bo never labeled window 6
+    cur = lambda: project.labels().set_index("window_id")["class"].to_dict()  # noqa: E731
+    assert cur()[5] == "walk" and cur()[6] == "lift"  # the most recent confirmation wins
+    assert project.disagreements().tolist() == [5]
+    q = project.review_queue(10)
+    assert q["window_id"].iloc[0] == 5 and q["reason"].iloc[0] == "disagreement"
+    bo.withdraw([5])  # back to ana's label, the most recent one left
+    assert cur()[5] == "sit" and project.disagreements().tolist() == []
+    assert "disagreement" not in set(project.review_queue(10)["reason"])
+    ana.withdraw([6])  # nobody else labeled it: unlabeled again
+    assert 6 not in cur()
+    bo.confirm([5], "lift")
+    ana.confirm([5], "walk")
+    ana.withdraw([5])  # ana's older label "sit" was replaced, so bo's "lift" is what is left
+    assert cur()[5] == "lift"
+
+
 def test_agreement_report_without_double_labels():
     ann = pd.DataFrame({"window_id": [1, 2], "annotator": ["a", "b"], "label": ["x", "y"]})
     rep = agreement_report(ann)
