@@ -103,6 +103,14 @@ def _div_text(driver, name):
         f"return Bokeh.documents[0].get_model_by_name('{name}').text;")
 
 
+def _confirmed_line(counts_html):
+    """'N of M windows confirmed' from the counts panel (the proposed column moves with each
+    background refresh)."""
+    import re
+
+    return re.search(r"\d+ of \d+ windows confirmed", counts_html).group(0)
+
+
 def _key(driver, key):
     from selenium.webdriver.common.action_chains import ActionChains
 
@@ -116,7 +124,7 @@ def test_page_shows_every_window_and_a_key_confirms_and_undoes(driver, served):
         events_before = len(p.history())
     got = _open(driver, srv.url)
     assert got == n
-    counts0 = _div_text(driver, "counts")
+    counts0 = _confirmed_line(_div_text(driver, "counts"))
     # pick a window that is not confirmed yet, as a click on the map would
     with Project.open(path, readonly=True) as p:
         confirmed = set(p.labels()["window_id"])
@@ -128,7 +136,8 @@ def test_page_shows_every_window_and_a_key_confirms_and_undoes(driver, served):
           "the pick to reach the app")
     driver.find_element("tag name", "body").click()
     _key(driver, "1")
-    _wait(lambda: _div_text(driver, "counts") != counts0 or None, 20, "the counts to change")
+    _wait(lambda: _confirmed_line(_div_text(driver, "counts")) != counts0 or None, 20,
+          "the counts to change")
 
     def events():
         with Project.open(path, readonly=True) as p:
@@ -146,7 +155,8 @@ def test_page_shows_every_window_and_a_key_confirms_and_undoes(driver, served):
     _key(driver, "u")
     ev = _wait(lambda: (lambda e: e if e.iloc[-1]["source"] == "undo" else None)(events()), 20,
                "the undo event")
-    _wait(lambda: _div_text(driver, "counts") == counts0 or None, 20, "the counts to return")
+    _wait(lambda: _confirmed_line(_div_text(driver, "counts")) == counts0 or None, 20,
+          "the counts to return")
     assert driver.execute_script("return window.__alerts.length") == 0
 
 
@@ -169,3 +179,19 @@ def test_hostile_class_name_renders_as_text(driver, served):
     assert driver.execute_script("return window.__alerts.length") == 0
     ARTIFACTS.mkdir(exist_ok=True)
     driver.save_screenshot(str(ARTIFACTS / "app_class_name_as_text.png"))
+
+
+def test_map_is_drawn_the_way_the_address_says(driver, served):
+    """?draw=webgl forces WebGL; without it a browser lacking a fast WebGL reloads once with
+    ?draw=canvas; the header names what the map is drawn with."""
+    srv, _path = served
+    _open(driver, srv.url + "?draw=webgl")
+    assert driver.current_url.endswith("?draw=webgl")
+    assert "drawn with WebGL" in _div_text(driver, "header")
+    _open(driver, srv.url)
+    _wait(lambda: _div_text(driver, "header"), 20, "the header")
+    header = _div_text(driver, "header")
+    if "draw=canvas" in driver.current_url:
+        assert "drawn with canvas" in header
+    else:
+        assert "draw=" not in driver.current_url and "drawn with WebGL" in header

@@ -291,3 +291,19 @@ def test_proposals_queue_accept_skip_and_audit(app):
     app.press("1")
     ev = _events(app.project.path, source="audit")
     assert ev.iloc[-1]["window_id"] == item.window_id
+
+
+def test_map_backend_is_chosen_by_draw(tmp_path):
+    from bokeh.document import Document
+
+    from labeler.app.document import build_document
+
+    path = make_project(tmp_path)
+    a = build_document(Document(), path, "ann", background=False, draw="canvas")
+    assert a.map_fig.output_backend == "canvas" and "drawn with canvas" in a.root.children[0].text
+    a.close()
+    b = build_document(Document(), path, "ann", background=False)
+    assert b.map_fig.output_backend == "webgl"
+    b.close()
+    with pytest.raises(ValueError, match="draw must be one of"):
+        build_document(Document(), path, "ann", background=False, draw="svg")

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
-from bokeh.events import SelectionGeometry, Tap
+from bokeh.events import DocumentReady, SelectionGeometry, Tap
 from bokeh.layouts import column, row
 from bokeh.models import (BoxAnnotation, BoxSelectTool, Button, ColumnDataSource, CustomJS,
                           CustomJSHover, Div, FixedTicker, HoverTool, InlineStyleSheet,
@@ -29,7 +29,7 @@ from labeler.app.timeline import segments
 from labeler.errors import LabelerError
 
 NONE_COLOUR = "#BDBDBD"          # windows with no label and no proposal
-MAP_W, MAP_H, SIDE_W = 640, 500, 400
+MAP_W, MAP_H, SIDE_W = 720, 500, 420
 WIDE_W = MAP_W + SIDE_W + 20
 CONTEXT_S = 4.0                  # seconds of signal shown either side of the picked window
 AXIS_COLOURS = ("#0072B2", "#D55E00", "#009E73")   # x, y, z (Okabe & Ito 2008 colours)
@@ -63,19 +63,56 @@ if (window.__labeler_keys__ == null) {
 """
 
 
+# Runs in the page's <head>, before BokehJS loads: a browser whose WebGL is software-rendered (no
+# GPU, e.g. a headless or remote machine) draws 100k points far slower with WebGL than on a 2-D
+# canvas, so the page reloads itself once with ?draw=canvas. ?draw=webgl or ?draw=canvas in the
+# address forces either.
+_DRAW_PROBE = """
+{% block preamble %}<script>
+(function () {
+  const url = new URL(window.location.href);
+  if (url.searchParams.has("draw")) return;
+  let fast = false;
+  try {
+    const c = document.createElement("canvas");
+    fast = !!c.getContext("webgl", {failIfMajorPerformanceCaveat: true});
+  } catch (e) { fast = false; }
+  if (!fast) { url.searchParams.set("draw", "canvas"); window.location.replace(url.toString()); }
+})();
+</script>{% endblock %}
+"""
+DRAW_BACKENDS = ("webgl", "canvas")
+
+
+def _requested_draw(doc) -> str | None:
+    ctx = getattr(doc, "session_context", None)
+    request = getattr(ctx, "request", None) if ctx is not None else None
+    args = getattr(request, "arguments", None) or {}
+    got = args.get("draw")
+    if not got:
+        return None
+    value = got[0].decode("ascii", "replace") if isinstance(got[0], bytes) else str(got[0])
+    return value if value in DRAW_BACKENDS else None
+
+
 def build_document(doc, project_path: str | os.PathLike, annotator: str | None = None, *,
-                   project=None, background: bool = True) -> "LabelerApp":
+                   project=None, background: bool = True, draw: str | None = None) -> "LabelerApp":
     """Build the app on ``doc`` over the project file; return the session's app object.
 
     ``project``: an already open :class:`Project` (the session then owns it); by default the file is
     opened once for this session. ``background=False`` computes proposals in the calling thread
-    (tests).
+    (tests). ``draw``: "webgl" (default) or "canvas" for the map; in a served session the page's
+    ``?draw=`` argument decides, and a browser without a GPU asks for the canvas by itself.
     """
     from labeler.project import Project
 
+    draw = draw or _requested_draw(doc) or "webgl"
+    if draw not in DRAW_BACKENDS:
+        raise ValueError(f"draw must be one of {DRAW_BACKENDS}, got {draw!r}")
     if project is None:
         project = Project.open(project_path, annotator=annotator)
-    app = LabelerApp(doc, project, background=background)
+    app = LabelerApp(doc, project, background=background, draw=draw)
+    doc.template = _DRAW_PROBE
     doc.on_session_destroyed(lambda _ctx: app.close())
     return app
 
@@ -83,8 +120,9 @@ def build_document(doc, project_path: str | os.PathLike, annotator: str | None =
 class LabelerApp:
     """Panels and callbacks of one session."""
 
-    def __init__(self, doc, project, *, background: bool = True):
+    def __init__(self, doc, project, *, background: bool = True, draw: str = "webgl"):
         self.doc = doc
+        self.draw = draw
         self.project = project
         self.state = SessionState(project)
         self.background = background
@@ -103,7 +141,12 @@ class LabelerApp:
         self._build()
         doc.title = f"labeler · {Path(str(project.path)).name}"
         if has_proposals_api(project) and (self.state.confirmed >= 0).any():
-            self.request_proposals()         # brings the accuracy estimate too, off the page
+            # brings the accuracy estimate too, off the page; in a served session only once the
+            # page has loaded, so a page that reloads itself (see _DRAW_PROBE) costs no run
+            if getattr(doc, "session_context", None) is not None:
+                doc.on_event(DocumentReady, lambda _e: self.request_proposals())
+            else:
+                self.request_proposals()
 
     # ================================================================== building
     def _build(self) -> None:
@@ -131,8 +174,8 @@ class LabelerApp:
         self.caution = Div(text=f"<div style='color:#5a4500;background:#fff6d6;padding:6px 10px;"
                                 f"border-radius:4px'>&#9888; {html.escape(CAUTION)}</div>",
                            width=WIDE_W, name="caution")
-        top = row(column(self.map_bar, self.map_fig), self.side)
-        self.root = column(header, top, self.signal_box, self.timeline_fig, self.caution,
+        top = row(column(self.map_bar, self.map_fig, self.signal_box), self.side)
+        self.root = column(header, self.caution, top, self.timeline_fig,
                            self.key_bus, name="labeler_root")
         self.doc.add_root(self.root)
         self._refresh_side()
@@ -144,7 +187,8 @@ class LabelerApp:
                 f"<span style='font-size:20px;font-weight:600'>labeler</span>"
                 f"<span>{html.escape(Path(str(p.path)).name)}</span>"
                 f"<span style='color:#555'>{len(s.rec_names)} recording(s) · {hours:.2f} h · "
-                f"{s.n} windows · map: {html.escape(s.map_kind)}</span>"
+                f"{s.n} windows · map: {html.escape(s.map_kind)} · drawn with "
+                f"{'WebGL' if self.draw == 'webgl' else 'canvas (no GPU found)'}</span>"
                 f"<span style='margin-left:auto'>annotator <b>{html.escape(p.annotator)}</b></span>"
                 f"</div>")
 
@@ -172,7 +216,7 @@ class LabelerApp:
         self.map_src = ColumnDataSource(self._map_data(), name="map_source")
         self.confirmed_src = ColumnDataSource(self._confirmed_data(), name="confirmed_source")
         self.focus_src = ColumnDataSource({"x": [], "y": []})
-        p = figure(width=MAP_W, height=MAP_H, output_backend="webgl", tools=[],
+        p = figure(width=MAP_W, height=MAP_H, output_backend=self.draw, tools=[],
                    toolbar_location="above", name="map", match_aspect=False)
         p.title.text = "Windows (similar movements sit together) — drag to select"
         p.xaxis.visible = p.yaxis.visible = False
@@ -257,14 +301,14 @@ class LabelerApp:
 
     def _build_signal(self) -> None:
         self.signal_title = Div(text="<b>Signal</b> <span style='color:#555'>— pick a window on "
-                                     "the map, the timeline or the queue</span>", width=WIDE_W)
+                                     "the map, the timeline or the queue</span>", width=MAP_W)
         self.signal_x = Range1d(0, 10)
         self.signal_figs, self.signal_srcs, self.signal_spans = [], {}, []
         self._acc_ranges, self._gyr_ranges = {}, {}
         for site, chans in self._sites().items():
             src = ColumnDataSource({"t": np.zeros(0)} | {c: np.zeros(0) for c in chans})
             acc_r, gyr_r = Range1d(-1, 1), Range1d(-1, 1)
-            f = figure(width=WIDE_W, height=150, x_range=self.signal_x, y_range=acc_r,
+            f = figure(width=MAP_W, height=150, x_range=self.signal_x, y_range=acc_r,
                        tools="xpan,xwheel_zoom,reset", toolbar_location=None,
                        name=f"signal_{site}")
             f.extra_y_ranges = {"gyr": gyr_r}
@@ -539,7 +583,8 @@ class LabelerApp:
             return
         r = item.row
         words = self._window_words(r, hide_proposal=audit)
-        why = f"<div style='color:#555'>{html.escape(item.reason)}</div>" if item.reason else ""
+        why = (f"<div style='color:#555'>why: {html.escape(_reason_words(item.reason))}</div>"
+               if item.reason else "")
         self.queue_div.text = (
             f"<div><b>{'Audit' if audit else 'Review'} {s.queue_pos + 1} of {len(s.queue)}</b>"
             f" · window {item.window_id} · {html.escape(s.rec_names[s.rec_code[r]])} "
@@ -827,6 +872,18 @@ class LabelerApp:
             pass
 
 
+REASON_WORDS = {
+    "conflict": "confirmed, but its neighbours point to another class — check the label",
+    "disagreement": "annotators gave it different labels",
+    "uncertain": "the proposal is unsure between two classes",
+    "unexplored": "nothing confirmed nearby yet",
+}
+
+
+def _reason_words(reason: str) -> str:
+    return REASON_WORDS.get(reason, reason)
+
+
 def _limits(vals: list[np.ndarray]) -> tuple[float, float]:
     if not vals:
         return -1.0, 1.0
@@ -839,28 +896,36 @@ def _limits(vals: list[np.ndarray]) -> tuple[float, float]:
     return lo - pad, hi + pad
 
 
+def _pct(v) -> str:
+    return f"{float(v):.0%}"
+
+
 def _estimate_html(est: dict) -> str:
+    """The accuracy block: an audit's figure as the headline; cross-validation only as a hint."""
+    from labeler.quality import MIN_AUDIT
+
     if "text" in est and len(est) == 1:
         return f"<span style='color:#555'>{html.escape(str(est['text']))}</span>"
-    acc = est.get("accuracy", est.get("estimate"))
-    lo = est.get("low", est.get("lower", est.get("ci_low")))
-    hi = est.get("high", est.get("upper", est.get("ci_high")))
-    basis = est.get("basis", est.get("method", est.get("rests_on", "")))
-    n = est.get("n", est.get("n_audited", est.get("n_checked")))
-    parts = []
-    if acc is not None:
-        head = f"<b>Estimated accuracy {float(acc):.0%}</b>"
-        if lo is not None and hi is not None:
-            head += f" (95% interval {float(lo):.0%}–{float(hi):.0%})"
-        parts.append(head)
-    rest = []
-    if basis:
-        rest.append(html.escape(str(basis)))
-    if n is not None:
-        rest.append(f"from {int(n)} windows")
-    if rest:
-        parts.append("<span style='color:#555'>rests on: " + ", ".join(rest) + "</span>")
-    note = est.get("note") or est.get("caveat")
-    if note:
-        parts.append(f"<span style='color:#555'>{html.escape(str(note))}</span>")
-    return "<br>".join(parts) or "<span style='color:#555'>no accuracy estimate yet</span>"
+    basis = str(est.get("basis", ""))
+    acc, lo, hi = est.get("accuracy", est.get("value")), est.get("low"), est.get("high")
+    n = int(est.get("n") or 0)
+    grey = "<span style='color:#555'>{}</span>"
+    if basis == "audit" and acc is not None:
+        parts = [f"<b>Proposals are right {_pct(acc)} of the time</b> (95% interval "
+                 f"{_pct(lo)}–{_pct(hi)})",
+                 grey.format(f"rests on: an audit of {n} randomly drawn windows you labeled "
+                             "without seeing the proposal")]
+        ts = est.get("training_set")
+        if isinstance(ts, dict) and ts.get("value") is not None:
+            parts.append(f"Training set (confirmed windows counted right): {_pct(ts['value'])} "
+                         f"({_pct(ts['low'])}–{_pct(ts['high'])})")
+        return "<br>".join(parts)
+    head = (f"<b>No unbiased accuracy estimate yet</b> — press Audit and label {MIN_AUDIT} "
+            "random windows.")
+    if basis == "cross-validation" and acc is not None:
+        return head + "<br>" + grey.format(
+            f"Until then, a hint only: cross-validation on your {n} confirmed windows gives "
+            f"{_pct(acc)} ({_pct(lo)}–{_pct(hi)}); optimistic, since confirmed windows are not a "
+            "random sample.")
+    note = est.get("note")
+    return head + ("<br>" + grey.format(html.escape(str(note))) if note else "")
