@@ -195,3 +195,36 @@ def test_map_is_drawn_the_way_the_address_says(driver, served):
         assert "drawn with canvas" in header
     else:
         assert "draw=" not in driver.current_url and "drawn with WebGL" in header
+
+
+def test_review_queue_item_confirmed_with_a_key_then_undone(driver, served):
+    srv, path = served
+    with Project.open(path, readonly=True) as p:
+        events_before = len(p.history())
+    _open(driver, srv.url)
+    counts0 = _confirmed_line(_div_text(driver, "counts"))
+    driver.find_element("tag name", "body").click()
+    _key(driver, "r")
+    item = _wait(lambda: (lambda t: t if "Review 1 of" in t else None)(
+        _div_text(driver, "queue_item")), 20, "the first queue item")
+    pos = 1
+    while "why: confirmed" in item:          # a confirmed window (a conflict): skip it with S
+        _key(driver, "s")
+        pos += 1
+        item = _wait(lambda: (lambda t: t if f"Review {pos} of" in t else None)(
+            _div_text(driver, "queue_item")), 20, "the next queue item")
+    wid = int(item.split("window ")[1].split(" ")[0])
+    _key(driver, "1")
+    _wait(lambda: f"Review {pos + 1} of" in _div_text(driver, "queue_item") or None, 20,
+          "the queue to move on")
+    _wait(lambda: _confirmed_line(_div_text(driver, "counts")) != counts0 or None, 20,
+          "the counts to change")
+    with Project.open(path, readonly=True) as p:
+        ev = p.history()
+    assert len(ev) == events_before + 1
+    assert ev.iloc[-1]["window_id"] == wid and ev.iloc[-1]["source"] == "queue"
+    ARTIFACTS.mkdir(exist_ok=True)
+    driver.save_screenshot(str(ARTIFACTS / "app_queue_confirmed.png"))
+    _key(driver, "u")
+    _wait(lambda: _confirmed_line(_div_text(driver, "counts")) == counts0 or None, 20,
+          "the counts to return")

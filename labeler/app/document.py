@@ -24,7 +24,8 @@ from bokeh.models import (BoxAnnotation, BoxSelectTool, Button, ColumnDataSource
 from bokeh.palettes import Cividis256
 from bokeh.plotting import figure
 
-from labeler.app.state import CAUTION, Proposals, ProposalWorker, SessionState, has_proposals_api
+from labeler.app.state import (CAUTION, EstimateUpdate, Proposals, ProposalWorker, SessionState,
+                               has_proposals_api, proposals_current)
 from labeler.app.timeline import segments
 from labeler.errors import LabelerError
 
@@ -74,8 +75,13 @@ _DRAW_PROBE = """
   if (url.searchParams.has("draw")) return;
   let fast = false;
   try {
-    const c = document.createElement("canvas");
-    fast = !!c.getContext("webgl", {failIfMajorPerformanceCaveat: true});
+    const gl = document.createElement("canvas").getContext(
+      "webgl", {failIfMajorPerformanceCaveat: true});
+    if (gl) {
+      const info = gl.getExtension("WEBGL_debug_renderer_info");
+      const name = info ? String(gl.getParameter(info.UNMASKED_RENDERER_WEBGL)) : "";
+      fast = !/swiftshader|llvmpipe|softpipe|software|basic render/i.test(name);
+    }
   } catch (e) { fast = false; }
   if (!fast) { url.searchParams.set("draw", "canvas"); window.location.replace(url.toString()); }
 })();
@@ -143,10 +149,12 @@ class LabelerApp:
         if has_proposals_api(project) and (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
             # page has loaded, so a page that reloads itself (see _DRAW_PROBE) costs no run
+            # (only the estimate when the stored proposals are of the current confirmations)
+            refresh = not proposals_current(project, self.state)
             if getattr(doc, "session_context", None) is not None:
-                doc.on_event(DocumentReady, lambda _e: self.request_proposals())
+                doc.on_event(DocumentReady, lambda _e: self.request_proposals(refresh=refresh))
             else:
-                self.request_proposals()
+                self.request_proposals(refresh=refresh)
 
     # ================================================================== building
     def _build(self) -> None:
@@ -798,24 +806,27 @@ class LabelerApp:
                                  if text else "")
 
     # ================================================================== background proposals
-    def request_proposals(self) -> None:
+    def request_proposals(self, refresh: bool = True) -> None:
+        """Spread the confirmations again (``refresh``) and estimate the accuracy, off the page."""
         if not has_proposals_api(self.project) or self.closed:
             return
         if self.background:
-            self.worker.request()
-        else:
-            self._worker_started()
-            from labeler.app.state import estimate_of, read_proposals
+            self.worker.request(refresh)
+            return
+        from labeler.app.state import estimate_of, read_proposals
 
-            try:
-                self.project._invalidate()
+        try:
+            self.project._invalidate()
+            if refresh:
+                self._worker_started()
                 self.project.refresh_proposals()
                 got = read_proposals(self.project, dict(self.state.class_code), self.state.n)
-                if got is not None:
-                    got.estimate = estimate_of(self.project)
-            except Exception as exc:
-                got = exc
-            self._apply_proposals(got)
+                self._apply_proposals(got)
+                if got is None:
+                    return
+            self._apply_proposals(EstimateUpdate(estimate_of(self.project)))
+        except Exception as exc:
+            self._apply_proposals(exc)
 
     def _post(self, fn: Callable[[], None]) -> None:
         if self.closed:
@@ -849,13 +860,16 @@ class LabelerApp:
                                   f"{html.escape(str(got))}</span>")
         elif got is None:
             self.progress_text = "<span style='color:#555'>no proposals yet</span>"
+        elif isinstance(got, EstimateUpdate):
+            self.state.estimate = got.estimate
+            self._refresh_estimate()
+            return
         elif isinstance(got, Proposals):
             changed = self.state.set_proposals(got)
             self._send_rows(changed)
             self.progress_text = (f"<span style='color:#009E73'>&#10003; proposals up to date "
                                   f"({html.escape(got.note)})</span>")
             self._refresh_counts()
-            self._refresh_estimate()
             self._refresh_queue()
             if self.focus_row is not None:
                 self._retitle_signal(self.focus_row)

@@ -44,6 +44,37 @@ class Proposals:
 
 
 @dataclass
+class EstimateUpdate:
+    """The accuracy estimate, computed after the proposals it is of have been delivered."""
+
+    estimate: dict | None
+
+
+def proposals_current(project, state: "SessionState") -> bool:
+    """True when the stored proposals were spread from exactly the current confirmations."""
+    getter = getattr(project, "proposals", None)
+    if not callable(getter):
+        return False
+    try:
+        df = getter()
+    except LabelerError:
+        return False
+    if df is None or len(df) != state.n or "confirmed" not in df:
+        return False
+    pos = state.index.get_indexer(df["window_id"].to_numpy())
+    if (pos < 0).any():
+        return False
+    was = np.zeros(state.n, bool)
+    was[pos] = df["confirmed"].to_numpy(bool)
+    if not np.array_equal(was, state.confirmed >= 0):
+        return False
+    names = np.asarray(state.class_names, dtype=object)
+    rows = np.flatnonzero(was)
+    stored = pd.Series(df["label"].to_numpy(object), index=pos).loc[rows].to_numpy(object)
+    return bool((stored == names[state.confirmed[rows]]).all())
+
+
+@dataclass
 class Progress:
     busy: bool = False
     text: str = ""
@@ -194,6 +225,7 @@ class SessionState:
         self.annotators: list[str] = []
         self.proposals = Proposals(np.full(self.n, -1, np.int32), np.zeros(self.n, np.float32),
                                    np.zeros(self.n, np.float32))
+        self.estimate: dict | None = None
         self.reload_classes()
         self.x, self.y, self.map_kind = read_map(project, self.n)
         self.sync_labels()
@@ -251,6 +283,8 @@ class SessionState:
     def set_proposals(self, got: Proposals) -> np.ndarray:
         old = self.proposals
         self.proposals = got
+        if got.estimate is not None:
+            self.estimate = got.estimate
         return np.flatnonzero((old.proposed != got.proposed) | (old.confidence != got.confidence)
                               | (old.support != got.support))
 
@@ -296,8 +330,8 @@ class SessionState:
         return out
 
     def accuracy(self) -> dict | None:
-        """The accuracy estimate that came with the latest proposals (computed off the page)."""
-        return self.proposals.estimate
+        """The latest accuracy estimate (computed off the page, after the proposals)."""
+        return self.estimate
 
     # -------------------------------------------------------------- review queue and audit
     def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
@@ -342,6 +376,9 @@ class ProposalWorker:
     """Recomputes proposals in a thread of its own, over a Project opened on the same file.
 
     ``request()`` returns at once; requests that arrive while a run is going fold into one more run.
+    A run delivers the proposals as soon as they are spread, then the accuracy estimate (slower:
+    cross-validation) as an :class:`EstimateUpdate`, unless newer confirmations are waiting, which
+    are spread first. ``request(refresh=False)`` asks for the estimate only.
     ``deliver(result_or_exception)`` is called from the worker thread; the document passes a function
     that hands it to the session's next tick.
     """
@@ -356,10 +393,12 @@ class ProposalWorker:
         self._thread: threading.Thread | None = None
         self._closed = False
         self._project = None
+        self._refresh = False
 
-    def request(self) -> None:
+    def request(self, refresh: bool = True) -> None:
         if self._closed:
             return
+        self._refresh = self._refresh or refresh
         self._wanted.set()
         with self._lock:
             if self._thread is None or not self._thread.is_alive():
@@ -372,20 +411,26 @@ class ProposalWorker:
 
         while self._wanted.is_set() and not self._closed:
             self._wanted.clear()
-            if self._on_start:
-                self._on_start()
+            refresh, self._refresh = self._refresh, False
             t0 = time.perf_counter()
             try:
                 if self._project is None:
                     self._project = Project.open(self.path, annotator=self.annotator)
                 p = self._project
                 p._invalidate()
-                p.refresh_proposals()
-                got = read_proposals(p, self._class_code(), self._n)
-                if got is not None:
-                    got.estimate = estimate_of(p)
-                    got.note = f"{time.perf_counter() - t0:.1f} s"
-                self._deliver(got)
+                if refresh:
+                    if self._on_start:
+                        self._on_start()
+                    p.refresh_proposals()
+                    got = read_proposals(p, self._class_code(), self._n)
+                    if got is not None:
+                        got.note = f"{time.perf_counter() - t0:.1f} s"
+                    self._deliver(got)
+                    if got is None:
+                        continue
+                if self._wanted.is_set() and self._refresh:
+                    continue                     # newer confirmations first; estimate after them
+                self._deliver(EstimateUpdate(estimate_of(p)))
             except Exception as exc:  # reported in the status line, never lost silently
                 traceback.print_exc()
                 self._deliver(exc)
