@@ -392,3 +392,28 @@ def test_worker_delivers_proposals_before_the_estimate_and_skips_a_needless_run(
         assert len(a.project.store.runs("proposals")) == runs + 1
     finally:
         a.close()
+
+
+def test_prepare_makes_each_map_once_and_the_page_names_the_latest(base_project, tmp_path):
+    from labeler.app.prepare import prepare
+
+    path = tmp_path / "p.labeler"
+    shutil.copy(base_project, path)
+    with Project.open(path, annotator="ann") as p:
+        before = len(p.store.runs("map"))
+    assert prepare(path, "ann", tsne=False, echo=lambda m: None) is None
+    assert prepare(path, "ann", tsne=False, echo=lambda m: None) is None
+    with Project.open(path, annotator="ann") as p:
+        runs = len(p.store.runs("map"))
+        assert runs == max(before, 1)                  # a PCA map only when there was none
+        p.compute_map("tsne", n_iter=50)
+        assert p.map_method() == "tsne"
+    assert prepare(path, "ann", tsne=True, echo=lambda m: None) is None   # t-SNE there: no rerun
+    a = build_document(Document(), path, "ann", background=False)
+    try:
+        assert a.state.map_kind == "tsne" and "map: tsne" in a.root.children[0].text
+        with Project.open(path, readonly=True) as p:
+            m = p.map().set_index("window_id").loc[a.state.ids]
+        np.testing.assert_allclose(a.state.x, m["x"].to_numpy(), rtol=1e-6)
+    finally:
+        a.close()

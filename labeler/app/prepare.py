@@ -14,23 +14,11 @@ from typing import Callable
 from labeler.errors import LabelerError
 
 
-def _has_map(p, kind: str) -> bool:
-    getter = getattr(p, "map", None)
-    if not callable(getter):
-        return False
+def _map_method(p) -> str | None:
     try:
-        got = getter(kind)
-    except (LabelerError, TypeError, KeyError, ValueError):
-        return False
-    return got is not None
-
-
-def _compute_map(p, kind: str) -> None:
-    fn = getattr(p, "compute_map")
-    try:
-        fn(kind)
-    except TypeError:
-        fn(method=kind)
+        return p.map_method()
+    except LabelerError:
+        return None
 
 
 def prepare(project_path: str | Path, annotator: str | None = None, *, tsne: bool = True,
@@ -39,15 +27,16 @@ def prepare(project_path: str | Path, annotator: str | None = None, *, tsne: boo
     from labeler.project import Project
 
     with Project.open(project_path, annotator=annotator) as p:
-        if callable(getattr(p, "compute_map", None)) and not _has_map(p, "pca"):
+        method = _map_method(p)
+        if method is None:
             t0 = time.perf_counter()
-            _compute_map(p, "pca")
+            p.compute_map("pca")
             echo(f"PCA map of {p.n_windows} windows in {time.perf_counter() - t0:.1f} s")
-        if callable(getattr(p, "refresh_proposals", None)) and len(p.labels()):
+        if len(p.labels()):
             t0 = time.perf_counter()
             p.refresh_proposals()
             echo(f"proposals for {p.n_windows} windows in {time.perf_counter() - t0:.1f} s")
-        want_tsne = tsne and callable(getattr(p, "compute_map", None)) and not _has_map(p, "tsne")
+        want_tsne = tsne and method != "tsne"
     if not want_tsne:
         return None
 
@@ -55,7 +44,7 @@ def prepare(project_path: str | Path, annotator: str | None = None, *, tsne: boo
         try:
             with Project.open(project_path, annotator=annotator) as q:
                 t0 = time.perf_counter()
-                _compute_map(q, "tsne")
+                q.compute_map("tsne")
                 echo(f"t-SNE map ready in {time.perf_counter() - t0:.0f} s; reload the page to "
                      "see it")
         except Exception as exc:  # the PCA map stays; say why t-SNE is missing

@@ -92,18 +92,17 @@ def read_map(project, n: int) -> tuple[np.ndarray, np.ndarray, str]:
     Uses the project's stored 2-D map (t-SNE when there is one, else PCA). A project without a map
     yet gets a plain PCA of its standardized features so the page is never empty.
     """
-    getter = getattr(project, "map", None)
-    if callable(getter):
-        for kind in ("tsne", "pca"):
-            try:
-                got = getter(kind)
-            except TypeError:
-                got = getter()
-            except LabelerError:
-                got = None
-            xy = _as_xy(got, n)
-            if xy is not None:
-                return xy[:, 0], xy[:, 1], kind
+    try:
+        method = project.map_method()
+        got = project.map() if method is not None else None
+    except LabelerError:
+        method, got = None, None
+    if got is not None and len(got) == n:
+        # in window-id order, like every other per-window array
+        got = got.set_index("window_id").reindex(project.windows()["id"].to_numpy())
+    xy = _as_xy(got, n)
+    if xy is not None:
+        return xy[:, 0], xy[:, 1], method
     key = (str(project.path), n)
     if key not in _FALLBACK_MAPS:            # one per served file, not one per session
         X, _ = project.features()
