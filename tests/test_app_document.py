@@ -288,9 +288,20 @@ def test_proposals_queue_accept_skip_and_audit(app):
     item = s.current_item()
     assert item is not None and app.target_source == "audit"
     assert "hidden" in app.queue_div.text
+    # nothing on the page shows the proposal while auditing: signal title, hover, map, timeline
+    assert "proposed" not in app.signal_title.text and "hidden" in app.signal_title.text
+    assert "proposed" not in [t[0] for t in app.hover.tooltips]
+    assert app.colour_mode.active == 3 and app.colour_mode.disabled
+    bottom = np.asarray(app.tl_src.data["bottom"])
+    assert not np.isclose(bottom - np.round(bottom), 0.02).any()   # no proposed (lower) band
     app.press("1")
     ev = _events(app.project.path, source="audit")
     assert ev.iloc[-1]["window_id"] == item.window_id
+    app.press("r")                                 # back to review: everything shows again
+    assert app.colour_mode.active == 0 and not app.colour_mode.disabled
+    assert "proposed" in [t[0] for t in app.hover.tooltips]
+    bottom = np.asarray(app.tl_src.data["bottom"])
+    assert np.isclose(bottom - np.round(bottom), 0.02).any()       # the proposed band is back
 
 
 def test_map_backend_is_chosen_by_draw(tmp_path):

@@ -250,12 +250,14 @@ class LabelerApp:
         rec = CustomJSHover(args={"names": self.recs_src}, code="""
             const v = Math.round(value); const n = names.data.name;
             return (v >= 0 && v < n.length) ? String(n[v]) : "?";""")
-        hover = HoverTool(renderers=[self.map_points], tooltips=[
+        self._tooltips = [
             ("window", "@wid"), ("recording", "@rec{custom}"),
             ("time", "@t0{0.0}–@t1{0.0} s"), ("proposed", "@prop{custom}"),
             ("confidence", "@conf{0.00}"), ("confirmed", "@cf{custom}"),
-            ("by", "@who{custom}")],
-            formatters={"@prop": fmt, "@cf": fmt, "@who": who, "@rec": rec})
+            ("by", "@who{custom}")]
+        hover = HoverTool(renderers=[self.map_points], tooltips=list(self._tooltips),
+                          formatters={"@prop": fmt, "@cf": fmt, "@who": who, "@rec": rec})
+        self.hover = hover
         box = BoxSelectTool(renderers=[self.map_points])
         lasso = LassoSelectTool(renderers=[self.map_points])
         wheel = WheelZoomTool()
@@ -388,10 +390,36 @@ class LabelerApp:
         s = self.state
         k = int(s.rec_code[r])
         a, b = float(s.start[r]), float(s.stop[r])
-        lab = self._window_words(r)
+        lab = self._window_words(r, hide_proposal=self._blind())
         self.signal_title.text = (
             f"<b>Signal</b> · window {int(s.ids[r])} · {html.escape(s.rec_names[k])} · "
             f"{a:.1f}–{b:.1f} s · {lab}")
+
+    def _blind(self) -> bool:
+        """True while an audit runs: nothing on the page may show the proposals."""
+        return self.state.queue_mode == "audit" and self.state.current_item() is not None
+
+    def _set_blind(self, blind: bool) -> None:
+        """Audit: colour the map by recording, drop proposals from the hover and the timeline;
+        restore them after."""
+        changed = blind != getattr(self, "_blinded", False)
+        self._blinded = blind
+        if changed:
+            self.tl_src.data = self._timeline_data()
+        if blind:
+            if self.colour_mode.active in (0, 1):
+                self._colour_before_audit = self.colour_mode.active
+                self.colour_mode.active = 3
+            self.hover.tooltips = [t for t in self._tooltips if t[0] not in ("proposed",
+                                                                             "confidence")]
+            self.colour_mode.disabled = True
+        else:
+            self.colour_mode.disabled = False
+            self.hover.tooltips = list(self._tooltips)
+            before = getattr(self, "_colour_before_audit", None)
+            if before is not None:
+                self._colour_before_audit = None
+                self.colour_mode.active = before
 
     def _window_words(self, r: int, hide_proposal: bool = False) -> str:
         s = self.state
@@ -442,7 +470,10 @@ class LabelerApp:
 
     def _timeline_data(self) -> dict:
         s = self.state
-        return segments(s.rec_code, s.start, s.stop, s.confirmed, s.proposals.proposed,
+        proposed = s.proposals.proposed
+        if getattr(self, "_blinded", False):          # audit: the proposed band stays empty
+            proposed = np.full_like(proposed, -1)
+        return segments(s.rec_code, s.start, s.stop, s.confirmed, proposed,
                         s.proposals.confidence)
 
     # ------------------------------------------------------------------ side panel
@@ -721,6 +752,7 @@ class LabelerApp:
         self._show_item(item)
 
     def _show_item(self, item) -> None:
+        self._set_blind(self.state.queue_mode == "audit" and item is not None)
         if item is None:
             self._set_target([], self.state.queue_mode if self.state.queue_mode == "audit"
                              else "queue", select_on_map=False)
