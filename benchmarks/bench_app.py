@@ -61,11 +61,12 @@ const go = () => {
 go();
 """
 
-# a round trip through the server while it recomputes proposals: pick one window, see the text change
+# a round trip through the server while it recomputes proposals: pick one window, see the signal
+# view's title (it names the window) change
 _ROUNDTRIP_JS = """
 const done = arguments[arguments.length - 1]; const row = arguments[0];
 const s = Bokeh.documents[0].get_model_by_name('map_source');
-const sel = Bokeh.documents[0].get_model_by_name('selection');
+const sel = Bokeh.documents[0].get_model_by_name('signal_title');
 const before = sel.text; const t0 = performance.now();
 s.selected.indices = [row];
 const tick = () => {
@@ -143,7 +144,10 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
             confirm.append(d.execute_async_script(_CONFIRM_JS, rows))
             time.sleep(0.3)
         # while the last confirm's proposals are recomputed in the background:
-        trips = [d.execute_async_script(_ROUNDTRIP_JS, int(r)) for r in rng.choice(n, 5)]
+        trips = [d.execute_async_script(_ROUNDTRIP_JS, int(r))
+                 for r in rng.choice(n, 5, replace=False)]
+        if min(trips) < 0:
+            raise RuntimeError("a pick did not come back from the server within 30 s")
         progress = d.execute_script(
             "return Bokeh.documents[0].get_model_by_name('progress').text")
         time.sleep(1.0)

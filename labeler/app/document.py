@@ -311,7 +311,8 @@ class LabelerApp:
 
     def _build_signal(self) -> None:
         self.signal_title = Div(text="<b>Signal</b> <span style='color:#555'>— pick a window on "
-                                     "the map, the timeline or the queue</span>", width=MAP_W)
+                                     "the map, the timeline or the queue</span>", width=MAP_W,
+                                name="signal_title")
         self.signal_x = Range1d(0, 10)
         self.signal_figs, self.signal_srcs, self.signal_spans = [], {}, []
         self._acc_ranges, self._gyr_ranges = {}, {}
