@@ -119,12 +119,46 @@ def driver():
     for a in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic",
               "--no-first-run", "--disable-background-networking", "--disable-component-update",
               "--disable-sync", f"--user-data-dir={tempfile.mkdtemp(prefix='labeler-bench-')}",
-              "--window-size=1120,1400"):
+              "--window-size=1280,1400"):
         opts.add_argument(a)
     d = webdriver.Chrome(service=Service(shutil.which("chromedriver") or "/usr/bin/chromedriver"),
                          options=opts)
     d.set_script_timeout(120)
     return d
+
+
+_LONGTASKS_JS = """
+window.__lt = [];
+window.__lto = new PerformanceObserver((l) => {
+  for (const e of l.getEntries()) window.__lt.push(e.duration); });
+window.__lto.observe({type: 'longtask'});
+"""
+
+
+def wheel_zoom(d, steps: int = 10) -> tuple[float, float]:
+    """Ten wheel steps over the map, as a user zooms in: (seconds in all, longest main-thread
+    task in seconds) until the page is idle again."""
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.actions.wheel_input import ScrollOrigin
+
+    canvas = d.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name('map');"
+        "return Bokeh.index.get_one(m).canvas_view.el;")
+    span_js = ("const r = Bokeh.documents[0].get_model_by_name('map').x_range;"
+               "return r.end - r.start;")
+    before = d.execute_script(span_js)
+    d.execute_script(_LONGTASKS_JS)
+    t0 = time.perf_counter()
+    origin = ScrollOrigin.from_element(canvas)
+    for _ in range(steps):
+        ActionChains(d).scroll_from_origin(origin, 0, -120).perform()
+    d.execute_async_script("const done = arguments[arguments.length - 1];"
+                           "requestAnimationFrame(() => requestAnimationFrame(() => done(1)));")
+    total = time.perf_counter() - t0
+    if not d.execute_script(span_js) < 0.9 * before:
+        raise RuntimeError("the wheel did not zoom the map")
+    longest = d.execute_script("window.__lto.disconnect(); return Math.max(0, ...window.__lt);")
+    return total, longest / 1000.0
 
 
 def measure(url: str, n: int, shot: Path, seed: int) -> dict:
@@ -144,6 +178,7 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
             confirm.append(d.execute_async_script(_CONFIRM_JS, rows))
             time.sleep(0.3)
         # while the last confirm's proposals are recomputed in the background:
+        zoom = wheel_zoom(d)
         trips = [d.execute_async_script(_ROUNDTRIP_JS, int(r))
                  for r in rng.choice(n, 5, replace=False)]
         if min(trips) < 0:
@@ -153,7 +188,7 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
         time.sleep(1.0)
         ARTIFACTS.mkdir(exist_ok=True)
         d.save_screenshot(str(shot))
-        return {"ready": ready_ms, "confirm": confirm, "trips": trips,
+        return {"ready": ready_ms, "confirm": confirm, "trips": trips, "zoom": zoom,
                 "busy": "background" in progress, "url": d.current_url,
                 "backend": "WebGL" if "drawn with WebGL" in header else "canvas"}
     finally:
@@ -184,6 +219,8 @@ def run(n: int, folder: Path) -> None:
                   "(target <= 3 s at 100k)")
             print("    confirm 50 windows -> map recoloured: "
                   + ", ".join(f"{c / 1000:.2f}" for c in m["confirm"]) + " s   (target <= 0.5 s)")
+            print(f"    zoom, 10 wheel steps over the map: {m['zoom'][0]:.2f} s in all, longest "
+                  f"frame {m['zoom'][1]:.2f} s")
             print(f"    page round trip while proposals {'were' if m['busy'] else 'may have been'}"
                   f" recomputing: max {max(m['trips']) / 1000:.2f} s of 5   (never blocked)")
             print(f"    screenshot: {shot}", flush=True)
