@@ -151,6 +151,10 @@ class LabelerApp:
             # page has loaded, so a page that reloads itself (see _DRAW_PROBE) costs no run
             # (only the estimate when the stored proposals are of the current confirmations)
             refresh = not proposals_current(project, self.state)
+            if not refresh:
+                self.progress_text = ("<span style='color:#009E73'>&#10003; proposals up to date "
+                                      "(stored in the project)</span>")
+                self._refresh_progress()
             if getattr(doc, "session_context", None) is not None:
                 doc.on_event(DocumentReady, lambda _e: self.request_proposals(refresh=refresh))
             else:
