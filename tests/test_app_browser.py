@@ -54,7 +54,7 @@ def driver():
     for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic",
                 "--no-first-run", "--disable-background-networking",
                 "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
-                "--window-size=1120,1400"):
+                "--window-size=1280,1300"):
         opts.add_argument(arg)
     d = webdriver.Chrome(service=Service(CHROMEDRIVER), options=opts)
     d.set_page_load_timeout(60)
