@@ -50,15 +50,18 @@ class EstimateUpdate:
     estimate: dict | None
 
 
+def _stored_proposals(project) -> pd.DataFrame | None:
+    """Project.proposals(), or None when there are none yet."""
+    try:
+        df = project.proposals()
+    except LabelerError:
+        return None
+    return df if df is not None and len(df) else None
+
+
 def proposals_current(project, state: "SessionState") -> bool:
     """True when the stored proposals were spread from exactly the current confirmations."""
-    getter = getattr(project, "proposals", None)
-    if not callable(getter):
-        return False
-    try:
-        df = getter()
-    except LabelerError:
-        return False
+    df = _stored_proposals(project)
     if df is None or len(df) != state.n or "confirmed" not in df:
         return False
     pos = state.index.get_indexer(df["window_id"].to_numpy())
@@ -157,17 +160,9 @@ def has_proposals_api(project) -> bool:
 
 def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
     """The project's stored proposals, or None when there are none yet."""
-    getter = getattr(project, "proposals", None)
-    if not callable(getter):
+    df = _stored_proposals(project)
+    if df is None:
         return None
-    try:
-        df = getter()
-    except LabelerError:
-        return None
-    if df is None or len(df) == 0:
-        return None
-    if not isinstance(df, pd.DataFrame):
-        df = pd.DataFrame(df)
     ids = project.windows()["id"].to_numpy()
     pos = pd.Index(ids).get_indexer(df["window_id"]) if "window_id" in df else np.arange(len(df))
     ok = pos >= 0
