@@ -134,7 +134,7 @@ def test_page_shows_every_window_and_a_key_confirms_and_undoes(driver, served):
         f"Bokeh.documents[0].get_model_by_name('map_source').selected.indices = [{row}];")
     _wait(lambda: "1 window" in _div_text(driver, "selection") or None, 20,
           "the pick to reach the app")
-    driver.find_element("tag name", "body").click()
+    driver.execute_script("document.activeElement && document.activeElement.blur()")  # keys: page
     _key(driver, "1")
     _wait(lambda: _confirmed_line(_div_text(driver, "counts")) != counts0 or None, 20,
           "the counts to change")
@@ -203,7 +203,7 @@ def test_review_queue_item_confirmed_with_a_key_then_undone(driver, served):
         events_before = len(p.history())
     _open(driver, srv.url)
     counts0 = _confirmed_line(_div_text(driver, "counts"))
-    driver.find_element("tag name", "body").click()
+    driver.execute_script("document.activeElement && document.activeElement.blur()")  # keys: page
     _key(driver, "r")
     item = _wait(lambda: (lambda t: t if "Review 1 of" in t else None)(
         _div_text(driver, "queue_item")), 20, "the first queue item")

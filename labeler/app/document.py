@@ -241,7 +241,7 @@ class LabelerApp:
             "x", "y", source=self.map_src, size=5, marker="circle", line_color=None,
             fill_color={"field": "lab", "transform": self.class_mapper}, fill_alpha="alpha",
             selection_line_color="#111111", selection_line_width=1.0, selection_fill_alpha=1.0,
-            nonselection_fill_alpha=0.1, nonselection_line_color=None)
+            nonselection_fill_alpha=0.25, nonselection_line_color=None)
         # confirmed windows as squares, from the same source through a filter computed in the
         # page: a confirm then sends one change that redraws the map once (a second source cost a
         # second repaint, about 0.35 s at 100k windows on a canvas)
@@ -987,7 +987,7 @@ def _estimate_html(est: dict) -> str:
             "random windows.")
     if basis == "cross-validation" and acc is not None:
         return head + "<br>" + grey.format(
-            f"Until then, a hint only: cross-validation on your {n} confirmed windows gives "
+            f"Until then, a hint only: cross-validation on {n} of your confirmed windows gives "
             f"{_pct(acc)} ({_pct(lo)}–{_pct(hi)}); optimistic, since confirmed windows are not a "
             "random sample.")
     note = est.get("note")
