@@ -8,8 +8,9 @@ annotator: an oracle answers from ground truth. From zero confirmations it confi
     review queue, random order, margin only (lowest margin first, no diversification). Prints the
     confirmations needed to reach 90 % and 95 %, then the accuracy estimates (audit of 50 random
     proposed windows answered by the oracle, and cross-validation on the confirmations) minus the
-    true accuracy. Data: the demo simulator (8-hour recording, labeler.synthetic), BasicMotions
-    (aeon; each series one window) and scikit-learn's digits.
+    true accuracy. Data: the demo simulator (8-hour recording, labeler.synthetic), three simulated
+    pickers of one hour each (examples from one picker carry over to the others only in part),
+    BasicMotions (aeon; each series one window) and scikit-learn's digits.
 speed: graph build time at 100k windows and where it goes; refresh time after one more
     confirmation with warm start; scikit-learn LabelSpreading.fit on the same data for comparison.
 tune: accuracy with random confirmations for alpha and the temporal weight on all three data sets.
@@ -54,6 +55,31 @@ def synthetic(hours: float = 8.0, seed: int = 1, person: int = 0):
     seq = np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))])
     _, t = np.unique(truth, return_inverse=True)
     return X, t, np.zeros(t.size, dtype=np.int64), seq
+
+
+def synthetic_crew(people: int = 3, hours: float = 1.0, seed: int = 11):
+    """Windows, features and truth of several simulated pickers (one recording each): the other
+    pickers move differently, so examples from one generalise only in part."""
+    from labeler.features import window_features
+    from labeler.recordings import recording_from_frame
+    from labeler.synthetic import simulate_recording, window_truth
+    from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+
+    Xs, truths, recs, seqs = [], [], [], []
+    for k in range(people):
+        sim = simulate_recording(hours * 3600, seed=seed + k, person=k)
+        rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{seed}-{k}",
+                                   name=sim.name)
+        length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
+        starts = cut_windows(rec.valid, length, step)
+        X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
+        Xs.append(X)
+        truths.append(window_truth(sim.truth, starts / rec.rate,
+                                   (starts + length) / rec.rate).astype(str))
+        recs.append(np.full(len(starts), k, dtype=np.int64))
+        seqs.append(np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))]))
+    _, t = np.unique(np.concatenate(truths), return_inverse=True)
+    return np.vstack(Xs), t, np.concatenate(recs), np.concatenate(seqs)
 
 
 def basic_motions():
@@ -140,6 +166,7 @@ def estimate_error(W, t, y, spreader, outputs, seed=0, n_audit=50):
 
 def part_annotator(quick: bool):
     sets = [("simulator 8 h", lambda: synthetic(1.0 if quick else 8.0), 300 if quick else 400),
+            ("simulator, 3 pickers x 1 h", lambda: synthetic_crew(3, 0.5 if quick else 1.0), 400),
             ("BasicMotions", basic_motions, 60),
             ("digits", digits, 300)]
     print("== simulated annotator (oracle from ground truth), batch of", BATCH, "per round ==")
