@@ -737,6 +737,10 @@ class LabelerApp:
 
     def confirm_key(self, number: int) -> None:
         codes = self.state.active_codes()
+        if not codes:
+            self._say("no classes yet: type a class name in the box under the class buttons and "
+                      "press Add class")
+            return
         if not 1 <= number <= min(9, len(codes)):
             self._say(f"no class number {number}; there are {len(codes)} classes")
             return
@@ -916,8 +920,9 @@ class LabelerApp:
         elif isinstance(got, Proposals):
             changed = self.state.set_proposals(got)
             self._send_rows(changed, "proposals")
-            self.progress_text = (f"<span style='color:#009E73'>&#10003; proposals up to date "
-                                  f"({html.escape(got.note)})</span>")
+            when = f" ({html.escape(got.note)})" if got.note else ""
+            self.progress_text = (f"<span style='color:#009E73'>&#10003; proposals up to "
+                                  f"date{when}</span>")
             self._refresh_counts()
             self._refresh_queue()
             if self.focus_row is not None:
