@@ -252,6 +252,11 @@ class Project:
             ids, coords = z["window_id"], z["coords"]
         return run, ids, coords, MapState.from_bytes(state_blob[0])
 
+    def map_run_id(self) -> int | None:
+        """Id of the run that made the latest map, or None when there is no map yet."""
+        run = self.store.latest_run("map")
+        return None if run is None else int(run["id"])
+
     def map_method(self) -> str | None:
         """How the latest map was made ("pca" or "tsne"), or None when there is no map yet."""
         run = self.store.latest_run("map")

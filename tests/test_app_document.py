@@ -430,3 +430,22 @@ def test_prepare_makes_each_map_once_and_the_page_names_the_latest(base_project,
         np.testing.assert_allclose(a.state.x, m["x"].to_numpy(), rtol=1e-6)
     finally:
         a.close()
+
+
+def test_an_open_page_switches_to_a_newer_map(base_project, tmp_path):
+    path = tmp_path / "p.labeler"
+    shutil.copy(base_project, path)
+    a = build_document(Document(), path, "ann", background=False)
+    try:
+        assert not a.check_map()                       # nothing new yet
+        before = np.asarray(a.map_src.data["x"]).copy()
+        with Project.open(path, annotator="other") as p:   # e.g. the t-SNE thread at start-up
+            p.compute_map("tsne", n_iter=50)
+            m = p.map().set_index("window_id").loc[a.state.ids]
+        assert a.check_map()
+        assert a.state.map_kind == "tsne" and "map: tsne" in a.header.text
+        np.testing.assert_allclose(a.map_src.data["x"], m["x"].to_numpy(), rtol=1e-6)
+        assert not np.allclose(before, a.map_src.data["x"])
+        assert not a.check_map()                       # once only
+    finally:
+        a.close()

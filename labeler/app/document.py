@@ -26,13 +26,14 @@ from bokeh.palettes import Cividis256
 from bokeh.plotting import figure
 
 from labeler.app.state import (CAUTION, EstimateUpdate, Proposals, ProposalWorker, SessionState,
-                               has_proposals_api, proposals_current)
+                               has_proposals_api, proposals_current, read_map)
 from labeler.app.timeline import segments
 from labeler.errors import LabelerError
 
 NONE_COLOUR = "#BDBDBD"          # windows with no label and no proposal
 MAP_W, MAP_H, SIDE_W = 720, 500, 420
 WIDE_W = MAP_W + SIDE_W + 20
+MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
 CONTEXT_S = 4.0                  # seconds of signal shown either side of the picked window
 AXIS_COLOURS = ("#0072B2", "#D55E00", "#009E73")   # x, y, z (Okabe & Ito 2008 colours)
 COLOUR_MODES = ("label", "confidence", "support", "recording")
@@ -156,6 +157,9 @@ class LabelerApp:
         self.progress_text = ""
         self._build()
         doc.title = f"labeler · {Path(str(project.path)).name}"
+        self._map_run = project.map_run_id()
+        if getattr(doc, "session_context", None) is not None:
+            doc.add_periodic_callback(self.check_map, MAP_CHECK_MS)
         if has_proposals_api(project) and (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
             # page has loaded, so a page that reloads itself (see _DRAW_PROBE) costs no run
@@ -193,6 +197,7 @@ class LabelerApp:
         self.doc.js_on_event("document_ready", CustomJS(args={"bus": self.key_bus}, code=_KEYS_JS))
         header = Div(text=self._header_html(), width=WIDE_W, name="header",
                      stylesheets=[InlineStyleSheet(css=_BASE_CSS)])
+        self.header = header
         self.caution = Div(text=f"<div style='color:#5a4500;background:#fff6d6;padding:6px 10px;"
                                 f"border-radius:4px'>&#9888; {html.escape(CAUTION)}</div>",
                            width=WIDE_W, name="caution")
@@ -803,7 +808,7 @@ class LabelerApp:
         except LabelerError as exc:
             self._say(str(exc))
             return
-        self._say("undone")
+        self._say("undone", info=True)
         self._send_rows(changed)
         self._refresh_counts()
         if self.focus_row is not None:
@@ -853,10 +858,32 @@ class LabelerApp:
         elif key == "Escape":
             self.clear()
 
-    def _say(self, text: str) -> None:
+    def _say(self, text: str, *, info: bool = False) -> None:
+        """One line under the class pad: a refusal (dark red) or, with ``info``, news (grey)."""
         self.message = text
-        self.message_div.text = (f"<span style='color:#8a1c00'>{html.escape(text)}</span>"
+        colour = "#555555" if info else "#8a1c00"
+        self.message_div.text = (f"<span style='color:{colour}'>{html.escape(text)}</span>"
                                  if text else "")
+
+    def check_map(self) -> bool:
+        """Show a newer map when one has been stored (the t-SNE made in the background, or
+        `labeler map` run meanwhile); True when the map changed."""
+        if self.closed:
+            return False
+        run = self.project.map_run_id()
+        if run is None or run == self._map_run:
+            return False
+        self.project._invalidate("map")
+        s = self.state
+        s.x, s.y, s.map_kind = read_map(self.project, s.n)
+        self._map_run = run
+        self.map_src.data.update({"x": s.x.astype(np.float32), "y": s.y.astype(np.float32)})
+        if self.focus_row is not None:
+            self.focus_src.data = {"x": [float(s.x[self.focus_row])],
+                                   "y": [float(s.y[self.focus_row])]}
+        self.header.text = self._header_html()
+        self._say(f"the map was redrawn from a newer {s.map_kind} map", info=True)
+        return True
 
     # ================================================================== background proposals
     def request_proposals(self, refresh: bool = True) -> None:

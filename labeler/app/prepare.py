@@ -1,7 +1,7 @@
 """Before serving: make sure a project has a map and proposals, through Project methods.
 
 The PCA map and the proposals are computed before the page opens (seconds); a t-SNE map, slower, in
-a background thread whose result sessions opened later pick up.
+a background thread; open pages switch to it when it is stored (LabelerApp.check_map).
 """
 
 from __future__ import annotations
@@ -45,8 +45,8 @@ def prepare(project_path: str | Path, annotator: str | None = None, *, tsne: boo
             with Project.open(project_path, annotator=annotator) as q:
                 t0 = time.perf_counter()
                 q.compute_map("tsne")
-                echo(f"t-SNE map ready in {time.perf_counter() - t0:.0f} s; reload the page to "
-                     "see it")
+                echo(f"t-SNE map ready in {time.perf_counter() - t0:.0f} s; open pages switch "
+                     "to it within seconds")
         except Exception as exc:  # the PCA map stays; say why t-SNE is missing
             echo(f"t-SNE map not made ({exc}); the PCA map stays")
 
