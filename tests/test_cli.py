@@ -69,21 +69,15 @@ def test_errors_are_one_line_exit_2(tmp_path, write_csv):
         assert "Traceback" not in result.output
 
 
+_WINDOW = ("--window {}: the window length must be a number of seconds > 0 and at most 3600; "
+           "give e.g. --window 2.56")
+_STEP = ("--step {}: the step between windows must be a number of seconds > 0 and at most 3600; "
+         "give e.g. --step 1.28")
+
+
 @pytest.mark.parametrize("args, message", [
-    (["--window", "inf"], "--window inf: the window length must be a number of seconds > 0 and at "
-                          "most 3600; give e.g. --window 2.56"),
-    (["--window", "nan"], "--window nan: the window length must be a number of seconds > 0 and at "
-                          "most 3600; give e.g. --window 2.56"),
-    (["--window", "0"], "--window 0: the window length must be a number of seconds > 0 and at "
-                        "most 3600; give e.g. --window 2.56"),
-    (["--window", "-2"], "--window -2: the window length must be a number of seconds > 0 and at "
-                         "most 3600; give e.g. --window 2.56"),
-    (["--step", "inf"], "--step inf: the step between windows must be a number of seconds > 0 and "
-                        "at most 3600; give e.g. --step 1.28"),
-    (["--step", "nan"], "--step nan: the step between windows must be a number of seconds > 0 and "
-                        "at most 3600; give e.g. --step 1.28"),
-    (["--step", "0"], "--step 0: the step between windows must be a number of seconds > 0 and "
-                      "at most 3600; give e.g. --step 1.28"),
+    *[(["--window", v], _WINDOW.format(v)) for v in ("inf", "nan", "0", "-2")],
+    *[(["--step", v], _STEP.format(v)) for v in ("inf", "nan", "0")],
     (["--window", "2", "--step", "3"], "--step 3: longer than the window (2 s), so samples between "
                                        "windows would never be labeled; give a step of at most 2"),
 ])

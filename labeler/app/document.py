@@ -893,18 +893,11 @@ class LabelerApp:
         if self.background:
             self.worker.request(refresh)
             return
-        from labeler.app.state import estimate_of, read_proposals
+        from labeler.app.state import spread_and_estimate
 
         try:
-            self.project._invalidate()
-            if refresh:
-                self._worker_started()
-                self.project.refresh_proposals()
-                got = read_proposals(self.project, dict(self.state.class_code), self.state.n)
-                self._apply_proposals(got)
-                if got is None:
-                    return
-            self._apply_proposals(EstimateUpdate(estimate_of(self.project)))
+            spread_and_estimate(self.project, dict(self.state.class_code), self.state.n, refresh,
+                                self._apply_proposals, on_start=self._worker_started)
         except Exception as exc:
             self._apply_proposals(exc)
 

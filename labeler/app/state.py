@@ -366,6 +366,29 @@ class SessionState:
 
 # ---------------------------------------------------------------------------- background proposals
 
+def spread_and_estimate(project, class_code: dict[str, int], n: int, refresh: bool,
+                        deliver: Callable[[object], None], *,
+                        on_start: Callable[[], None] | None = None,
+                        more_waiting: Callable[[], bool] = lambda: False) -> None:
+    """One run: spread the confirmations again (``refresh``) and hand the :class:`Proposals` to
+    ``deliver``; then, unless ``more_waiting()``, the accuracy estimate as an
+    :class:`EstimateUpdate`."""
+    t0 = time.perf_counter()
+    project._invalidate()
+    if refresh:
+        if on_start:
+            on_start()
+        project.refresh_proposals()
+        got = read_proposals(project, class_code, n)
+        if got is not None:
+            got.note = f"{time.perf_counter() - t0:.1f} s"
+        deliver(got)
+        if got is None:
+            return
+    if not more_waiting():
+        deliver(EstimateUpdate(estimate_of(project)))
+
+
 class ProposalWorker:
     """Recomputes proposals in a thread of its own, over a Project opened on the same file.
 
@@ -406,25 +429,13 @@ class ProposalWorker:
         while self._wanted.is_set() and not self._closed:
             self._wanted.clear()
             refresh, self._refresh = self._refresh, False
-            t0 = time.perf_counter()
             try:
                 if self._project is None:
                     self._project = Project.open(self.path, annotator=self.annotator)
-                p = self._project
-                p._invalidate()
-                if refresh:
-                    if self._on_start:
-                        self._on_start()
-                    p.refresh_proposals()
-                    got = read_proposals(p, self._class_code(), self._n)
-                    if got is not None:
-                        got.note = f"{time.perf_counter() - t0:.1f} s"
-                    self._deliver(got)
-                    if got is None:
-                        continue
-                if self._wanted.is_set() and self._refresh:
-                    continue                     # newer confirmations first; estimate after them
-                self._deliver(EstimateUpdate(estimate_of(p)))
+                # newer confirmations waiting: spread them first, estimate after them
+                spread_and_estimate(self._project, self._class_code(), self._n, refresh,
+                                    self._deliver, on_start=self._on_start,
+                                    more_waiting=lambda: self._wanted.is_set() and self._refresh)
             except Exception as exc:  # reported in the status line, never lost silently
                 traceback.print_exc()
                 self._deliver(exc)
