@@ -141,11 +141,26 @@ class Project:
             raise InputError("no recording files given; pass one or more CSV or Parquet files")
         recs: list[Recording] = []
         for i, p in enumerate(paths):
+            self._refuse_own_file(p)
             if progress:
                 progress(i / (2 * len(paths)), f"reading {Path(p).name}")
             recs.append(read_recording(p, rate=rate, time_column=time_column, acc_unit=acc_unit,
                                        gyr_unit=gyr_unit))
         return self.add_recording_data(recs, progress=progress, _offset=0.5)
+
+    def _refuse_own_file(self, path: str | os.PathLike) -> None:
+        """Refuse the project file (or its -wal/-shm) given as input: reading it through a plain
+        descriptor and closing that would drop this process's SQLite locks on it (stat() opens
+        none)."""
+        for suffix in ("", "-wal", "-shm"):
+            own = Path(f"{self.path}{suffix}")
+            try:
+                same = os.path.samefile(path, own)
+            except OSError:
+                continue
+            if same:
+                raise InputError(f"{path}: is this project's own file, not an input; give a "
+                                 "recording or interval file")
 
     def add_recording_data(self, recordings: Sequence[Recording], *,
                            progress: Progress | None = None, _offset: float = 0.0
@@ -627,6 +642,7 @@ class Project:
         """
         from labeler.importing import read_intervals, windows_inside
 
+        self._refuse_own_file(path)
         intervals = read_intervals(path)
         recs = self.recordings()
         durations = dict(zip(recs["name"], recs["n_samples"] / recs["rate"]))

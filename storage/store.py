@@ -30,7 +30,6 @@ import sqlite_utils
 
 APPLICATION_ID = 0x4C424C52  # marks a labeler project file (PRAGMA application_id)
 BUSY_TIMEOUT_S = 30.0
-SQLITE_HEADER = b"SQLite format 3\x00"
 
 
 class StoreError(Exception):
@@ -218,27 +217,6 @@ class Store:
             raise StoreError(f"{path}: no such project file; create one with `labeler new {path}`")
         if path.is_dir():
             raise NotAProjectError(f"{path}: is a folder, not a project file; give the .labeler file")
-        with open(path, "rb") as fh:
-            head = fh.read(100)
-        if len(head) < 100 or not head.startswith(SQLITE_HEADER):
-            raise NotAProjectError(
-                f"{path}: not a labeler project file (not SQLite, or truncated); "
-                "give a file made by `labeler new`, or restore it from a backup")
-        app_id = int.from_bytes(head[68:72], "big")
-        if app_id != APPLICATION_ID:
-            raise NotAProjectError(
-                f"{path}: a SQLite file, but not a labeler project; give a file made by `labeler new`")
-        # a file shorter than the size its header states was cut (copy or download broke off);
-        # only meaningful without a -wal, which may hold pages a checkpoint had not yet written
-        page_size = int.from_bytes(head[16:18], "big")
-        page_size = 65536 if page_size == 1 else page_size
-        n_pages = int.from_bytes(head[28:32], "big")
-        wal = Path(f"{path}-wal")
-        if (head[24:28] == head[92:96] and n_pages and not (wal.exists() and wal.stat().st_size)
-                and path.stat().st_size < n_pages * page_size):
-            raise NotAProjectError(
-                f"{path}: the project file is truncated ({path.stat().st_size} of "
-                f"{n_pages * page_size} bytes); restore it from a backup")
         writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
         if readonly and not writable:
             conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
@@ -251,6 +229,7 @@ class Store:
         store = cls(path, conn)
         store._readonly = readonly
         try:
+            store._check_header()
             store._check_and_migrate()
             if not readonly:
                 conn.execute("PRAGMA journal_mode = WAL")
@@ -269,6 +248,40 @@ class Store:
             conn.close()
             raise
         return store
+
+    def _check_header(self) -> None:
+        """Is the file a labeler project, whole? Asked of SQLite through this connection.
+
+        Never through a plain open() of the file: closing any other descriptor of a file drops
+        every POSIX lock this process holds on it, the locks of its open connections included;
+        another process may then take itself for the last user and delete the -wal under them
+        (SQLite documentation, "How To Corrupt An SQLite Database File", section 2.2).
+        """
+        path = self.path
+        try:
+            app_id = self.conn.execute("PRAGMA application_id").fetchone()[0]
+            n_pages = self.conn.execute("PRAGMA page_count").fetchone()[0]
+            page_size = self.conn.execute("PRAGMA page_size").fetchone()[0]
+        except sqlite3.DatabaseError as exc:
+            raise NotAProjectError(
+                f"{path}: not a labeler project file (not SQLite, or truncated: {exc}); give a "
+                "file made by `labeler new`, or restore it from a backup") from exc
+        if n_pages == 0:
+            raise NotAProjectError(
+                f"{path}: not a labeler project file (empty, or truncated); give a file made by "
+                "`labeler new`, or restore it from a backup")
+        if app_id != APPLICATION_ID:
+            raise NotAProjectError(
+                f"{path}: a SQLite file, but not a labeler project; give a file made by `labeler new`")
+        # a file shorter than the pages SQLite counts was cut (a copy or download broke off); only
+        # meaningful without a -wal, which may hold pages a checkpoint has not yet written (stat()
+        # opens no descriptor)
+        wal = Path(f"{path}-wal")
+        size = path.stat().st_size
+        if not (wal.exists() and wal.stat().st_size) and size < n_pages * page_size:
+            raise NotAProjectError(
+                f"{path}: the project file is truncated ({size} of {n_pages * page_size} bytes); "
+                "restore it from a backup")
 
     def _check_and_migrate(self) -> None:
         try:

@@ -167,3 +167,42 @@ def test_last_event_id_follows_the_history(store):
     assert store.last_event_id() == max(e["id"] for e in store.events()) == 2
     store.apply_batch("ann", "withdraw", "cli", [(1, None)])
     assert store.last_event_id() == 3
+
+
+_PROBE_LOCK = """
+import fcntl, sys
+with open(sys.argv[1], "r+b") as fh:
+    try:
+        fcntl.lockf(fh, fcntl.LOCK_EX | fcntl.LOCK_NB, 0, 0, 0)
+    except OSError:
+        print("held")
+    else:
+        print("free")
+"""
+
+
+def _lock_seen_by_another_process(path) -> str:
+    import subprocess
+    import sys
+
+    return subprocess.run([sys.executable, "-c", _PROBE_LOCK, str(path)], capture_output=True,
+                          text=True, check=True).stdout.strip()
+
+
+def test_opening_again_keeps_this_process_locks(store):
+    # A connection in WAL mode holds a shared POSIX lock on the file as long as it is open; closing
+    # any plain descriptor of the file in this process would drop it (SQLite documentation, "How To
+    # Corrupt An SQLite Database File", section 2.2), so opening the project a second time (as the
+    # app does for its proposal worker) must go through SQLite alone.
+    _add_recording(store)
+    assert _lock_seen_by_another_process(store.path) == "held"
+    second = Store.open(store.path)
+    readonly = Store.open(store.path, readonly=True)
+    try:
+        assert _lock_seen_by_another_process(store.path) == "held"
+        store.apply_batch("a", "confirm", "map", [(1, None)])
+        assert _lock_seen_by_another_process(store.path) == "held"
+    finally:
+        readonly.close()
+        second.close()
+    assert _lock_seen_by_another_process(store.path) == "held"

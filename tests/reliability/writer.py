@@ -11,6 +11,10 @@ moment leaves only whole lines behind (a cut last line is ignored by the reader 
     python writer.py reader PROJECT STOPFILE               read transactions until STOPFILE exists
     python writer.py other PROJECT STOPFILE                another kind of write until STOPFILE exists
     python writer.py slowread PROJECT STOPFILE             long read transactions until STOPFILE exists
+    python writer.py holder PROJECT SEED                   hold the file with two connections (as the
+                                                           app: the page's and the proposal worker's);
+                                                           per "confirm N" line on stdin confirm N
+                                                           batches, then print "round"; "quit" closes
 
 An acknowledgement is printed only after ``Project.confirm`` (or ``withdraw`` / ``undo``) returned.
 """
@@ -169,6 +173,33 @@ def other(project: str, stopfile: str) -> None:
     p.close()
 
 
+def holder(project: str, seed: int) -> None:
+    """Two connections in one process, as the app holds them, confirming when told to."""
+    from labeler.project import Project
+
+    rng = np.random.default_rng(seed)
+    page = Project.open(project, annotator="holder")
+    ids = page.windows()["id"].to_numpy()
+    classes = page.active_classes()
+    cid = {c: int(i) for i, c in zip(page.classes()["id"], page.classes()["name"])}
+    worker = Project.open(project, annotator="holder")  # the proposal worker's connection
+    emit({"ready": os.getpid()})
+    for line in sys.stdin:
+        cmd = line.split()
+        if not cmd or cmd[0] == "quit":
+            break
+        for _ in range(int(cmd[1])):
+            pick = sorted(int(w) for w in rng.choice(ids, size=int(rng.integers(1, 20)),
+                                                     replace=False))
+            c = classes[int(rng.integers(len(classes)))]
+            bid = page.confirm(pick, c, source="map")
+            emit({"ack": bid, "action": "confirm", "events": [[w, cid[c]] for w in pick]})
+        emit({"round": int(worker.status()["confirmed"])})  # the worker reads too
+    worker.close()
+    page.close()
+    emit({"closed": os.getpid()})
+
+
 def main(argv: list[str]) -> None:
     mode, project = argv[0], argv[1]
     try:
@@ -182,6 +213,8 @@ def main(argv: list[str]) -> None:
             reader(project, argv[2])
         elif mode == "slowread":
             reader(project, argv[2], hold_s=0.3)
+        elif mode == "holder":
+            holder(project, int(argv[2]))
         elif mode == "other":
             other(project, argv[2])
         else:
