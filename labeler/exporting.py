@@ -1,7 +1,8 @@
 """The training set out of a project: per-window rows, merged segments and a manifest.
 
 Pure table building: these functions take plain tables (pandas) and dicts and know nothing of SQLite;
-:meth:`labeler.project.Project.export` gathers the inputs and calls them.
+:mod:`labeler.service.export` gathers a consistent snapshot of a project and calls
+:func:`write_training_set`.
 
 **Window rows** (one per labeled window): recording, ``window`` (the window's number within its
 recording, from 0), ``window_id`` (its id in the project), start and end in seconds from the
@@ -45,11 +46,14 @@ import hashlib
 import json
 import os
 import uuid
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Iterable, Mapping
 
 import numpy as np
 import pandas as pd
+
+from labeler.errors import InputError
 
 MANIFEST_FORMAT = "labeler-export/1"
 FORMATS = ("csv", "parquet")
@@ -221,6 +225,116 @@ def build_manifest(*, tool_version: str, created_at: str, created_by: str, proje
         "files": {k: dict(v) for k, v in files.items()},
         "caution": CAUTION,
     }
+
+
+# --------------------------------------------------------------------------- the whole export
+
+def check_request(folder: str | os.PathLike, *, fmt: str, min_confidence: float | None,
+                  classes: Iterable[str] | None, known_classes: Iterable[str],
+                  overwrite: bool) -> tuple[dict[str, Path], list[str] | None]:
+    """Check export options before anything is read or written. Returns the target files
+    (windows, segments, manifest) and the selected classes spelt as in the project."""
+    if fmt not in FORMATS:
+        raise InputError(f"export format {fmt!r} is unknown; use one of {', '.join(FORMATS)}")
+    if min_confidence is not None and not (0.0 <= float(min_confidence) <= 1.0):
+        raise InputError(f"minimum confidence {min_confidence} is outside 0-1; give e.g. 0.8")
+    known = {str(c).lower(): str(c) for c in known_classes}
+    if classes is not None:
+        classes = [str(c).strip() for c in classes]
+        for c in classes:
+            if c.lower() not in known:
+                raise InputError(f"no class {c!r} to export; classes: "
+                                 f"{', '.join(known.values()) or 'none yet'}")
+        classes = [known[c.lower()] for c in classes]
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"{folder}: is a file; give a folder for the export")
+    if not folder.exists() and not folder.parent.is_dir():
+        raise InputError(f"{folder}: folder {folder.parent} does not exist; create it first")
+    targets = {"windows": folder / f"windows.{fmt}", "segments": folder / f"segments.{fmt}",
+               "manifest": folder / "manifest.json"}
+    if not overwrite:
+        for p in targets.values():
+            if p.exists():
+                raise InputError(f"{p}: exists already; give another folder or --overwrite")
+    return targets, classes
+
+
+@dataclass
+class ExportInputs:
+    """What one export reads from a project, read together (labels, proposals and estimate
+    belong to the same state of the history)."""
+    windows: pd.DataFrame           # id, recording, seq, start_s, stop_s
+    labels: pd.DataFrame            # window_id, class, annotator, at, source
+    proposals: pd.DataFrame | None  # window_id, label, confidence, margin; None before any run
+    proposal_params: dict | None
+    accuracy: dict | None
+    accuracy_absent: str | None
+    recordings: pd.DataFrame        # the project's recordings table
+    classes: list[dict]             # the store's class rows (retired_at, merged_into)
+    project: dict                   # file, project_id, schema_version, created_with, as_of_event
+    feature_set_version: str
+    window_length_s: float
+    window_step_s: float
+
+
+def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt: str,
+                       confirmed_only: bool, min_confidence: float | None,
+                       classes: list[str] | None, tool_version: str, created_at: str,
+                       created_by: str, where: str) -> dict:
+    """Build the window rows and segments, write them and then the manifest, each atomically.
+    ``where`` names the project in messages. Returns ``{"files", "windows", "segments",
+    "manifest"}``."""
+    recs = inputs.recordings
+    retired = {c["name"] for c in inputs.classes if c["retired_at"] is not None}
+    start_times = {r["name"]: (r["start_time"] if pd.notna(r["start_time"]) else None)
+                   for _, r in recs.iterrows()}
+    table = window_table(inputs.windows, inputs.labels, inputs.proposals, start_times, retired)
+    n_labeled = len(table)
+    table = select(table, confirmed_only=confirmed_only, min_confidence=min_confidence,
+                   classes=classes)
+    if n_labeled == 0:
+        raise InputError(f"{where}: nothing to export: no window is confirmed or proposed "
+                         "yet; confirm some windows first")
+    if len(table) == 0:
+        raise InputError(f"{where}: nothing to export: no labeled window passes the "
+                         "selection (confirmed only, minimum confidence, classes); loosen it")
+    geometry = {r["name"]: (r["window_length"] / r["rate"], r["window_step"] / r["rate"])
+                for _, r in recs.iterrows()}
+    segs = segments(table, geometry)
+    Path(targets["windows"]).parent.mkdir(exist_ok=True)
+    files = {}
+    for kind, frame in (("windows", table), ("segments", segs)):
+        digest = write_table(frame, targets[kind], fmt)
+        files[kind] = {"name": Path(targets[kind]).name, "format": fmt, "rows": int(len(frame)),
+                       "sha256": digest}
+    names = {c["id"]: c["name"] for c in inputs.classes}
+    manifest = build_manifest(
+        tool_version=tool_version, created_at=created_at, created_by=created_by,
+        project=inputs.project, feature_set_version=inputs.feature_set_version,
+        window_settings={"length_s": inputs.window_length_s, "step_s": inputs.window_step_s,
+                         "segment_rule": "each window stands for the step-long span around "
+                                         "its centre; segments join those spans"},
+        recordings=[{"name": r["name"], "content_hash": r["content_hash"],
+                     "rate_hz": float(r["rate"]), "n_samples": int(r["n_samples"]),
+                     "duration_s": float(r["n_samples"] / r["rate"]),
+                     "start_time": start_times[r["name"]], "channels": list(r["channels"]),
+                     "window_length_samples": int(r["window_length"]),
+                     "window_step_samples": int(r["window_step"])} for _, r in recs.iterrows()],
+        classes=[{"name": c["name"], "colour": c["colour"],
+                  "retired": c["retired_at"] is not None, "retired_at": c["retired_at"],
+                  "merged_into": (None if c["merged_into"] is None
+                                  else names.get(c["merged_into"]))}
+                 for c in inputs.classes],
+        selection={"confirmed_only": bool(confirmed_only),
+                   "min_confidence": None if min_confidence is None else float(min_confidence),
+                   "classes": classes},
+        proposals=inputs.proposal_params, accuracy=inputs.accuracy,
+        accuracy_absent=inputs.accuracy_absent, table=table, files=files)
+    manifest = json_ready(manifest)
+    write_json(manifest, targets["manifest"])
+    return {"files": {k: str(v) for k, v in targets.items()}, "windows": int(len(table)),
+            "segments": int(len(segs)), "manifest": manifest}
 
 
 # --------------------------------------------------------------------------- writing

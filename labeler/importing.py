@@ -131,3 +131,52 @@ def windows_inside(start_s, stop_s, a: float, b: float) -> np.ndarray:
     lies strictly inside it (see the module docstring)."""
     centre = (np.asarray(start_s, dtype=np.float64) + np.asarray(stop_s, dtype=np.float64)) / 2
     return (centre > a) & (centre < b)
+
+
+def check_recordings(intervals: list[Interval], durations: dict[str, float], path) -> None:
+    """Refuse intervals naming a recording the project lacks or starting past its end."""
+    for iv in intervals:
+        if iv.recording not in durations:
+            known = ", ".join(list(durations)[:6]) or "none yet"
+            raise InputError(f"{path}: row {iv.row}, column 'recording': no recording "
+                             f"{iv.recording!r} in the project (recordings: {known}); add it "
+                             "first or fix the name")
+        if iv.start >= durations[iv.recording]:
+            raise InputError(f"{path}: row {iv.row}: start {iv.start:g} s is past the end of "
+                             f"{iv.recording} ({durations[iv.recording]:.2f} s); fix the row")
+
+
+def new_class_names(intervals: list[Interval], class_names) -> list[str]:
+    """Labels of the intervals that name no class yet (classes match without regard to case)."""
+    known = {str(c).lower() for c in class_names}
+    return sorted({iv.label for iv in intervals if iv.label.lower() not in known})
+
+
+@dataclass
+class IntervalMatch:
+    """Which label each annotator's windows take from a file of intervals."""
+    per_annotator: dict[str, dict[int, str]]  # annotator -> window id -> class name
+    rows: list[dict]                          # per interval: row, recording, label, windows
+    changes: int                              # (window, annotator) pairs whose label changes
+    relabels: int                             # ... of them that had another label before
+
+
+def match_intervals(intervals: list[Interval], windows: pd.DataFrame, class_names,
+                    current: dict[tuple[int, str], str], default_annotator: str) -> IntervalMatch:
+    """Match intervals to windows (:func:`windows_inside`); ``windows`` has id, recording, start_s,
+    stop_s; ``current`` maps (window id, annotator) to that annotator's current class name."""
+    classes = {str(c).lower(): str(c) for c in class_names}
+    per_who: dict[str, dict[int, str]] = {}
+    rows = []
+    for iv in intervals:
+        w = windows[windows["recording"] == iv.recording]
+        ids = w["id"].to_numpy()[windows_inside(w["start_s"], w["stop_s"], iv.start, iv.end)]
+        target = per_who.setdefault(iv.annotator or default_annotator, {})
+        for wid in ids:
+            target[int(wid)] = classes.get(iv.label.lower(), iv.label)
+        rows.append({"row": iv.row, "recording": iv.recording, "label": iv.label,
+                     "windows": int(len(ids))})
+    pairs = [((w, who), c) for who, m in per_who.items() for w, c in m.items()]
+    changes = sum(1 for key, c in pairs if current.get(key) != c)
+    relabels = sum(1 for key, c in pairs if key in current and current[key] != c)
+    return IntervalMatch(per_who, rows, changes, relabels)

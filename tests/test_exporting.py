@@ -287,26 +287,33 @@ def test_nothing_to_export(tmp_path, files):
             p.export(tmp_path / "out", classes=["sitting"])
 
 
-class WithProposals(Project):
-    """A project whose proposals and accuracy estimate are fixed, to check how export uses them."""
+def fixed_proposals(monkeypatch):
+    """Fix the proposals and the accuracy estimate a project reports, to check how export uses
+    them."""
+    from labeler.service.audits import Audits
+    from labeler.service.proposals import Proposals
 
-    def proposals(self):
-        w = self.windows()
+    def table(self):
+        w = self.catalog.windows()
         return pd.DataFrame({"window_id": w["id"], "label": ["walking"] * len(w),
                              "confidence": np.linspace(0.3, 0.9, len(w)),
                              "margin": np.linspace(0.0, 0.6, len(w))})
 
-    def accuracy_estimate(self):
+    def accuracy_estimate(self, cross_validate=True):
         return {"value": 0.8, "low": 0.7, "high": 0.9, "basis": "audit", "n": 40,
                 "ece": float("nan")}
 
+    monkeypatch.setattr(Proposals, "table", table)
+    monkeypatch.setattr(Audits, "accuracy_estimate", accuracy_estimate)
 
-def test_export_with_proposals(tmp_path, files):
+
+def test_export_with_proposals(tmp_path, files, monkeypatch):
     with Project.create(tmp_path / "p.labeler", annotator="ana") as p:
         p.add_recordings(files[:1])
         p.confirm([1, 2], "sitting", create_class=True)
         p.add_class("walking")
-    p = WithProposals.open(tmp_path / "p.labeler", annotator="ana")
+    fixed_proposals(monkeypatch)
+    p = Project.open(tmp_path / "p.labeler", annotator="ana")
     out = p.export(tmp_path / "out")
     t = pd.read_csv(out["files"]["windows"])
     assert len(t) == p.n_windows

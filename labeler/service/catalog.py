@@ -1,0 +1,249 @@
+"""What was recorded: recordings, their signal, windows and features.
+
+Reading and checking files happens before the one transaction that adds them, so a bad file leaves
+the project as it was.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+
+from labeler import features as _features
+from labeler.errors import InputError, ProjectError
+from labeler.recordings import Recording, read_recording
+from labeler.service.context import Context, Progress
+from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+from storage import StoreError
+
+CHUNK_SECONDS = 60.0
+RECORDING_COLUMNS = ["id", "name", "source_path", "content_hash", "rate", "channels", "units",
+                     "n_samples", "start_time", "added_at", "added_by", "repairs", "window_length",
+                     "window_step"]
+
+
+@dataclass
+class AddedRecording:
+    id: int
+    name: str
+    n_samples: int
+    rate: float
+    n_windows: int
+    duration_s: float
+    repairs: list[str]
+
+
+class Catalog:
+    """Recordings, signal, windows and features of one project."""
+
+    def __init__(self, ctx: Context):
+        self.ctx = ctx
+
+    # ------------------------------------------------------------------ settings
+    @property
+    def window_length_s(self) -> float:
+        return float(self.ctx.store.setting("window_length_s", DEFAULT_LENGTH_S))
+
+    @property
+    def window_step_s(self) -> float:
+        return float(self.ctx.store.setting("window_step_s", DEFAULT_STEP_S))
+
+    @property
+    def feature_set_version(self) -> str:
+        return str(self.ctx.store.setting("feature_set_version", _features.FEATURE_SET_VERSION))
+
+    # ------------------------------------------------------------------ adding
+    def read_files(self, paths: Sequence[str | os.PathLike], *, rate: float | None = None,
+                   time_column: str | None = None, acc_unit: str = "g", gyr_unit: str = "deg/s",
+                   progress: Progress | None = None) -> list[Recording]:
+        """Read and check recording files (nothing is written)."""
+        if not paths:
+            raise InputError("no recording files given; pass one or more CSV or Parquet files")
+        recs: list[Recording] = []
+        for i, p in enumerate(paths):
+            self.ctx.refuse_own_file(p)
+            if progress:
+                progress(i / (2 * len(paths)), f"reading {Path(p).name}")
+            recs.append(read_recording(p, rate=rate, time_column=time_column, acc_unit=acc_unit,
+                                       gyr_unit=gyr_unit))
+        return recs
+
+    def add(self, recordings: Sequence[Recording], *, progress: Progress | None = None,
+            offset: float = 0.0) -> list[AddedRecording]:
+        """Add already-read recordings in one transaction: all of them or none."""
+        store = self.ctx.store
+        existing = {r["content_hash"]: r["name"] for r in store.recordings()}
+        names = {r["name"] for r in store.recordings()}
+        seen: dict[str, str] = {}
+        for rec in recordings:
+            if rec.content_hash in existing:
+                raise InputError(f"{rec.source_path}: already in the project as recording "
+                                 f"{existing[rec.content_hash]!r} (same content); nothing added")
+            if rec.content_hash in seen:
+                raise InputError(f"{rec.source_path}: same content as {seen[rec.content_hash]}; "
+                                 "give each recording once; nothing added")
+            seen[rec.content_hash] = rec.source_path
+            if rec.name in names:
+                raise InputError(f"{rec.source_path}: a recording named {rec.name!r} is already in "
+                                 "the project; rename the file; nothing added")
+            names.add(rec.name)
+        prepared = []
+        for i, rec in enumerate(recordings):
+            if progress:
+                progress(offset + (1 - offset) * i / max(1, len(recordings)),
+                         f"features of {rec.name}")
+            prepared.append(self._prepare(rec))
+        added = []
+        try:
+            with store.atomic():
+                for rec, (row, chunks, wins, feats) in zip(recordings, prepared):
+                    rid = store.add_recording(row, chunks, wins, feats)
+                    added.append(AddedRecording(rid, rec.name, rec.n_samples, rec.rate,
+                                                len(wins["seq"]), rec.duration_s, rec.repairs))
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+        self.ctx.invalidate()
+        if progress:
+            progress(1.0, "done")
+        return added
+
+    def _prepare(self, rec: Recording):
+        length, step = window_samples(rec.rate, self.window_length_s, self.window_step_s)
+        starts = cut_windows(rec.valid, length, step)
+        if starts.size == 0:
+            raise InputError(
+                f"{rec.source_path}: {rec.duration_s:.2f} s of usable signal holds no window of "
+                f"{self.window_length_s:g} s; give a longer recording or a project with shorter windows")
+        X, names = _features.window_features(rec.signal, starts, length, rec.rate, rec.channels)
+        X = np.ascontiguousarray(X, dtype=np.float32)
+        if not np.isfinite(X).all():
+            bad = names[int(np.flatnonzero(~np.isfinite(X).all(axis=0))[0])]
+            raise InputError(f"{rec.source_path}: feature {bad} is not finite; check the recording "
+                             "for constant or broken channels")
+        row = {"name": rec.name, "source_path": rec.source_path, "content_hash": rec.content_hash,
+               "rate": rec.rate, "channels": rec.channels, "units": rec.units,
+               "n_samples": rec.n_samples, "start_time": rec.start_time,
+               "added_by": self.ctx.annotator, "repairs": rec.repairs, "window_length": length,
+               "window_step": step}
+        chunk = max(1, int(CHUNK_SECONDS * rec.rate))
+        sig = np.ascontiguousarray(rec.signal, dtype=np.float32)
+        chunks = [(a, min(chunk, rec.n_samples - a), sig.shape[1], sig[a:a + chunk].tobytes())
+                  for a in range(0, rec.n_samples, chunk)]
+        wins = {"seq": np.arange(starts.size), "start_sample": starts,
+                "stop_sample": starts + length, "start_s": starts / rec.rate,
+                "stop_s": (starts + length) / rec.rate}
+        feats = {"version": _features.FEATURE_SET_VERSION, "names": names,
+                 "n_windows": int(X.shape[0]), "n_features": int(X.shape[1]), "data": X.tobytes()}
+        return row, chunks, wins, feats
+
+    # ------------------------------------------------------------------ recordings
+    def recordings(self) -> pd.DataFrame:
+        return pd.DataFrame(self.ctx.store.recordings(), columns=RECORDING_COLUMNS)
+
+    def recording_id(self, name_or_id: str | int) -> int:
+        recs = self.recordings()
+        if isinstance(name_or_id, (int, np.integer)) or str(name_or_id).isdigit():
+            hit = recs[recs["id"] == int(name_or_id)]
+            if len(hit) == 0:
+                hit = recs[recs["name"] == str(name_or_id)]
+        else:
+            hit = recs[recs["name"] == str(name_or_id)]
+        if len(hit) == 0:
+            known = ", ".join(recs["name"].head(8)) or "none yet"
+            raise InputError(f"no recording {name_or_id!r} in the project; recordings: {known}")
+        return int(hit["id"].iloc[0])
+
+    def signal(self, recording: str | int, start_s: float | None = None,
+               stop_s: float | None = None) -> tuple[np.ndarray, np.ndarray, list[str]]:
+        """(time in s, signal (n, channels) float32 with NaN in gaps, channel names) of a span."""
+        rid = self.recording_id(recording)
+        rec = self.recordings().set_index("id").loc[rid]
+        rate = float(rec["rate"])
+        a = 0 if start_s is None else max(0, int(np.floor(start_s * rate)))
+        b = int(rec["n_samples"]) if stop_s is None else min(int(rec["n_samples"]),
+                                                             int(np.ceil(stop_s * rate)))
+        b = max(a, b)
+        parts = []
+        n_ch = len(rec["channels"])
+        for s0, n, c, data in self.ctx.store.signal_chunks(rid, a, b):
+            block = np.frombuffer(data, dtype=np.float32).reshape(n, c)
+            lo, hi = max(a, s0) - s0, min(b, s0 + n) - s0
+            parts.append(block[lo:hi])
+        sig = np.concatenate(parts) if parts else np.empty((0, n_ch), np.float32)
+        return (a + np.arange(sig.shape[0])) / rate, sig, list(rec["channels"])
+
+    # ------------------------------------------------------------------ windows and features
+    def windows(self) -> pd.DataFrame:
+        """All windows: id, recording_id, recording, seq, start_sample, stop_sample, start_s, stop_s.
+
+        Ordered by id, which is also the row order of :meth:`features` and every per-window array.
+        """
+        cache = self.ctx.cache
+        if "windows" not in cache:
+            df = pd.DataFrame(self.ctx.store.windows_columns())
+            names = dict(zip(*[self.recordings()[c] for c in ("id", "name")]))
+            df.insert(2, "recording", df["recording_id"].map(names))
+            cache["windows"] = df
+        return cache["windows"].copy()
+
+    def features(self) -> tuple[np.ndarray, list[str]]:
+        """(X float32 (n_windows, n_features), names), rows in window-id order."""
+        cache = self.ctx.cache
+        if "features" not in cache:
+            blocks, names = [], None
+            for row in self.ctx.store.features():
+                if names is not None and row["names"] != names:
+                    raise ProjectError(f"{self.ctx.path}: recordings have different channels; "
+                                       "features cannot be compared across them")
+                names = row["names"]
+                blocks.append(np.frombuffer(row["data"], dtype=np.float32).reshape(
+                    row["n_windows"], row["n_features"]))
+            X = np.concatenate(blocks) if blocks else np.empty((0, 0), np.float32)
+            cache["features"] = (X, names or [])
+        X, names = cache["features"]
+        return X, list(names)
+
+    def window_ids_in_span(self, recording: str | int, start_s: float, end_s: float,
+                           rule: str = "majority") -> np.ndarray:
+        """Windows of a recording inside [start_s, end_s].
+
+        ``rule="majority"`` (default): a window belongs to the span when more than half of it lies
+        inside; ``"inside"``: only windows wholly inside; ``"touch"``: any overlap.
+        """
+        if not end_s > start_s:
+            raise InputError(f"span end {end_s} s is not after its start {start_s} s; swap them")
+        rid = self.recording_id(recording)
+        w = self.windows()
+        w = w[w["recording_id"] == rid]
+        a, b = w["start_s"].to_numpy(), w["stop_s"].to_numpy()
+        overlap = np.clip(np.minimum(b, end_s) - np.maximum(a, start_s), 0, None)
+        if rule == "majority":
+            keep = overlap > 0.5 * (b - a)
+        elif rule == "inside":
+            keep = (a >= start_s) & (b <= end_s)
+        elif rule == "touch":
+            keep = overlap > 0
+        else:
+            raise InputError(f"unknown span rule {rule!r}; use majority, inside or touch")
+        return w["id"].to_numpy()[keep]
+
+    def window_sequence(self) -> tuple[np.ndarray, np.ndarray]:
+        """(recording id, sequence) per window for temporal edges: consecutive windows of one
+        recording are one window step apart; a gap in the recording adds a jump of 2."""
+        w = self.windows()
+        recs = self.recordings().set_index("id")
+        rid = w["recording_id"].to_numpy(np.int64)
+        start = w["start_sample"].to_numpy(np.int64)
+        seq = np.zeros(len(w), dtype=np.int64)
+        for r in np.unique(rid):
+            idx = np.flatnonzero(rid == r)
+            idx = idx[np.argsort(start[idx], kind="stable")]
+            step = int(recs.loc[r, "window_step"])
+            jumps = np.where(np.diff(start[idx]) == step, 1, 2)
+            seq[idx] = np.concatenate([[0], np.cumsum(jumps)])
+        return rid, seq

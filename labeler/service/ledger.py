@@ -1,0 +1,322 @@
+"""Classes and labels: who said which window is what, when, and the way back (undo).
+
+Every change is one batch of events in one transaction (see :mod:`storage.store`); nothing in the
+history is ever deleted.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+from typing import Iterable
+
+import numpy as np
+import pandas as pd
+
+from labeler.errors import InputError
+from labeler.service.catalog import Catalog
+from labeler.service.context import Context
+from storage import StoreError
+
+# Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
+# colorblind people", 2008: eight colours distinguishable with the common colour-vision deficiencies.
+# Ordered so that the first classes get the most distinct (orange, blue, green, purple); the two
+# blues and the two oranges are kept apart. Black is last; it is used for the eighth class.
+PALETTE = ("#E69F00", "#0072B2", "#009E73", "#CC79A7", "#F0E442", "#56B4E9", "#D55E00", "#000000")
+SOURCES = ("map", "timeline", "queue", "audit", "import", "cli", "api", "class-merge", "undo")
+_CLASS_NAME = re.compile(r"^[^\x00-\x1f\x7f]{1,60}$")
+CLASS_COLUMNS = ["id", "name", "colour", "position", "created_at", "created_by", "retired_at",
+                 "merged_into"]
+EVENT_COLUMNS = ["id", "at", "annotator", "action", "window_id", "class_id", "source", "batch_id",
+                 "note"]
+
+
+def check_class_name(name: str) -> str:
+    name = str(name).strip()
+    if not _CLASS_NAME.match(name):
+        raise InputError(f"class name {name!r} must be 1-60 printable characters")
+    return name
+
+
+class Ledger:
+    """Classes, labels, the label history and several annotators' views of one project."""
+
+    def __init__(self, ctx: Context, catalog: Catalog):
+        self.ctx = ctx
+        self.catalog = catalog
+
+    # ------------------------------------------------------------------ classes
+    def classes(self, include_retired: bool = True) -> pd.DataFrame:
+        return pd.DataFrame(self.ctx.store.classes(include_retired), columns=CLASS_COLUMNS)
+
+    def class_names(self) -> dict[int, str]:
+        """Class id -> name, retired classes included."""
+        cls = self.classes()
+        return dict(zip(cls["id"], cls["name"]))
+
+    def active_classes(self) -> list[str]:
+        return list(self.classes(include_retired=False)["name"])
+
+    def add_class(self, name: str, colour: str | None = None) -> int:
+        name = check_class_name(name)
+        if colour is None:
+            used = len(self.ctx.store.classes())
+            colour = PALETTE[used % len(PALETTE)]
+        if not re.fullmatch(r"#[0-9A-Fa-f]{6}", colour):
+            raise InputError(f"colour {colour!r} is not a #RRGGBB colour; give e.g. #0072B2")
+        try:
+            return self.ctx.store.add_class(name, colour, self.ctx.annotator)
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+
+    def class_id(self, name: str, *, create: bool = False, allow_retired: bool = False) -> int:
+        row = self.ctx.store.class_by_name(str(name).strip())
+        if row is None:
+            if create:
+                return self.add_class(name)
+            known = ", ".join(self.active_classes()) or "none yet"
+            raise InputError(f"no class {name!r}; classes: {known}; add it with `labeler class add`")
+        if row["retired_at"] is not None and not allow_retired:
+            if row["merged_into"] is not None:
+                into = self.class_name(row["merged_into"])
+                raise InputError(f"class {row['name']!r} was merged into {into!r}; use {into!r}")
+            raise InputError(f"class {row['name']!r} is retired; it takes no new confirmations")
+        return int(row["id"])
+
+    def class_name(self, class_id: int) -> str:
+        return str(self.class_names()[int(class_id)])
+
+    def rename_class(self, old: str, new: str) -> None:
+        cid = self.class_id(old, allow_retired=True)
+        new = check_class_name(new)
+        try:
+            self.ctx.store.rename_class(cid, new, self.ctx.annotator)
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+
+    def retire_class(self, name: str) -> None:
+        self.ctx.store.retire_class(self.class_id(name), self.ctx.annotator)
+
+    def merge_classes(self, source: str, target: str) -> str | None:
+        """Move every label of ``source`` to ``target`` (one batch), then retire ``source``.
+
+        The windows keep their history: the move is a batch of events of its own. Returns the batch id
+        (None when no window carried the class).
+        """
+        store = self.ctx.store
+        src = self.class_id(source)
+        dst = self.class_id(target)
+        if src == dst:
+            raise InputError(f"cannot merge class {source!r} into itself; give two classes")
+        with store.atomic():
+            rows = [(w, who) for w, who, c in store.annotations() if c == src]
+            batch = None
+            if rows:
+                batch = store.apply_batch(
+                    self.ctx.annotator, "merge", "class-merge", [(w, dst) for w, _ in rows],
+                    note=f"merged {source} into {target}", per_annotator=[who for _, who in rows])
+            store.retire_class(src, self.ctx.annotator, merged_into=dst)
+        return batch
+
+    # ------------------------------------------------------------------ labels
+    def confirm(self, window_ids: Iterable[int], class_name: str, *, source: str = "api",
+                note: str | None = None, create_class: bool = False) -> str:
+        """Confirm windows as one class: one batch of events. Returns the batch id."""
+        ids = self.check_window_ids(window_ids)
+        if source not in SOURCES:
+            raise InputError(f"unknown source {source!r}; use one of {', '.join(SOURCES)}")
+        cid = self.class_id(class_name, create=create_class)
+        return self.ctx.store.apply_batch(self.ctx.annotator, "confirm", source,
+                                          [(int(w), cid) for w in ids], note=note)
+
+    def withdraw(self, window_ids: Iterable[int], *, source: str = "api",
+                 note: str | None = None) -> str:
+        """Withdraw this annotator's labels of the windows (one batch)."""
+        ids = self.check_window_ids(window_ids)
+        return self.ctx.store.apply_batch(self.ctx.annotator, "withdraw", source,
+                                          [(int(w), None) for w in ids], note=note)
+
+    def check_window_ids(self, window_ids: Iterable[int]) -> list[int]:
+        try:
+            ids = sorted({int(w) for w in window_ids})
+        except (TypeError, ValueError):
+            raise InputError("window ids must be whole numbers; list them like 12 13 14") from None
+        if not ids:
+            raise InputError("no windows given; select or list at least one window")
+        known = self.catalog.windows()["id"].to_numpy()
+        if known.size == 0:
+            raise InputError(f"{self.ctx.path}: the project has no windows yet; add recordings "
+                             "first with `labeler add`")
+        missing = np.setdiff1d(ids, known)
+        if missing.size:
+            raise InputError(f"window {int(missing[0])} is not in the project (window ids run from "
+                             f"{int(known.min())} to {int(known.max())}); give ids in that range")
+        return ids
+
+    def undo(self, batch_id: str | None = None) -> str:
+        """Undo a batch (default: this annotator's last one not yet undone) by appending events.
+
+        Each window touched by the batch gets back the label it had before the batch, unless its label
+        has changed since (a later batch set another class): then the later change stands and the window
+        is left alone. Returns the undo's batch id.
+        """
+        store, me = self.ctx.store, self.ctx.annotator
+        with store.atomic():
+            if batch_id is None:
+                target = store.last_undoable_batch(me)
+                if target is None:
+                    raise InputError(f"nothing to undo for annotator {me!r}")
+            else:
+                target = store.batch(batch_id)
+                if target is None:
+                    raise InputError(f"no batch {batch_id!r}; list batches with `labeler history`")
+                if target["undone_by"] is not None:
+                    raise InputError(f"batch {batch_id} was undone already (by {target['undone_by']})")
+            changes, whose = [], []
+            for ev in store.batch_events(target["id"]):
+                now = store.annotation(ev["window_id"], ev["annotator"])
+                now_class = None if now is None else now["class_id"]
+                if now_class != ev["class_id"]:  # changed since; the later change stands
+                    continue
+                before = store.state_before(ev["id"], ev["window_id"], ev["annotator"])
+                changes.append((ev["window_id"], before))
+                whose.append(ev["annotator"])
+            return store.apply_batch(me, "undo", "undo", changes,
+                                     note=f"undo of batch {target['id']}", undoes=target["id"],
+                                     per_annotator=whose)
+
+    def labels(self) -> pd.DataFrame:
+        """Current label of every labeled window: window_id, class, class_id, annotator, at, source."""
+        rows = self.ctx.store.current_labels()
+        df = pd.DataFrame(rows, columns=["window_id", "class_id", "annotator", "at", "source"])
+        df.insert(1, "class", df["class_id"].map(self.class_names()))
+        return df
+
+    def label_vector(self) -> tuple[np.ndarray, list[str]]:
+        """(y, class names): y[i] is the index into class names of window i's current label, -1 when
+        unlabeled; rows in window-id order. Class names are the active classes plus any retired class
+        that still carries labels."""
+        w = self.catalog.windows()
+        lab = self.labels()
+        names = self.active_classes()
+        for c in lab["class"].unique():
+            if c not in names:
+                names.append(c)
+        index = {c: i for i, c in enumerate(names)}
+        y = np.full(len(w), -1, dtype=np.int64)
+        pos = pd.Index(w["id"]).get_indexer(lab["window_id"])
+        y[pos] = lab["class"].map(index).to_numpy()
+        return y, names
+
+    def class_codes(self) -> np.ndarray:
+        """Current label of every window as its class id (stable across runs), -1 unlabeled."""
+        y, names = self.label_vector()
+        ids = {str(n): int(i) for i, n in self.class_names().items()}
+        lut = np.array([ids[n] for n in names], dtype=np.int64) if names else np.zeros(0, np.int64)
+        return np.where(y >= 0, lut[np.maximum(y, 0)] if lut.size else -1, -1)
+
+    def history(self, *, annotator: str | None = None, class_name: str | None = None,
+                source: str | None = None, since: str | None = None,
+                until: str | None = None) -> pd.DataFrame:
+        clauses, args = [], []
+        if annotator:
+            clauses.append("annotator = ?")
+            args.append(annotator)
+        if class_name:
+            clauses.append("class_id = ?")
+            args.append(self.class_id(class_name, allow_retired=True))
+        if source:
+            clauses.append("source = ?")
+            args.append(source)
+        if since:
+            clauses.append("at >= ?")
+            args.append(since)
+        if until:
+            clauses.append("at <= ?")
+            args.append(until)
+        rows = self.ctx.store.events(" AND ".join(clauses), args)
+        df = pd.DataFrame(rows, columns=EVENT_COLUMNS)
+        df.insert(6, "class", df["class_id"].map(self.class_names()))
+        return df
+
+    # ------------------------------------------------------------------ interval import
+    def import_intervals(self, path: str | os.PathLike, *, dry_run: bool = False,
+                         create_classes: bool = True) -> dict:
+        """Confirm the windows inside each interval of an interval-label file (source "import").
+
+        One batch per annotator named in the file (rows without one are this annotator's). With
+        ``dry_run`` nothing is written; the report says what would change. Windows take an interval's
+        label by the majority rule of :mod:`labeler.importing`.
+        """
+        from labeler import importing
+
+        self.ctx.refuse_own_file(path)
+        intervals = importing.read_intervals(path)
+        recs = self.catalog.recordings()
+        importing.check_recordings(intervals, dict(zip(recs["name"], recs["n_samples"] / recs["rate"])),
+                                   path)
+        known = list(self.classes()["name"])
+        new_classes = importing.new_class_names(intervals, known)
+        if new_classes and not create_classes:
+            raise InputError(f"{path}: unknown class {new_classes[0]!r}; add it first or allow new "
+                             "classes")
+        by_lower = {c.lower(): c for c in known}
+        for iv in intervals:
+            if iv.label.lower() in by_lower:
+                self.class_id(by_lower[iv.label.lower()])  # refuses retired classes, naming them
+        names = self.class_names()
+        current = {(w, who): names.get(c) for w, who, c in self.ctx.store.annotations()}
+        match = importing.match_intervals(intervals, self.catalog.windows(), known, current,
+                                          self.ctx.annotator)
+        per_who = match.per_annotator
+        report = {"intervals": len(intervals), "windows": sum(len(m) for m in per_who.values()),
+                  "changes": match.changes, "relabels": match.relabels, "new_classes": new_classes,
+                  "rows": match.rows, "annotators": sorted(per_who), "batches": []}
+        if dry_run:
+            return report
+        with self.ctx.store.atomic():
+            for name in new_classes:
+                self.add_class(name)
+            ids_by_name = {n: int(i) for i, n in self.class_names().items()}
+            for who, m in per_who.items():
+                if not m:
+                    continue
+                batch = self.ctx.store.apply_batch(
+                    who, "confirm", "import", [(w, ids_by_name[c]) for w, c in sorted(m.items())],
+                    note=f"imported from {Path(path).name}")
+                report["batches"].append(batch)
+        return report
+
+    # ------------------------------------------------------------------ summaries
+    def counts(self) -> pd.DataFrame:
+        """Confirmed windows per class (all classes, retired ones included)."""
+        lab = self.labels()
+        cls = self.classes()
+        confirmed = lab.groupby("class_id").size()
+        out = pd.DataFrame({"class": cls["name"], "confirmed": cls["id"].map(confirmed)
+                            .fillna(0).astype(int), "retired": cls["retired_at"].notna()})
+        return out.reset_index(drop=True)
+
+    # ------------------------------------------------------------------ several annotators
+    def annotations(self) -> pd.DataFrame:
+        """Every annotator's current label of every window they labeled: window_id, annotator,
+        class_id, label."""
+        df = pd.DataFrame(self.ctx.store.annotations(),
+                          columns=["window_id", "annotator", "class_id"])
+        df["label"] = df["class_id"].map(self.class_names())
+        return df
+
+    def disagreements(self) -> np.ndarray:
+        """Ids of windows whose annotators' current labels differ (for the review queue)."""
+        from labeler.agreement import disagreeing
+
+        return disagreeing(self.annotations())
+
+    def agreement(self) -> dict:
+        """Agreement between annotators on the windows several of them labeled: pairwise confusion
+        tables and Cohen's kappa, Fleiss' kappa over windows all of three or more labeled
+        (see :mod:`labeler.agreement`)."""
+        from labeler.agreement import agreement_report
+
+        return agreement_report(self.annotations())

@@ -1,0 +1,236 @@
+"""Proposals: label spreading over the window graph and the review queue.
+
+Label spreading over the window graph (:mod:`labeler.graph`, :mod:`labeler.spreading`) and the review
+queue (:mod:`labeler.review`). The graph is cached as a blob and rebuilt only when the recordings, the
+feature set or the graph parameters change; each refresh is a run (kind "proposals") with its
+parameters and summary, and the latest per-window results are kept as one blob. Proposed labels are
+suggestions for a person to review.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import time
+
+import numpy as np
+import pandas as pd
+from scipy import sparse
+
+from labeler.errors import InputError
+from labeler.service.catalog import Catalog
+from labeler.service.context import Context, Progress
+from labeler.service.ledger import Ledger
+
+GRAPH_BLOB = "proposals/graph"
+LATEST_BLOB = "proposals/latest"
+GRAPH_PARAMS = ("n_neighbors", "temporal_weight", "pca_components")
+PROPOSAL_COLUMNS = ["window_id", "label", "class_id", "confidence", "margin", "support", "conflict",
+                    "confirmed"]
+
+
+class Proposals:
+    """The window graph, proposal runs and what to look at next."""
+
+    def __init__(self, ctx: Context, catalog: Catalog, ledger: Ledger):
+        self.ctx = ctx
+        self.catalog = catalog
+        self.ledger = ledger
+
+    # ------------------------------------------------------------------ graph
+    def _graph_key(self, params: dict) -> str:
+        recs = self.catalog.recordings()
+        ident = {"recordings": [[int(i), str(h)] for i, h in zip(recs["id"], recs["content_hash"])],
+                 "features": self.catalog.feature_set_version,
+                 "n_windows": len(self.catalog.windows()), **params}
+        return hashlib.sha256(json.dumps(ident, sort_keys=True).encode()).hexdigest()[:16]
+
+    def graph(self, params: dict, progress: Progress | None = None):
+        """(graph, key, rebuilt): the cached window graph, built when missing or outdated."""
+        from labeler.graph import build_graph
+
+        key = self._graph_key(params)
+        cached = self.ctx.cache.get("graph")
+        if cached is not None and cached[1] == key:
+            return cached[0], key, False
+        got = self.ctx.store.get_blob(GRAPH_BLOB)
+        if got is not None and got[1].get("key") == key:
+            W = sparse.load_npz(io.BytesIO(got[0])).tocsr()
+            self.ctx.cache["graph"] = (W, key)
+            return W, key, False
+        X, _ = self.catalog.features()
+        if X.shape[0] < 2:
+            raise InputError(f"{self.ctx.path}: proposals need at least 2 windows; add recordings "
+                             "first with `labeler add`")
+        if progress:
+            progress(0.1, f"graph of {X.shape[0]} windows")
+        rid, seq = self.catalog.window_sequence()
+        pca = params["pca_components"]
+        W = build_graph(X, recording=rid, seq=seq, n_neighbors=params["n_neighbors"],
+                        temporal_weight=params["temporal_weight"],
+                        pca_components=pca if pca and pca < X.shape[1] else None)
+        buf = io.BytesIO()
+        sparse.save_npz(buf, W)
+        self.ctx.store.put_blob(GRAPH_BLOB, buf.getvalue(), {"key": key, **params})
+        self.ctx.cache["graph"] = (W, key)
+        return W, key, True
+
+    def graph_params(self) -> dict:
+        """Graph parameters of the latest proposal run (the defaults before any run)."""
+        run = self.ctx.store.latest_run("proposals")
+        if run is not None:
+            return {k: run["params"][k] for k in GRAPH_PARAMS}
+        from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
+        return {"n_neighbors": 10, "temporal_weight": DEFAULT_TEMPORAL_WEIGHT, "pca_components": 30}
+
+    # ------------------------------------------------------------------ runs
+    def latest_arrays(self) -> dict | None:
+        """The latest stored proposal arrays (npz) with their run, or None."""
+        got = self.ctx.store.get_blob(LATEST_BLOB)
+        if got is None:
+            return None
+        with np.load(io.BytesIO(got[0]), allow_pickle=False) as z:
+            out = {k: z[k] for k in z.files}
+        out["meta"] = got[1]
+        return out
+
+    def refresh(self, *, alpha: float | None = None, n_neighbors: int = 10,
+                temporal_weight: float | None = None, pca_components: int | None = 30,
+                progress: Progress | None = None) -> dict:
+        """Spread the confirmed labels over the window graph; store the result as a run.
+
+        Starts from the previous run's scores (warm start) when the graph is unchanged. Returns
+        the run's summary (run id, confirmed windows, classes, proposed windows, mean confidence,
+        solver iterations, seconds, whether the graph was rebuilt).
+        """
+        from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
+        from labeler.spreading import DEFAULT_ALPHA, LabelSpreader
+
+        t0 = time.perf_counter()
+        alpha = DEFAULT_ALPHA if alpha is None else float(alpha)
+        if not 0 < alpha < 1:
+            raise InputError(f"alpha {alpha} must lie strictly between 0 and 1; give e.g. 0.9")
+        tw = DEFAULT_TEMPORAL_WEIGHT if temporal_weight is None else float(temporal_weight)
+        gparams = {"n_neighbors": int(n_neighbors), "temporal_weight": tw,
+                   "pca_components": None if pca_components is None else int(pca_components)}
+        y = self.ledger.class_codes()
+        if not (y >= 0).any():
+            raise InputError(f"{self.ctx.path}: no confirmed window yet; confirm a few windows of "
+                             "each activity first (e.g. `labeler confirm` or the review queue)")
+        try:
+            W, key, rebuilt = self.graph(gparams, progress)
+        except ValueError as exc:
+            raise InputError(f"{self.ctx.path}: {exc}") from None
+        if progress:
+            progress(0.6, "spreading labels")
+        spreader = LabelSpreader(alpha=alpha)
+        prev = self.latest_arrays()
+        same = prev is not None and prev["meta"].get("graph_key") == key \
+            and prev["meta"].get("alpha") == alpha
+        init = init_classes = None
+        if same and prev["F"].shape[0] == y.size:
+            init, init_classes = prev["F"].astype(np.float64), prev["classes"]
+        spreader.fit(W, y, init=init, init_classes=init_classes)
+        if same and "reference" in prev:
+            reference = prev["reference"].astype(np.float64)
+        else:
+            reference = spreader.reference_mass()
+        out = spreader.outputs(y, reference=reference)
+        unconf = y < 0
+        names = self.ledger.class_names()
+        counts = {names[int(c)]: int((y == c).sum()) for c in spreader.classes_}
+        summary = {"confirmed": int((~unconf).sum()), "windows": int(y.size),
+                   "classes": counts, "proposed": int(unconf.sum()),
+                   "mean_confidence": float(out.confidence[unconf].mean()) if unconf.any() else None,
+                   "low_support": int((out.support[unconf] < 0.05).sum()),
+                   "conflicts": int(((~unconf) & (out.conflict > 0.5)).sum()),
+                   "iterations": int(spreader.n_iter_), "warm_start": init is not None,
+                   "graph_rebuilt": bool(rebuilt), "graph_edges": int(W.nnz // 2)}
+        params = {"alpha": alpha, **gparams, "solver": spreader.solver, "tol": spreader.tol,
+                  "method": "label spreading (Zhou et al. 2004) on a kNN graph with local "
+                            "scaling (Zelnik-Manor & Perona 2004)", "graph_key": key}
+        buf = io.BytesIO()
+        np.savez(buf, window_id=self.catalog.windows()["id"].to_numpy(np.int64),
+                 F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
+                 label=out.label, confidence=out.confidence.astype(np.float32),
+                 margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
+                 conflict=out.conflict.astype(np.float32), y=y,
+                 reference=np.asarray(reference, dtype=np.float32))
+        summary["seconds"] = round(time.perf_counter() - t0, 3)
+        store = self.ctx.store
+        with store.atomic():
+            run_id = store.add_run("proposals", params, summary, created_by=self.ctx.annotator)
+            store.put_blob(LATEST_BLOB, buf.getvalue(),
+                           {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
+        self.ctx.invalidate("proposals")
+        if progress:
+            progress(1.0, "done")
+        return {"run_id": run_id, **summary}
+
+    def table(self) -> pd.DataFrame:
+        """Latest proposals: window_id, label (class name), class_id, confidence, margin, support,
+        conflict, confirmed (whether the window was confirmed at that run). Empty when none yet."""
+        cache = self.ctx.cache
+        if "proposals" in cache:
+            return cache["proposals"].copy()
+        p = self.latest_arrays()
+        if p is None:
+            return pd.DataFrame(columns=PROPOSAL_COLUMNS)
+        df = pd.DataFrame({"window_id": p["window_id"], "class_id": p["label"],
+                           "confidence": p["confidence"].astype(np.float64),
+                           "margin": p["margin"].astype(np.float64),
+                           "support": p["support"].astype(np.float64),
+                           "conflict": p["conflict"].astype(np.float64),
+                           "confirmed": p["y"] >= 0})
+        df.insert(1, "label", df["class_id"].map(self.ledger.class_names()))
+        df = df[df["window_id"].isin(self.catalog.windows()["id"])][PROPOSAL_COLUMNS]
+        df = df.reset_index(drop=True)
+        cache["proposals"] = df
+        return df.copy()
+
+    # ------------------------------------------------------------------ review queue
+    def review_queue(self, n: int = 50, *, exclude: np.ndarray | None = None) -> pd.DataFrame:
+        """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
+        unexplored), score, proposed label and its confidence. Uses the latest proposals; before
+        any confirmation it spreads its picks over the graph. ``exclude``: window ids left out
+        (drawn into an open audit)."""
+        from labeler.review import review_queue as _queue
+        from labeler.spreading import WindowOutputs
+
+        if int(n) != n or n < 1:
+            raise InputError(f"queue length {n} must be a whole number >= 1")
+        w = self.catalog.windows()
+        if len(w) < 2:
+            raise InputError(f"{self.ctx.path}: the project has fewer than 2 windows; add "
+                             "recordings first")
+        W, key, _ = self.graph(self.graph_params())
+        ids = w["id"].to_numpy(np.int64)
+        lab = self.ledger.labels()
+        labeled = np.isin(ids, lab["window_id"].to_numpy())
+        # a window confirmed while looked at alone (queue or audit) is not raised as a conflict
+        # again: the person has seen its signal and the proposal; bulk picks are where slips hide
+        looked = np.isin(ids, lab.loc[lab["source"].isin(("queue", "audit")), "window_id"])
+        p = self.latest_arrays()
+        outputs = None
+        if p is not None and p["meta"].get("graph_key") == key and p["window_id"].size == ids.size:
+            outputs = WindowOutputs(p["classes"], p["label"], np.zeros((ids.size, 0)),
+                                    p["confidence"], p["margin"], p["support"], p["conflict"])
+            # a conflict is about the label confirmed at the run; newer confirmations are not
+            outputs.conflict = np.where((p["y"] >= 0) & ~looked, p["conflict"], 0.0)
+        dis = np.isin(ids, self.ledger.disagreements())
+        excl = np.isin(ids, np.empty(0, np.int64) if exclude is None else exclude)
+        rid, seq = self.catalog.window_sequence()
+        q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl)
+        names = self.ledger.class_names()
+        df = pd.DataFrame({"window_id": ids[q.index], "reason": q.reason, "score": q.score})
+        if outputs is not None:
+            df["proposed"] = pd.Series(outputs.label[q.index]).map(names).to_numpy()
+            df["confidence"] = outputs.confidence[q.index].astype(np.float64)
+        else:
+            df["proposed"] = None
+            df["confidence"] = np.nan
+        w_idx = w.set_index("id").loc[df["window_id"]]
+        df["recording"] = w_idx["recording"].to_numpy()
+        df["start_s"] = w_idx["start_s"].to_numpy()
+        return df
