@@ -2,8 +2,8 @@
 
 A map is a run of kind "map" (params: method and its parameters; summary: counts, seconds) with two
 blobs: "map/<run>/coords" (npz: window_id int64, coords float32 (n, 2)) and "map/<run>/state"
-(:meth:`labeler.embedding.MapState.to_bytes`: plain arrays, no pickle). Adding recordings to a project
-that has a map places their windows into it as a new run (:meth:`Maps.place_new`); a full re-fit is
+(:meth:`labeler.embedding.MapState.to_bytes`: plain arrays only). Adding recordings to a project that
+has a map places their windows into it as a new run (:meth:`Maps.place_new`); a full re-fit is
 :meth:`Maps.compute`.
 """
 
