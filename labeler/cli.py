@@ -156,22 +156,18 @@ def status_cmd(project):
 
 def _print_status(p) -> None:
     s = p.status()
-    click.echo(f"project {s['path']}")
-    click.echo(f"  {s['recordings']} recording(s), {s['hours']:.2f} h, {s['windows']} windows of "
-               f"{s['window_length_s']:g} s every {s['window_step_s']:g} s "
-               f"(feature set {s['feature_set_version']})")
-    click.echo(f"  {s['confirmed']} window(s) confirmed"
-               + (f" by {', '.join(s['annotators'])}" if s["annotators"] else ""))
-    counts = s["counts"]
+    click.echo(f"project {s.path}")
+    click.echo(f"  {s.recordings} recording(s), {s.hours:.2f} h, {s.windows} windows of "
+               f"{s.window_length_s:g} s every {s.window_step_s:g} s "
+               f"(feature set {s.feature_set_version})")
+    click.echo(f"  {s.confirmed} window(s) confirmed"
+               + (f" by {', '.join(s.annotators)}" if s.annotators else ""))
+    counts = s.counts
     if len(counts):
         width = max(len(c) for c in counts["class"])
         for _, row in counts.iterrows():
             mark = " (retired)" if row["retired"] else ""
             click.echo(f"    {row['class']:<{width}}  {row['confirmed']:>6} confirmed{mark}")
-    extra = getattr(p, "status_extra", None)
-    if callable(extra):
-        for line in extra():
-            click.echo("  " + line)
 
 
 MAX_RANGE = 1_000_000
@@ -228,8 +224,8 @@ def confirm_cmd(project, class_name, window_ids, span, new_class, note, annotato
         else:
             ids = _parse_ids(window_ids)
         batch = p.confirm(ids, class_name, source="cli", note=note, create_class=new_class)
-        click.echo(f"confirmed {len(set(map(int, ids)))} window(s) as {class_name} "
-                   f"(batch {batch[:8]})")
+        click.echo(f"confirmed {batch.n_windows} window(s) as {class_name} "
+                   f"(batch {batch.batch_id[:8]})")
 
 
 @cli.command("undo")
@@ -239,15 +235,9 @@ def confirm_cmd(project, class_name, window_ids, span, new_class, note, annotato
 def undo_cmd(project, batch_id, annotator):
     """Undo your last batch (or a given one). Nothing is deleted; the undo is a batch of its own."""
     with _open(project, annotator) as p:
-        if batch_id is not None and len(batch_id) < 32:
-            full = [b["id"] for b in p.store.batches() if b["id"].startswith(batch_id)]
-            if len(full) != 1:
-                raise UserError(f"--batch {batch_id}: matches {len(full)} batches; give more of the id")
-            batch_id = full[0]
         undo = p.undo(batch_id)
-        n = len(p.store.batch_events(undo))
-        target = p.store.batch(undo)["undoes"]
-        click.echo(f"undid batch {target[:8]}: {n} window(s) restored (batch {undo[:8]})")
+    click.echo(f"undid batch {undo.undoes[:8]}: {undo.n_events} window(s) restored "
+               f"(batch {undo.batch_id[:8]})")
 
 
 @cli.group("class", cls=_Group)
@@ -306,8 +296,7 @@ def class_merge_cmd(project, source, target, annotator):
     """Move every label of SOURCE to TARGET and retire SOURCE."""
     with _open(project, annotator) as p:
         batch = p.merge_classes(source, target)
-        n = len(p.store.batch_events(batch)) if batch else 0
-        click.echo(f"merged {source} into {target}: {n} label(s) moved")
+        click.echo(f"merged {source} into {target}: {batch.n_events} label(s) moved")
 
 
 @class_group.command("retire")
@@ -397,12 +386,12 @@ def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, ov
         out = p.export(folder, fmt=fmt, confirmed_only=confirmed_only,
                        min_confidence=min_confidence, classes=list(classes) or None,
                        overwrite=overwrite)
-    m = out["manifest"]
+    m = out.manifest
     by = m["counts"]["by_status"]
-    click.echo(f"wrote {out['windows']} window(s) ({by['confirmed']} confirmed, {by['proposed']} "
-               f"proposed) and {out['segments']} segment(s) to {folder}")
+    click.echo(f"wrote {out.windows} window(s) ({by['confirmed']} confirmed, {by['proposed']} "
+               f"proposed) and {out.segments} segment(s) to {folder}")
     for kind in ("windows", "segments", "manifest"):
-        click.echo(f"  {out['files'][kind]}")
+        click.echo(f"  {out.files[kind]}")
     click.echo("  accuracy estimate: " + _accuracy_line(m))
     if by["proposed"]:
         click.echo("  proposed labels are suggestions; a qualified person reviews them before use")
@@ -412,15 +401,11 @@ def _accuracy_line(manifest: dict) -> str:
     est = manifest.get("accuracy_estimate")
     if not est:
         return f"none ({manifest.get('accuracy_estimate_absent') or 'not available'})"
-    value = est.get("accuracy", est.get("value"))
-    lo, hi = est.get("low", est.get("lower")), est.get("high", est.get("upper"))
-    text = f"{value:.3f}" if isinstance(value, (int, float)) else str(value)
-    if isinstance(lo, (int, float)) and isinstance(hi, (int, float)):
+    value, lo, hi = est["value"], est["low"], est["high"]
+    text = "none" if value is None else f"{value:.3f}"
+    if lo is not None and hi is not None:
         text += f" ({lo:.3f}-{hi:.3f})"
-    rests = est.get("method") or est.get("basis")
-    if rests and isinstance(est.get("n"), int):
-        rests = f"{rests} of {est['n']} window(s)"
-    return text + (f", {rests}" if rests else "")
+    return text + f", {est['basis']} of {est['n']} window(s)"
 
 
 @cli.command("import")
@@ -437,20 +422,19 @@ def import_cmd(project, file, dry_run, no_new_classes, annotator):
     with _open(project, annotator) as p:
         r = p.import_intervals(file, dry_run=dry_run, create_classes=not no_new_classes)
     verb = "would confirm" if dry_run else "confirmed"
-    click.echo(f"{'dry run: ' if dry_run else ''}{verb} {r['windows']} window(s) from "
-               f"{r['intervals']} interval(s) for {', '.join(r['annotators'])}: {r['changes']} "
-               f"change(s), {r['relabels']} of them relabel(s)")
-    if r["new_classes"]:
-        click.echo(f"  {'would add' if dry_run else 'added'} class(es): "
-                   + ", ".join(r["new_classes"]))
-    for row in r["rows"]:
-        if row["windows"] == 0:
-            click.echo(f"  row {row['row']}: no window of {row['recording']} is centred in it; "
+    click.echo(f"{'dry run: ' if dry_run else ''}{verb} {r.windows} window(s) from "
+               f"{r.intervals} interval(s) for {', '.join(r.annotators)}: {r.changes} "
+               f"change(s), {r.relabels} of them relabel(s)")
+    if r.new_classes:
+        click.echo(f"  {'would add' if dry_run else 'added'} class(es): " + ", ".join(r.new_classes))
+    for row in r.rows:
+        if row.windows == 0:
+            click.echo(f"  row {row.row}: no window of {row.recording} is centred in it; "
                        "nothing labeled")
     if dry_run:
         click.echo("  nothing written")
     else:
-        click.echo("  batch(es): " + ", ".join(b[:8] for b in r["batches"]))
+        click.echo("  batch(es): " + ", ".join(b.batch_id[:8] for b in r.batches))
 
 
 def _utc_option(value: str | None, option: str) -> str | None:
@@ -501,7 +485,6 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last, 
             click.echo("no events match")
             return
         w = p.windows().set_index("id")
-        by = {b["id"]: b["annotator"] for b in p.store.batches()}
         # annotator: whose label the event set; by: who acted (differs for undo and class merges)
         rows = [("event", "at (UTC)", "annotator", "by", "action", "window", "class", "source",
                  "batch")]
@@ -510,7 +493,7 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last, 
                    if ev.window_id in w.index else str(ev.window_id))
             label = "-" if ev.class_id is None or ev.class_id != ev.class_id else str(ev[6])
             rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator,
-                         by.get(ev.batch_id, "?"), ev.action, win, label, ev.source,
+                         ev.by if isinstance(ev.by, str) else "?", ev.action, win, label, ev.source,
                          ev.batch_id[:8]))
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for r in rows:
@@ -518,23 +501,16 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last, 
 
 
 def _print_class_log(project, who) -> None:
-    import json
-
     with _open(project, readonly=True) as p:
-        names = dict(zip(p.classes()["id"], p.classes()["name"]))
-        log = [r for r in p.store.class_log() if who is None or r["annotator"] == who]
-    if not log:
+        log = p.class_log(who)
+    if not len(log):
         click.echo("no class changes match")
         return
     rows = [("at (UTC)", "by", "action", "class (now)", "detail")]
-    for r in log:
-        detail = json.loads(r["detail"] or "{}")
-        if "merged_into" in detail:
-            into = detail["merged_into"]
-            detail = {"into": names.get(into, into)} if into is not None else {}
-        text = ", ".join(f"{k} {v}" for k, v in detail.items())
+    for r in log.to_dict("records"):
+        text = ", ".join(f"{k} {v}" for k, v in r["detail"].items())
         rows.append((r["at"][:19].replace("T", " "), r["annotator"], r["action"],
-                     str(names.get(r["class_id"], r["class_id"])), text))
+                     str(r["class"] if r["class"] is not None else r["class_id"]), text))
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for r in rows:
         click.echo("  ".join(v.ljust(n) for v, n in zip(r, widths)).rstrip())
@@ -594,14 +570,14 @@ def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
         with bar:
             s = p.refresh_proposals(alpha=alpha, n_neighbors=neighbors,
                                     temporal_weight=temporal_weight, progress=progress)
-    mean = s["mean_confidence"]
-    click.echo(f"proposals run {s['run_id']}: {s['proposed']} window(s) proposed from "
-               f"{s['confirmed']} confirmed in {len(s['classes'])} class(es) in {s['seconds']:.2f} s"
-               + (", graph rebuilt" if s["graph_rebuilt"] else "")
-               + (", warm start" if s["warm_start"] else ""))
+    mean = s.mean_confidence
+    click.echo(f"proposals run {s.run_id}: {s.proposed} window(s) proposed from "
+               f"{s.confirmed} confirmed in {len(s.classes)} class(es) in {s.seconds:.2f} s"
+               + (", graph rebuilt" if s.graph_rebuilt else "")
+               + (", warm start" if s.warm_start else ""))
     if mean is not None:
-        click.echo(f"  mean confidence {mean:.3f}; {s['low_support']} window(s) far from any "
-                   f"confirmation; {s['conflicts']} confirmed window(s) in conflict")
+        click.echo(f"  mean confidence {mean:.3f}; {s.low_support} window(s) far from any "
+                   f"confirmation; {s.conflicts} confirmed window(s) in conflict")
     click.echo("  proposed labels are suggestions; a qualified person reviews them before use")
 
 
@@ -651,18 +627,18 @@ def accuracy_cmd(project, annotator):
     """How accurate the proposals are, and what the estimate rests on."""
     with _open(project, annotator) as p:
         e = p.accuracy_estimate()
-    if e["basis"] == "none":
-        click.echo(f"no estimate: {e['note']}")
+    if e.basis == "none":
+        click.echo(f"no estimate: {e.note}")
         return
-    click.echo(f"accuracy of proposed windows {e['value']:.3f} ({e['level']:.0%} interval "
-               f"{e['low']:.3f}-{e['high']:.3f}), {e['basis']} of {e['n']} window(s)")
-    if e.get("training_set"):
-        t = e["training_set"]
-        click.echo(f"  training set (confirmed counted as right) {t['value']:.3f} "
-                   f"({t['low']:.3f}-{t['high']:.3f})")
-    if e.get("ece") is not None:
-        click.echo(f"  expected calibration error of the confidence {e['ece']:.3f}")
-    click.echo(f"  {e['note']}")
+    click.echo(f"accuracy of proposed windows {e.value:.3f} ({e.level:.0%} interval "
+               f"{e.low:.3f}-{e.high:.3f}), {e.basis} of {e.n} window(s)")
+    if e.training_set is not None:
+        t = e.training_set
+        click.echo(f"  training set (confirmed counted as right) {t.value:.3f} "
+                   f"({t.low:.3f}-{t.high:.3f})")
+    if e.ece is not None:
+        click.echo(f"  expected calibration error of the confidence {e.ece:.3f}")
+    click.echo(f"  {e.note}")
 
 
 @cli.command("map")
@@ -679,8 +655,8 @@ def map_cmd(project, method, seed, jobs, annotator):
         bar, progress = _progress_bar("map")
         with bar:
             out = p.compute_map(method, progress=progress, random_state=seed, n_jobs=jobs)
-        click.echo(f"map run {out['run_id']} ({out['method']}): {out['n_windows']} windows, "
-                   f"{out['n_fitted']} fitted, {out['seconds']:.1f} s")
+        click.echo(f"map run {out.run_id} ({out.method}): {out.n_windows} windows, "
+                   f"{out.n_fitted} fitted, {out.seconds:.1f} s")
 
 
 def main(argv=None):

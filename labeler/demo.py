@@ -71,7 +71,7 @@ def build_demo(folder: Path, *, minutes: float = 40.0, people: int = 3,
     with Project.create(tmp, annotator="demo") as p:
         p.add_recordings(paths)
         report = p.import_intervals(labels)
-        echo(f"imported {report['intervals']} known bouts ({report['windows']} windows) from "
+        echo(f"imported {report.intervals} known bouts ({report.windows} windows) from "
              f"{labels.name}")
     tmp.replace(project)  # a finished project or none
     return project

@@ -5,9 +5,9 @@ Pure numerics (numpy, scipy, scikit-learn, openTSNE); no storage, no display.
 Pipeline
 --------
 1. **Standardize** each feature column to mean 0, standard deviation 1 (constant columns stay 0).
-2. **PCA** to ``min(50, n_features, n_windows - 1)`` axes (at least 2), computed from the covariance
-   matrix in float64 (exact, one pass over the windows, memory of n_features²). Signs are fixed so
-   that the largest loading of each axis is positive, as scikit-learn does.
+2. **PCA** to ``min(50, n_features, n_windows - 1)`` axes (at least 2), with the one PCA of
+   :mod:`labeler.reduction` (exact, from the covariance matrix in float64) that the window graph
+   uses too.
 3. **2-D**:
 
    - ``method="pca"``: the first two principal axes. Instant; what the app shows first.
@@ -86,15 +86,12 @@ import numpy as np
 import scipy.sparse as sp
 
 from labeler.errors import InputError
+from labeler.reduction import MAX_COMPONENTS, apply_reduction, check_features, fit_reduction
 
 #: Called with (fraction done in [0, 1], message).
 Progress = Callable[[float, str], None]
 
 METHODS = ("pca", "tsne")
-
-#: Upper bound on the number of PCA axes kept before t-SNE (common practice, no source: 50 is the
-#: usual number in the t-SNE literature, e.g. Kobak & Berens 2019).
-MAX_COMPONENTS = 50
 
 #: Windows fitted by t-SNE at most; above, a stratified subsample is fitted and the rest placed.
 #: benchmarks/bench_map.py on this 2-core machine (other jobs running alongside): a 100k-window
@@ -153,21 +150,9 @@ def default_learning_rate(n: int) -> float:
 # checks and progress
 
 
-def _check_features(X, what: str = "features") -> np.ndarray:
-    X = np.asarray(X)
-    if X.ndim != 2:
-        raise MapInputError(f"{what} must be a 2-D array (windows x features), got shape {X.shape}")
-    if X.shape[1] < 1:
-        raise MapInputError(f"{what} have no column; compute features before making a map")
-    if not np.issubdtype(X.dtype, np.number) or np.issubdtype(X.dtype, np.complexfloating):
-        raise MapInputError(f"{what} must be real numbers, got dtype {X.dtype}")
-    X = np.ascontiguousarray(X, dtype=np.float32)
-    finite = np.isfinite(X)
-    if not finite.all():
-        r, c = np.argwhere(~finite)[0]
-        raise MapInputError(f"{what} have a non-finite value ({X[r, c]}) at window {r}, feature "
-                            f"column {c}; recompute features or drop that window")
-    return X
+def _check_features(X, what: str = "features", min_windows: int = 1) -> np.ndarray:
+    return check_features(X, what=what, task="make a map", min_windows=min_windows,
+                          error=MapInputError)
 
 
 class _Stage:
@@ -184,64 +169,6 @@ class _Stage:
     def sub(self, a: float, b: float) -> "_Stage":
         w = self.end - self.start
         return _Stage(self.progress, self.start + w * a, self.start + w * b)
-
-
-# --------------------------------------------------------------------------------------------------
-# standardize + PCA
-
-
-def fit_reduction(X: np.ndarray, n_components: int | None = None
-                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Standardization and PCA fitted on X (checked float32 array).
-
-    Returns (mean, scale, components, explained_variance): ``components`` is (k, n_features) and
-    applies to standardized rows; k = ``n_components`` or min(50, n_features, n - 1), at least 1.
-    """
-    n, d = X.shape
-    if n < 2:
-        raise MapInputError(f"need at least 2 windows to make a map, got {n}")
-    mean = np.zeros(d)
-    sq = np.zeros(d)
-    step = max(1, 8_000_000 // max(d, 1))
-    for a in range(0, n, step):
-        block = X[a:a + step].astype(np.float64)
-        mean += block.sum(axis=0)
-    mean /= n
-    for a in range(0, n, step):
-        block = X[a:a + step].astype(np.float64) - mean
-        sq += np.einsum("ij,ij->j", block, block)
-    scale = np.sqrt(sq / n)
-    scale[~(scale > 1e-12 * np.maximum(1.0, np.abs(mean)))] = 1.0  # constant columns stay 0
-    cov = np.zeros((d, d))
-    for a in range(0, n, step):
-        block = (X[a:a + step].astype(np.float64) - mean) / scale
-        cov += block.T @ block
-    cov /= n - 1
-    values, vectors = np.linalg.eigh(cov)
-    values, vectors = values[::-1], vectors[:, ::-1]
-    k = n_components if n_components is not None else min(MAX_COMPONENTS, d, n - 1)
-    k = int(max(1, min(k, d)))
-    comps = vectors[:, :k].T.copy()
-    # sign: the largest absolute loading of each axis is positive
-    big = np.argmax(np.abs(comps), axis=1)
-    signs = np.sign(comps[np.arange(k), big])
-    signs[signs == 0] = 1.0
-    comps *= signs[:, None]
-    return mean, scale, comps, np.maximum(values[:k], 0.0)
-
-
-def apply_reduction(X: np.ndarray, mean: np.ndarray, scale: np.ndarray, components: np.ndarray
-                    ) -> np.ndarray:
-    """Standardize rows of X and project them on ``components``: float32 (n, k)."""
-    n = X.shape[0]
-    k = components.shape[0]
-    out = np.empty((n, k), dtype=np.float32)
-    W = components.T / scale[:, None]  # (d, k): ((x - mean) / scale) @ C.T
-    offset = (mean / scale) @ components.T
-    step = max(1, 8_000_000 // max(X.shape[1], 1))
-    for a in range(0, n, step):
-        out[a:a + step] = X[a:a + step].astype(np.float64) @ W - offset
-    return out
 
 
 # --------------------------------------------------------------------------------------------------
@@ -694,7 +621,7 @@ class MapMaker:
         ``fit_at_most``; ``progress(fraction, message)`` is called as the work advances.
         """
         t0 = time.perf_counter()
-        X = _check_features(X)
+        X = _check_features(X, min_windows=2)
         n = X.shape[0]
         self._validate(n)
         stage = _Stage(progress)

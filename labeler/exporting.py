@@ -54,6 +54,7 @@ import numpy as np
 import pandas as pd
 
 from labeler.errors import InputError
+from labeler.results import ExportReport
 
 MANIFEST_FORMAT = "labeler-export/1"
 FORMATS = ("csv", "parquet")
@@ -281,10 +282,9 @@ class ExportInputs:
 def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt: str,
                        confirmed_only: bool, min_confidence: float | None,
                        classes: list[str] | None, tool_version: str, created_at: str,
-                       created_by: str, where: str) -> dict:
+                       created_by: str, where: str) -> ExportReport:
     """Build the window rows and segments, write them and then the manifest, each atomically.
-    ``where`` names the project in messages. Returns ``{"files", "windows", "segments",
-    "manifest"}``."""
+    ``where`` names the project in messages."""
     recs = inputs.recordings
     retired = {c["name"] for c in inputs.classes if c["retired_at"] is not None}
     start_times = {r["name"]: (r["start_time"] if pd.notna(r["start_time"]) else None)
@@ -333,8 +333,8 @@ def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt
         accuracy_absent=inputs.accuracy_absent, table=table, files=files)
     manifest = json_ready(manifest)
     write_json(manifest, targets["manifest"])
-    return {"files": {k: str(v) for k, v in targets.items()}, "windows": int(len(table)),
-            "segments": int(len(segs)), "manifest": manifest}
+    return ExportReport(files={k: str(v) for k, v in targets.items()}, windows=int(len(table)),
+                        segments=int(len(segs)), manifest=manifest)
 
 
 # --------------------------------------------------------------------------- writing

@@ -23,10 +23,11 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import sparse
-from sklearn.decomposition import PCA
 from sklearn.neighbors import NearestNeighbors
 
 from labeler.errors import InputError
+from labeler.reduction import check_features, fit_reduction
+from labeler.reduction import standardize as _standardize
 
 #: Number of windows above which the approximate neighbour index (pynndescent) is used.
 #: Measured on this 2-core machine with 20-dimensional clustered data (benchmarks/bench_proposals.py
@@ -54,41 +55,21 @@ class GraphInputError(InputError, ValueError):
     """Bad input to the graph builder (also a ValueError, as scikit-learn conventions expect)."""
 
 
-def _check_features(X) -> np.ndarray:
-    X = np.asarray(X)
-    if X.ndim != 2:
-        raise GraphInputError(f"features must be a 2-D array (windows x features), got shape {X.shape}")
-    if X.shape[0] < 2:
-        raise GraphInputError(f"need at least 2 windows to build a graph, got {X.shape[0]}")
-    if X.shape[1] < 1:
-        raise GraphInputError("features have no column; compute features before building the graph")
-    X = X.astype(np.float64, copy=False)
-    bad = ~np.isfinite(X)
-    if bad.any():
-        r, c = np.argwhere(bad)[0]
-        raise GraphInputError(f"feature matrix has a non-finite value ({X[r, c]}) at window {r}, "
-                              f"feature column {c}; recompute features or drop that window")
-    return X
-
-
 def standardize(X) -> np.ndarray:
-    """Columns scaled to mean 0 and standard deviation 1; constant columns become 0."""
-    X = _check_features(X)
-    mean = X.mean(axis=0)
-    std = X.std(axis=0)
-    std[std == 0] = 1.0
-    return (X - mean) / std
+    """Columns scaled to mean 0 and standard deviation 1 (float64); constant columns become 0."""
+    return _standardize(check_features(X, task="build a graph", min_windows=2, dtype=np.float64,
+                                       error=GraphInputError))
 
 
-def reduce(Z: np.ndarray, n_components: int | None, random_state: int = 0) -> np.ndarray:
-    """PCA projection onto ``n_components`` axes (none when None or not fewer than the columns)."""
+def reduce(Z: np.ndarray, n_components: int | None) -> np.ndarray:
+    """Standardized features projected onto their first ``n_components`` principal axes (the PCA
+    of :mod:`labeler.reduction`); unchanged when None or not fewer than the columns."""
     if n_components is None or n_components >= Z.shape[1]:
         return Z
     if n_components < 1:
         raise GraphInputError(f"pca_components must be >= 1 or None, got {n_components}")
-    n_components = min(n_components, Z.shape[0])
-    return PCA(n_components=n_components, svd_solver="randomized" if Z.shape[0] > 5000 else "full",
-               random_state=random_state).fit_transform(Z)
+    mean, scale, comps, _ = fit_reduction(Z, min(n_components, Z.shape[0]))
+    return ((Z - mean) / scale) @ comps.T
 
 
 def nearest_neighbors(Z: np.ndarray, n_neighbors: int, *, method: str = "auto",
@@ -216,7 +197,7 @@ def build_graph(X, *, recording=None, seq=None, n_neighbors: int = 10,
         raise GraphInputError(f"temporal_weight must be a finite number >= 0, got {temporal_weight}")
     if int(n_neighbors) != n_neighbors or n_neighbors < 1:
         raise GraphInputError(f"n_neighbors must be a whole number >= 1, got {n_neighbors}")
-    Z = reduce(standardize(X), pca_components, random_state)
+    Z = reduce(standardize(X), pca_components)
     ind, dist = nearest_neighbors(Z, int(n_neighbors), method=method, random_state=random_state)
     W = local_scaling_weights(ind, dist, k_scale=k_scale, n=Z.shape[0])
     if temporal_weight > 0 and recording is not None and seq is not None:

@@ -17,6 +17,8 @@ import labeler
 from labeler import features as _features
 from labeler.errors import ProjectError
 from labeler.recordings import Recording
+from labeler.results import (AccuracyReport, ExportReport, ImportReport, LabelBatch, MapRun,
+                             ProjectStatus, ProposalRun)
 from labeler.service.audits import Audits
 from labeler.service.catalog import CHUNK_SECONDS, AddedRecording, Catalog
 from labeler.service.context import Context, Progress, default_annotator
@@ -88,8 +90,10 @@ class Project:
     def __exit__(self, *exc) -> None:
         self.close()
 
-    def _invalidate(self, *keys: str) -> None:
-        self._ctx.invalidate(*keys)
+    def reread(self) -> None:
+        """Forget what this object has read from the file (windows, features, map, graph,
+        proposals), so that the next call reads what other processes have written since."""
+        self._ctx.invalidate()
 
     # ------------------------------------------------------------------ settings
     @property
@@ -160,8 +164,8 @@ class Project:
 
     # ------------------------------------------------------------------ map
     def compute_map(self, method: str = "pca", *, progress: Progress | None = None,
-                    random_state: int = 0, n_jobs: int = 1, **params) -> dict:
-        """Fit a map of every window ("pca" or "tsne") and store it as a run; returns its summary."""
+                    random_state: int = 0, n_jobs: int = 1, **params) -> MapRun:
+        """Fit a map of every window ("pca" or "tsne") and store it as a run."""
         return self._maps.compute(method, progress=progress, random_state=random_state,
                                   n_jobs=n_jobs, **params)
 
@@ -176,10 +180,6 @@ class Project:
     def map(self) -> pd.DataFrame:
         """Latest map: columns window_id, x, y (windows added since, if any, are placed)."""
         return self._maps.coordinates()
-
-    def _latest_map(self):
-        """(run, window ids, coords, MapState) of the latest map run, or None."""
-        return self._maps.latest()
 
     # ------------------------------------------------------------------ classes
     def classes(self, include_retired: bool = True) -> pd.DataFrame:
@@ -203,27 +203,31 @@ class Project:
     def retire_class(self, name: str) -> None:
         self._ledger.retire_class(name)
 
-    def merge_classes(self, source: str, target: str) -> str | None:
-        """Move every label of ``source`` to ``target`` (one batch), then retire ``source``.
-        Returns the batch id (None when no window carried the class)."""
+    def merge_classes(self, source: str, target: str) -> LabelBatch:
+        """Move every label of ``source`` to ``target`` (one batch), then retire ``source``
+        (``batch_id`` None when no window carried the class)."""
         return self._ledger.merge_classes(source, target)
 
     # ------------------------------------------------------------------ labels
     def confirm(self, window_ids: Iterable[int], class_name: str, *, source: str = "api",
-                note: str | None = None, create_class: bool = False) -> str:
-        """Confirm windows as one class: one batch of events. Returns the batch id."""
+                note: str | None = None, create_class: bool = False) -> LabelBatch:
+        """Confirm windows as one class: one batch of events."""
         return self._ledger.confirm(window_ids, class_name, source=source, note=note,
                                     create_class=create_class)
 
     def withdraw(self, window_ids: Iterable[int], *, source: str = "api",
-                 note: str | None = None) -> str:
+                 note: str | None = None) -> LabelBatch:
         """Withdraw this annotator's labels of the windows (one batch)."""
         return self._ledger.withdraw(window_ids, source=source, note=note)
 
-    def undo(self, batch_id: str | None = None) -> str:
-        """Undo a batch (default: this annotator's last one not yet undone) by appending events;
-        a window changed since keeps the later change. Returns the undo's batch id."""
+    def undo(self, batch_id: str | None = None) -> LabelBatch:
+        """Undo a batch (default: this annotator's last one not yet undone; an id or its first
+        characters) by appending events; a window changed since keeps the later change."""
         return self._ledger.undo(batch_id)
+
+    def find_batch(self, batch_id: str) -> str:
+        """The full id of the batch whose id is or starts with ``batch_id``."""
+        return self._ledger.find_batch(batch_id)
 
     def labels(self) -> pd.DataFrame:
         """Current label of every labeled window: window_id, class, class_id, annotator, at, source."""
@@ -235,12 +239,17 @@ class Project:
 
     def history(self, *, annotator: str | None = None, class_name: str | None = None,
                 source: str | None = None, since: str | None = None,
-                until: str | None = None) -> pd.DataFrame:
+                until: str | None = None, batch_id: str | None = None) -> pd.DataFrame:
+        """Label events matching every filter given, oldest first (see :meth:`Ledger.history`)."""
         return self._ledger.history(annotator=annotator, class_name=class_name, source=source,
-                                    since=since, until=until)
+                                    since=since, until=until, batch_id=batch_id)
+
+    def class_log(self, annotator: str | None = None) -> pd.DataFrame:
+        """Changes of classes (add, rename, colour, merge, retire), oldest first."""
+        return self._ledger.class_log(annotator)
 
     def import_intervals(self, path: str | os.PathLike, *, dry_run: bool = False,
-                         create_classes: bool = True) -> dict:
+                         create_classes: bool = True) -> ImportReport:
         """Confirm the windows inside each interval of an interval-label file (source "import");
         one batch per annotator named in the file. ``dry_run`` writes nothing."""
         return self._ledger.import_intervals(path, dry_run=dry_run, create_classes=create_classes)
@@ -250,23 +259,16 @@ class Project:
         """Confirmed windows per class (all classes, retired ones included)."""
         return self._ledger.counts()
 
-    def status(self) -> dict:
+    def status(self) -> ProjectStatus:
         recs = self.recordings()
         lab = self.labels()
-        return {
-            "path": str(self.path),
-            "annotator": self.annotator,
-            "recordings": len(recs),
-            "hours": float((recs["n_samples"] / recs["rate"]).sum() / 3600) if len(recs) else 0.0,
-            "windows": self.n_windows,
-            "window_length_s": self.window_length_s,
-            "window_step_s": self.window_step_s,
-            "feature_set_version": self.feature_set_version,
-            "classes": self.active_classes(),
-            "confirmed": int(len(lab)),
-            "annotators": sorted(lab["annotator"].unique().tolist()),
-            "counts": self.counts(),
-        }
+        return ProjectStatus(
+            path=str(self.path), annotator=self.annotator, recordings=len(recs),
+            hours=float((recs["n_samples"] / recs["rate"]).sum() / 3600) if len(recs) else 0.0,
+            windows=self.n_windows, window_length_s=self.window_length_s,
+            window_step_s=self.window_step_s, feature_set_version=self.feature_set_version,
+            classes=self.active_classes(), confirmed=int(len(lab)),
+            annotators=sorted(lab["annotator"].unique().tolist()), counts=self.counts())
 
     def backup(self, dest: str | os.PathLike) -> None:
         try:
@@ -277,11 +279,9 @@ class Project:
     # ------------------------------------------------------------------ export
     def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
                min_confidence: float | None = None, classes: Sequence[str] | None = None,
-               overwrite: bool = False) -> dict:
+               overwrite: bool = False) -> ExportReport:
         """Write the training set to ``folder``: ``windows.<fmt>``, ``segments.<fmt>`` and
         ``manifest.json`` (see :mod:`labeler.exporting`), each file atomically, the manifest last.
-
-        Returns ``{"files": {kind: path}, "windows": n rows, "segments": n rows, "manifest": dict}``.
         """
         return self._exporter.export(folder, fmt=fmt, confirmed_only=confirmed_only,
                                      min_confidence=min_confidence, classes=classes,
@@ -290,9 +290,9 @@ class Project:
     # ------------------------------------------------------------------ proposals
     def refresh_proposals(self, *, alpha: float | None = None, n_neighbors: int = 10,
                           temporal_weight: float | None = None, pca_components: int | None = 30,
-                          progress: Progress | None = None) -> dict:
-        """Spread the confirmed labels over the window graph; store the result as a run and
-        return its summary. Proposed labels are suggestions for a person to review."""
+                          progress: Progress | None = None) -> ProposalRun:
+        """Spread the confirmed labels over the window graph; store the result as a run.
+        Proposed labels are suggestions for a person to review."""
         return self._proposals.refresh(alpha=alpha, n_neighbors=n_neighbors,
                                        temporal_weight=temporal_weight,
                                        pca_components=pca_components, progress=progress)
@@ -317,7 +317,7 @@ class Project:
         """Every audited window: window_id, run_id, position, proposed, confidence, answer, correct."""
         return self._audits.status()
 
-    def accuracy_estimate(self, *, cross_validate: bool = True) -> dict:
+    def accuracy_estimate(self, *, cross_validate: bool = True) -> AccuracyReport:
         """Accuracy of the proposals, with what it rests on (see :mod:`labeler.quality`)."""
         return self._audits.accuracy_estimate(cross_validate=cross_validate)
 

@@ -185,7 +185,11 @@ class LabelSpreader(BaseEstimator):
         confirming never does.
     warm_start : bool
         Start from the previous fit's F (matched by class) when the number of windows is unchanged.
-    n_neighbors, temporal_weight, pca_components : used only when ``fit`` gets raw features.
+    kernel : "precomputed" (default) or "knn"
+        What ``fit`` gets as X: a precomputed graph (windows x windows affinities, sparse or dense),
+        or features (windows x features) from which the window graph is built with
+        :func:`labeler.graph.build_graph` (scikit-learn's convention for precomputed affinities).
+    n_neighbors, temporal_weight, pca_components : graph settings, used only with ``kernel="knn"``.
 
     Attributes
     ----------
@@ -199,7 +203,7 @@ class LabelSpreader(BaseEstimator):
 
     def __init__(self, alpha: float = DEFAULT_ALPHA, *, tol: float = 1e-6, max_iter: int = 2000,
                  solver: str = "cg", class_balance: bool = False, warm_start: bool = False,
-                 n_neighbors: int = 10,
+                 kernel: str = "precomputed", n_neighbors: int = 10,
                  temporal_weight: float | None = None, pca_components: int | None = None):
         self.alpha = alpha
         self.tol = tol
@@ -207,6 +211,7 @@ class LabelSpreader(BaseEstimator):
         self.solver = solver
         self.class_balance = class_balance
         self.warm_start = warm_start
+        self.kernel = kernel
         self.n_neighbors = n_neighbors
         self.temporal_weight = temporal_weight
         self.pca_components = pca_components
@@ -220,24 +225,29 @@ class LabelSpreader(BaseEstimator):
             raise SpreadingInputError(f"max_iter must be a whole number >= 1, got {self.max_iter!r}")
         if self.solver not in ("cg", "iterate"):
             raise SpreadingInputError(f"solver must be 'cg' or 'iterate', got {self.solver!r}")
+        if self.kernel not in ("precomputed", "knn"):
+            raise SpreadingInputError(f"kernel must be 'precomputed' or 'knn', got {self.kernel!r}")
 
     def fit(self, X, y, *, init=None, init_classes=None, recording=None, seq=None):
         """Spread the confirmed labels of ``y`` (-1 = unconfirmed) over the graph.
 
-        ``X`` is a precomputed graph (any scipy.sparse matrix, windows x windows) or a dense
-        feature matrix (windows x features) from which the graph is built with
+        ``X``: with ``kernel="precomputed"`` the graph (windows x windows, sparse or dense); with
+        ``kernel="knn"`` the features (windows x features) from which the graph is built with
         :func:`labeler.graph.build_graph` (``recording``/``seq`` add temporal edges).
         ``init`` (n_windows x n_classes, columns in the order of ``init_classes``, default this
         fit's classes) is a starting F, e.g. the ``label_mass_`` of the previous fit.
         """
         self._check_params()
         y = _check_y(y)
-        if sparse.issparse(X):
+        if self.kernel == "precomputed":
             W = check_graph(X, y.size)
         else:
+            if sparse.issparse(X):
+                raise SpreadingInputError("X is a sparse graph but kernel is 'knn' (features); "
+                                          "pass kernel='precomputed' for a graph")
             Xa = np.asarray(X)
             if Xa.ndim != 2:
-                raise SpreadingInputError(f"X must be a sparse graph or a 2-D feature matrix, got shape {Xa.shape}")
+                raise SpreadingInputError(f"X must be a 2-D feature matrix, got shape {Xa.shape}")
             if Xa.shape[0] != y.size:
                 raise SpreadingInputError(f"X has {Xa.shape[0]} windows but y has {y.size} labels; "
                                           "give one label (or -1) per window")

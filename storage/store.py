@@ -607,11 +607,18 @@ class Store:
                                   [window_id, annotator]))
         return dict(rows[0]) if rows else None
 
-    def events(self, where: str = "", args: Sequence[Any] = ()) -> list[dict[str, Any]]:
+    def events(self, *, annotator: str | None = None, class_id: int | None = None,
+               source: str | None = None, since: str | None = None, until: str | None = None,
+               batch_id: str | None = None) -> list[dict[str, Any]]:
+        """Events in the order they were written, those matching every filter given (``since`` and
+        ``until``: ISO-8601 UTC times, inclusive)."""
+        tests = (("annotator = ?", annotator), ("class_id = ?", class_id), ("source = ?", source),
+                 ("at >= ?", since), ("at <= ?", until), ("batch_id = ?", batch_id))
+        used = [(clause, value) for clause, value in tests if value is not None]
         sql = "SELECT * FROM events"
-        if where:
-            sql += " WHERE " + where
-        return [dict(r) for r in self.db.query(sql + " ORDER BY id", list(args))]
+        if used:
+            sql += " WHERE " + " AND ".join(clause for clause, _ in used)
+        return [dict(r) for r in self.db.query(sql + " ORDER BY id", [v for _, v in used])]
 
     def current_labels(self) -> list[tuple[int, int, str, str, str]]:
         """(window_id, class_id, annotator, at, source) of every labeled window."""

@@ -16,7 +16,8 @@ import pytest
 from bokeh.document import Document
 
 from labeler.app.document import build_document
-from labeler.app.state import CAUTION, _pca2
+from labeler.app.state import CAUTION
+from labeler.reduction import principal_components
 from labeler.app.timeline import segments
 from labeler.project import Project
 
@@ -216,7 +217,7 @@ def test_fallback_map_matches_scikit_learn_pca():
     X = rng.normal(size=(200, 6)) @ rng.normal(size=(6, 6)) + rng.normal(size=6)
     Z = (X - X.mean(0)) / X.std(0)
     ref = PCA(n_components=2).fit_transform(Z)
-    got = _pca2(X.astype(np.float32))
+    got = principal_components(X.astype(np.float32), 2)
     for j in range(2):
         c = np.corrcoef(ref[:, j], got[:, j])[0, 1]
         assert abs(c) == pytest.approx(1.0, abs=1e-4)

@@ -52,7 +52,7 @@ def win(p, rec, seq):
 
 
 def read_manifest(out):
-    return json.loads(open(out["files"]["manifest"], encoding="utf-8").read())
+    return json.loads(open(out.files["manifest"], encoding="utf-8").read())
 
 
 # ----------------------------------------------------------------------------- window rows
@@ -62,7 +62,7 @@ def test_window_rows_carry_provenance_and_utc(project, tmp_path):
                     create_class=True)
     project.confirm([win(project, "beta", 3)], "standing", source="queue", create_class=True)
     out = project.export(tmp_path / "out")
-    t = pd.read_csv(out["files"]["windows"], keep_default_na=False)
+    t = pd.read_csv(out.files["windows"], keep_default_na=False)
     assert list(t.columns) == ex.WINDOW_COLUMNS
     assert list(t["recording"]) == ["alpha"] * 3 + ["beta"]
     assert list(t["window"]) == [0, 1, 2, 3]
@@ -128,7 +128,7 @@ def test_segments_merge_consecutive_windows_of_one_label():
 def test_segments_file_with_utc(project, tmp_path):
     project.confirm([win(project, "beta", s) for s in (2, 3, 4)], "lifting", create_class=True)
     out = project.export(tmp_path / "out")
-    s = pd.read_csv(out["files"]["segments"])
+    s = pd.read_csv(out.files["segments"])
     assert len(s) == 1
     row = s.iloc[0]
     # windows 2..4 start at 2.56, 3.84, 5.12 s; centres +1.28; spans ±0.64
@@ -147,7 +147,7 @@ def test_manifest(project, tmp_path, files):
                     source="timeline", create_class=True)
     out = project.export(tmp_path / "out", classes=["walking", "Standing"])
     m = read_manifest(out)
-    assert m == out["manifest"]
+    assert m == out.manifest
     assert m["format"] == ex.MANIFEST_FORMAT and m["tool"]["version"] == "0.1.0"
     assert m["feature_set_version"] == project.feature_set_version
     assert m["windows"]["length_s"] == 2.56 and m["windows"]["step_s"] == 1.28
@@ -163,7 +163,7 @@ def test_manifest(project, tmp_path, files):
                               "classes": ["walking", "standing"]}
     assert m["project"]["as_of_event"] == 8
     for kind in ("windows", "segments"):
-        body = open(out["files"][kind], "rb").read()
+        body = open(out.files[kind], "rb").read()
         assert m["files"][kind]["sha256"] == hashlib.sha256(body).hexdigest()
     assert m["files"]["segments"]["rows"] == 2
     assert "qualified person" in m["caution"]
@@ -173,7 +173,7 @@ def test_parquet_holds_the_same_rows(project, tmp_path):
     project.confirm([win(project, "beta", s) for s in range(4)], "walking", create_class=True)
     a = project.export(tmp_path / "csv")
     b = project.export(tmp_path / "pq", fmt="parquet")
-    pq = pd.read_parquet(b["files"]["windows"])
+    pq = pd.read_parquet(b.files["windows"])
     csv = pd.read_csv(a["files"]["windows"])
     assert list(pq.columns) == list(csv.columns)
     assert pq["start_utc"].dt.strftime(ex.ISO_UTC).tolist() == csv["start_utc"].tolist()
@@ -315,7 +315,7 @@ def test_export_with_proposals(tmp_path, files, monkeypatch):
     fixed_proposals(monkeypatch)
     p = Project.open(tmp_path / "p.labeler", annotator="ana")
     out = p.export(tmp_path / "out")
-    t = pd.read_csv(out["files"]["windows"])
+    t = pd.read_csv(out.files["windows"])
     assert len(t) == p.n_windows
     assert t["status"].tolist()[:3] == ["confirmed", "confirmed", "proposed"]
     assert t["label"].tolist()[:3] == ["sitting", "sitting", "walking"]
@@ -327,7 +327,7 @@ def test_export_with_proposals(tmp_path, files, monkeypatch):
     assert m["accuracy_estimate_absent"] is None
     assert m["counts"]["by_status"] == {"confirmed": 2, "proposed": p.n_windows - 2}
     keep = p.export(tmp_path / "o2", min_confidence=0.6)
-    t2 = pd.read_csv(keep["files"]["windows"])
+    t2 = pd.read_csv(keep.files["windows"])
     assert (t2.loc[t2["status"] == "proposed", "confidence"] >= 0.6).all()
     assert (t2["status"] == "confirmed").sum() == 2
     p.close()

@@ -100,13 +100,13 @@ def test_export_segments_then_import_gives_the_same_labels(tmp_path, files):
     src.confirm(w.loc[(w["recording"] == "beta") & w["seq"].isin([11, 13, 15]), "id"], "walk")
     want = by_position(src)
     out = src.export(tmp_path / "out", confirmed_only=True)
-    segs = pd.read_csv(out["files"]["segments"])
+    segs = pd.read_csv(out.files["segments"])
     assert (segs["windows"] == 1).sum() >= 6
 
     dst = Project.create(tmp_path / "dst.labeler", annotator="bo")
     dst.add_recordings(files)
-    report = dst.import_intervals(out["files"]["segments"])
-    assert report["intervals"] == len(segs) and report["windows"] == len(want)
+    report = dst.import_intervals(out.files["segments"])
+    assert report.intervals == len(segs) and report.windows == len(want)
     assert by_position(dst) == want
     assert set(dst.labels()["source"]) == {"import"}
     src.close()
@@ -124,8 +124,8 @@ def test_dry_run_writes_nothing_and_reports(project, tmp_path):
     assert len(project.history()) == before and project.active_classes() == ["walk"]
     # alpha 0-5.2 s holds windows 0-3 (centres 1.28-5.12), two of which were walk and become sit;
     # 5.2-7 s holds window 4 (centre 6.4)
-    assert r["windows"] == 4 + 1 and r["changes"] == 5 and r["relabels"] == 2
-    assert r["new_classes"] == ["sit"] and r["batches"] == []
+    assert r.windows == 4 + 1 and r.changes == 5 and r.relabels == 2
+    assert r.new_classes == ["sit"] and r.batches == []
 
 
 def test_annotator_column_gives_one_batch_each(project, tmp_path):
@@ -133,7 +133,7 @@ def test_annotator_column_gives_one_batch_each(project, tmp_path):
     f.write_text("recording,start,end,label,annotator\n"
                  "alpha,0,6,sit,cy\nalpha,0,6,walk,dee\nbeta,0,4,sit,\n")
     r = project.import_intervals(f)
-    assert r["annotators"] == ["ana", "cy", "dee"] and len(r["batches"]) == 3
+    assert r.annotators == ["ana", "cy", "dee"] and len(r.batches) == 3
     ann = project.annotations()
     assert sorted(ann["annotator"].unique()) == ["ana", "cy", "dee"]
     # overlapping intervals of different annotators are allowed: double labeling

@@ -38,11 +38,11 @@ def test_compute_map_stores_a_run_and_map_returns_it(project):
     out = project.compute_map("pca")
     m = project.map()
     ids = project.windows()["id"].to_numpy()
-    assert out["n_windows"] == len(ids) == len(m)
+    assert out.n_windows == len(ids) == len(m)
     np.testing.assert_array_equal(m["window_id"].to_numpy(), ids)
     assert np.isfinite(m[["x", "y"]].to_numpy()).all()
     run = project.store.latest_run("map")
-    assert run["params"]["method"] == "pca" and run["id"] == out["run_id"]
+    assert run["params"]["method"] == "pca" and run["id"] == out.run_id
 
 
 def test_new_recording_is_placed_into_the_existing_map(project):
@@ -57,7 +57,7 @@ def test_new_recording_is_placed_into_the_existing_map(project):
     run = project.store.latest_run("map")
     assert run["summary"]["n_placed"] == len(ids) - len(before)
     # the placement is what embedding.place gives from the stored state
-    _, _, _, state = project._latest_map()
+    _, _, _, state = project._maps.latest()
     X, _ = project.features()
     new = ~np.isin(ids, before["window_id"].to_numpy())
     np.testing.assert_allclose(after[["x", "y"]].to_numpy()[new], place(state, X[new]), atol=1e-5)

@@ -59,7 +59,7 @@ def test_refresh_stores_runs_caches_graph_and_warm_starts(project, sims):
     confirm_truth(p, q["window_id"], truth)
     assert p.store.get_blob("proposals/graph") is not None  # the queue built and stored the graph
     s1 = p.refresh_proposals()
-    assert not s1["graph_rebuilt"] and not s1["warm_start"]
+    assert not s1.graph_rebuilt and not s1.warm_start
     props = p.proposals()
     assert len(props) == p.n_windows
     lab = p.labels().set_index("window_id")["class"]
@@ -71,19 +71,19 @@ def test_refresh_stores_runs_caches_graph_and_warm_starts(project, sims):
     extra = int(props.loc[~props["confirmed"], "window_id"].iloc[0])
     confirm_truth(p, [extra], truth)
     s2 = p.refresh_proposals()
-    assert not s2["graph_rebuilt"] and s2["warm_start"]
+    assert not s2.graph_rebuilt and s2.warm_start
     runs = p.store.runs("proposals")
-    assert [r["id"] for r in runs] == [s1["run_id"], s2["run_id"]]
+    assert [r["id"] for r in runs] == [s1.run_id, s2.run_id]
     assert runs[-1]["params"]["alpha"] == 0.9 and runs[-1]["summary"]["confirmed"] == 41
     # a fresh process reads the same proposals
     with Project.open(p.path) as q2:
         again = q2.proposals()
         assert (again["label"] == p.proposals()["label"]).all()
-        assert not q2.refresh_proposals()["graph_rebuilt"]
+        assert not q2.refresh_proposals().graph_rebuilt
     # a new recording changes the graph
     p.add_recording_data([sims[2][0]])
     s3 = p.refresh_proposals()
-    assert s3["graph_rebuilt"] and s3["windows"] == p.n_windows
+    assert s3.graph_rebuilt and s3.windows == p.n_windows
 
 
 def test_queue_audit_and_accuracy_estimate(project, sims):
@@ -104,14 +104,14 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     assert not set(a["window_id"]) & set(b["window_id"])
     confirm_truth(p, a["window_id"], truth, source="audit")
     est = p.accuracy_estimate()
-    assert est["basis"] == "cross-validation" and "biased" in est["note"]  # 10 audited < 30
+    assert est.basis == "cross-validation" and "biased" in est.note  # 10 audited < 30
     confirm_truth(p, b["window_id"], truth, source="audit")
     est = p.accuracy_estimate()
     st = p.audit_status()
-    assert est["basis"] == "audit" and est["n"] == 35
-    assert est["value"] == pytest.approx((st["correct"] == True).mean())  # noqa: E712
-    assert est["low"] <= est["value"] <= est["high"]
-    assert est["training_set"]["value"] >= est["value"]
+    assert est.basis == "audit" and est.n == 35
+    assert est.value == pytest.approx((st["correct"] == True).mean())  # noqa: E712
+    assert est.low <= est.value <= est.high
+    assert est.training_set.value >= est.value
     # the proposals at draw time were scored, not later ones
     props = p.proposals().set_index("window_id")
     assert set(st["window_id"]) <= set(props.index)

@@ -113,10 +113,20 @@ def test_warm_start_reaches_same_result_faster(digits_graph):
 
 def test_fit_from_raw_features_builds_the_graph(digits_graph):
     X, t, W, y = digits_graph
-    a = LabelSpreader(n_neighbors=8).fit(X, y)
+    a = LabelSpreader(kernel="knn", n_neighbors=8).fit(X, y)
     b = LabelSpreader().fit(W, y)
     np.testing.assert_allclose(a.label_mass_, b.label_mass_, atol=1e-9)
     assert (a.transduction_ == t).mean() > 0.8  # 25 confirmations of 400 digits
+
+
+def test_kernel_says_what_x_is(digits_graph):
+    X, t, W, y = digits_graph
+    with pytest.raises(ValueError, match="square"):
+        LabelSpreader().fit(X, y)                      # features given as a graph
+    with pytest.raises(ValueError, match="kernel='precomputed'"):
+        LabelSpreader(kernel="knn").fit(W, y)          # a graph given as features
+    with pytest.raises(ValueError, match="kernel must be"):
+        LabelSpreader(kernel="rbf").fit(W, y)
 
 
 def test_convergence_warning():

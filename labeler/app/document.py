@@ -26,7 +26,7 @@ from bokeh.palettes import Cividis256
 from bokeh.plotting import figure
 
 from labeler.app.state import (CAUTION, EstimateUpdate, Proposals, ProposalWorker, SessionState,
-                               has_proposals_api, proposals_current, read_map)
+                               proposals_current, read_map)
 from labeler.app.timeline import segments
 from labeler.errors import LabelerError
 
@@ -160,7 +160,7 @@ class LabelerApp:
         self._map_run = project.map_run_id()
         if getattr(doc, "session_context", None) is not None:
             doc.add_periodic_callback(self.check_map, MAP_CHECK_MS)
-        if has_proposals_api(project) and (self.state.confirmed >= 0).any():
+        if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
             # page has loaded, so a page that reloads itself (see _DRAW_PROBE) costs no run
             # (only the estimate when the stored proposals are of the current confirmations)
@@ -613,19 +613,18 @@ class LabelerApp:
             "confirmed</div>")
 
     def _refresh_estimate(self) -> None:
-        est = self.state.accuracy()
-        if est is None:
+        got = self.state.estimate
+        if got.absent is not None:
+            self.estimate_div.text = f"<span style='color:#555'>{html.escape(got.absent)}</span>"
+        elif got.estimate is None:
             self.estimate_div.text = ("<span style='color:#555'>Accuracy estimate: none yet — "
                                       "it comes with the proposals.</span>")
-            return
-        self.estimate_div.text = _estimate_html(est)
+        else:
+            self.estimate_div.text = _estimate_html(got.estimate)
 
     def _refresh_progress(self) -> None:
         if self.progress_text:
             self.progress_div.text = self.progress_text
-        elif not has_proposals_api(self.project):
-            self.progress_div.text = ("<span style='color:#555'>Proposals are not available in "
-                                      "this version.</span>")
         else:
             self.progress_div.text = ""
 
@@ -873,7 +872,7 @@ class LabelerApp:
         run = self.project.map_run_id()
         if run is None or run == self._map_run:
             return False
-        self.project._invalidate("map")
+        self.project.reread()
         s = self.state
         s.x, s.y, s.map_kind = read_map(self.project, s.n)
         self._map_run = run
@@ -888,7 +887,7 @@ class LabelerApp:
     # ================================================================== background proposals
     def request_proposals(self, refresh: bool = True) -> None:
         """Spread the confirmations again (``refresh``) and estimate the accuracy, off the page."""
-        if not has_proposals_api(self.project) or self.closed:
+        if self.closed:
             return
         if self.background:
             self.worker.request(refresh)
@@ -934,7 +933,7 @@ class LabelerApp:
         elif got is None:
             self.progress_text = "<span style='color:#555'>no proposals yet</span>"
         elif isinstance(got, EstimateUpdate):
-            self.state.estimate = got.estimate
+            self.state.estimate = got
             self._refresh_estimate()
             return
         elif isinstance(got, Proposals):
@@ -988,25 +987,24 @@ def _pct(v) -> str:
     return f"{float(v):.0%}"
 
 
-def _estimate_html(est: dict) -> str:
-    """The accuracy block: an audit's figure as the headline; cross-validation only as a hint."""
+def _estimate_html(est) -> str:
+    """The accuracy block (a :class:`labeler.results.AccuracyReport`): an audit's figure as the
+    headline; cross-validation only as a hint."""
     from labeler.quality import MIN_AUDIT
 
-    if "text" in est and len(est) == 1:
-        return f"<span style='color:#555'>{html.escape(str(est['text']))}</span>"
-    basis = str(est.get("basis", ""))
-    acc, lo, hi = est.get("accuracy", est.get("value")), est.get("low"), est.get("high")
-    n = int(est.get("n") or 0)
+    basis = est.basis
+    acc, lo, hi = est.value, est.low, est.high
+    n = int(est.n)
     grey = "<span style='color:#555'>{}</span>"
     if basis == "audit" and acc is not None:
         parts = [f"<b>Proposals are right {_pct(acc)} of the time</b> (95% interval "
                  f"{_pct(lo)}–{_pct(hi)})",
                  grey.format(f"rests on: an audit of {n} randomly drawn windows you labeled "
                              "without seeing the proposal")]
-        ts = est.get("training_set")
-        if isinstance(ts, dict) and ts.get("value") is not None:
-            parts.append(f"Training set (confirmed windows counted right): {_pct(ts['value'])} "
-                         f"({_pct(ts['low'])}–{_pct(ts['high'])})")
+        ts = est.training_set
+        if ts is not None and np.isfinite(ts.value):
+            parts.append(f"Training set (confirmed windows counted right): {_pct(ts.value)} "
+                         f"({_pct(ts.low)}–{_pct(ts.high)})")
         return "<br>".join(parts)
     head = (f"<b>No unbiased accuracy estimate yet</b> — press Audit and label {MIN_AUDIT} "
             "random windows.")
@@ -1015,5 +1013,5 @@ def _estimate_html(est: dict) -> str:
             f"Until then, a hint only: cross-validation on {n} of your confirmed windows gives "
             f"{_pct(acc)} ({_pct(lo)}–{_pct(hi)}); optimistic, since confirmed windows are not a "
             "random sample.")
-    note = est.get("note")
+    note = est.note
     return head + ("<br>" + grey.format(html.escape(str(note))) if note else "")

@@ -17,6 +17,8 @@ import numpy as np
 import pandas as pd
 
 from labeler.errors import InputError, LabelerError
+from labeler.reduction import principal_components
+from labeler.results import AccuracyReport, LabelBatch
 
 CAUTION = ("Proposed labels are suggestions. Where labels feed clinical or safety decisions, a "
            "qualified person reviews them; local rules and licensed practice come first.")
@@ -40,29 +42,27 @@ class Proposals:
     confidence: np.ndarray        # float32 in [0, 1]
     support: np.ndarray           # float32 in [0, 1]; low = no confirmed window nearby
     note: str = ""
-    estimate: dict | None = None  # Project.accuracy_estimate() computed with these proposals
 
 
 @dataclass
 class EstimateUpdate:
-    """The accuracy estimate, computed after the proposals it is of have been delivered."""
+    """The accuracy estimate, computed after the proposals it is of have been delivered, or the
+    one line saying why there is none."""
 
-    estimate: dict | None
+    estimate: AccuracyReport | None
+    absent: str | None = None
 
 
 def _stored_proposals(project) -> pd.DataFrame | None:
     """Project.proposals(), or None when there are none yet."""
-    try:
-        df = project.proposals()
-    except LabelerError:
-        return None
-    return df if df is not None and len(df) else None
+    df = project.proposals()
+    return df if len(df) else None
 
 
 def proposals_current(project, state: "SessionState") -> bool:
     """True when the stored proposals were spread from exactly the current confirmations."""
     df = _stored_proposals(project)
-    if df is None or len(df) != state.n or "confirmed" not in df:
+    if df is None or len(df) != state.n:
         return False
     pos = state.index.get_indexer(df["window_id"].to_numpy())
     if (pos < 0).any():
@@ -75,16 +75,6 @@ def proposals_current(project, state: "SessionState") -> bool:
     rows = np.flatnonzero(was)
     stored = pd.Series(df["label"].to_numpy(object), index=pos).loc[rows].to_numpy(object)
     return bool((stored == names[state.confirmed[rows]]).all())
-
-
-@dataclass
-class Progress:
-    busy: bool = False
-    text: str = ""
-    started: float = 0.0
-    last_seconds: float | None = None
-    error: str | None = None
-    runs: int = 0
 
 
 # ---------------------------------------------------------------------------- reading the project
@@ -112,7 +102,7 @@ def read_map(project, n: int) -> tuple[np.ndarray, np.ndarray, str]:
         if X.shape[0] == 0:
             return np.zeros(0, np.float32), np.zeros(0, np.float32), "none"
         _FALLBACK_MAPS.clear()
-        _FALLBACK_MAPS[key] = _pca2(X)
+        _FALLBACK_MAPS[key] = principal_components(X, 2)
     xy = _FALLBACK_MAPS[key]
     return xy[:, 0], xy[:, 1], "pca"
 
@@ -121,41 +111,13 @@ _FALLBACK_MAPS: dict[tuple[str, int], np.ndarray] = {}
 
 
 def _as_xy(got, n: int) -> np.ndarray | None:
+    """The map's x, y in window-id order, or None when it does not cover every window."""
     if got is None:
         return None
-    if isinstance(got, tuple) and len(got) == 2 and not isinstance(got[0], str):
-        got = got[0]
-    if isinstance(got, pd.DataFrame):
-        cols = [c for c in ("x", "y") if c in got.columns]
-        if len(cols) != 2:
-            return None
-        arr = got[cols].to_numpy(np.float32)
-    else:
-        arr = np.asarray(got, dtype=np.float32)
-    if arr.ndim != 2 or arr.shape != (n, 2) or not np.isfinite(arr).all():
+    arr = got[["x", "y"]].to_numpy(np.float32)
+    if arr.shape != (n, 2) or not np.isfinite(arr).all():
         return None
     return arr
-
-
-def _pca2(X: np.ndarray) -> np.ndarray:
-    """First two principal components of the standardized features (each axis's sign fixed
-    so that its largest loading is positive)."""
-    Z = np.asarray(X, dtype=np.float64)
-    sd = Z.std(axis=0)
-    Z = (Z - Z.mean(axis=0)) / np.where(sd > 0, sd, 1.0)
-    out = np.zeros((Z.shape[0], 2), np.float32)
-    if Z.shape[0] < 2 or Z.shape[1] == 0:
-        return out
-    evals, evecs = np.linalg.eigh(Z.T @ Z)        # covariance route: features x features only
-    k = min(2, evecs.shape[1])
-    comps = evecs[:, ::-1][:, :k].T
-    signs = np.sign(comps[np.arange(k), np.argmax(np.abs(comps), axis=1)])
-    out[:, :k] = Z @ (comps * signs[:, None]).T
-    return out
-
-
-def has_proposals_api(project) -> bool:
-    return callable(getattr(project, "refresh_proposals", None))
 
 
 def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
@@ -164,36 +126,26 @@ def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | N
     if df is None:
         return None
     ids = project.windows()["id"].to_numpy()
-    pos = pd.Index(ids).get_indexer(df["window_id"]) if "window_id" in df else np.arange(len(df))
+    pos = pd.Index(ids).get_indexer(df["window_id"])
     ok = pos >= 0
     proposed = np.full(n, -1, np.int32)
     conf = np.zeros(n, np.float32)
     support = np.zeros(n, np.float32)
-    label_col = next(c for c in ("proposed", "label", "class") if c in df.columns)
-    codes = df[label_col].map(lambda c: class_code.get(str(c), -1) if c == c and c is not None
-                              else -1).to_numpy(np.int32)
+    codes = df["label"].map(lambda c: class_code.get(str(c), -1) if c == c and c is not None
+                            else -1).to_numpy(np.int32)
     proposed[pos[ok]] = codes[ok]
-    if "confidence" in df:
-        conf[pos[ok]] = df["confidence"].to_numpy(np.float32)[ok]
-    if "support" in df:
-        support[pos[ok]] = df["support"].to_numpy(np.float32)[ok]
+    conf[pos[ok]] = df["confidence"].to_numpy(np.float32)[ok]
+    support[pos[ok]] = df["support"].to_numpy(np.float32)[ok]
     return Proposals(proposed, np.clip(np.nan_to_num(conf), 0, 1),
                      np.clip(np.nan_to_num(support), 0, 1))
 
 
-def estimate_of(project) -> dict | None:
-    """Project.accuracy_estimate() as a dict, or {"text": why not} (slow: call it off the page)."""
-    est = getattr(project, "accuracy_estimate", None)
-    if not callable(est):
-        return None
+def estimate_of(project) -> EstimateUpdate:
+    """Project.accuracy_estimate(), or why there is none (slow: call it off the page)."""
     try:
-        got = est()
+        return EstimateUpdate(project.accuracy_estimate())
     except LabelerError as exc:
-        return {"text": str(exc)}
-    if got is not None and not isinstance(got, dict):
-        got = {k: getattr(got, k) for k in dir(got) if not k.startswith("_")
-               and not callable(getattr(got, k))}
-    return got
+        return EstimateUpdate(None, str(exc))
 
 
 # ---------------------------------------------------------------------------- the session state
@@ -219,14 +171,14 @@ class SessionState:
         self.annotators: list[str] = []
         self.proposals = Proposals(np.full(self.n, -1, np.int32), np.zeros(self.n, np.float32),
                                    np.zeros(self.n, np.float32))
-        self.estimate: dict | None = None
+        self.estimate = EstimateUpdate(None)  # the latest, computed off the page
         self.reload_classes()
         self.x, self.y, self.map_kind = read_map(project, self.n)
         self.sync_labels()
         got = read_proposals(project, self.class_code, self.n)
         if got is not None:
             self.proposals = got
-        self.last_batch: str | None = None
+        self.last_batch: LabelBatch | None = None
         self.queue: list[QueueItem] = []
         self.queue_mode = "review"
         self.queue_pos = 0
@@ -249,9 +201,9 @@ class SessionState:
         name = str(name).strip()
         if not name:
             raise InputError("type a class name first (1-60 printable characters)")
-        self.project.add_class(name)
+        cid = self.project.add_class(name)
         self.reload_classes()
-        return self.class_code[self.project.store.class_by_name(name)["name"]]
+        return self.class_code[self.project.class_name(cid)]
 
     # -------------------------------------------------------------- labels
     def sync_labels(self) -> np.ndarray:
@@ -277,8 +229,6 @@ class SessionState:
     def set_proposals(self, got: Proposals) -> np.ndarray:
         old = self.proposals
         self.proposals = got
-        if got.estimate is not None:
-            self.estimate = got.estimate
         return np.flatnonzero((old.proposed != got.proposed) | (old.confidence != got.confidence)
                               | (old.support != got.support))
 
@@ -323,9 +273,9 @@ class SessionState:
                 out.append((k, name, self.class_colours[k], int(conf[k]), int(prop[k])))
         return out
 
-    def accuracy(self) -> dict | None:
+    def accuracy(self) -> AccuracyReport | None:
         """The latest accuracy estimate (computed off the page, after the proposals)."""
-        return self.estimate
+        return self.estimate.estimate
 
     # -------------------------------------------------------------- review queue and audit
     def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
@@ -333,24 +283,16 @@ class SessionState:
         (Project.draw_audit, a uniformly random sample)."""
         self.queue_mode = mode
         self.queue_pos = 0
-        fn = getattr(self.project, "review_queue" if mode == "review" else "draw_audit", None)
-        if not callable(fn):
-            self.queue = []
-            raise LabelerError(f"this project has no {mode} queue yet (compute proposals first)")
-        got = fn(n)
-        self.queue = self._queue_items(got)
+        if mode == "review":
+            got = self.project.review_queue(n)
+            reasons = got["reason"].astype(str).tolist()
+        else:
+            got = self.project.draw_audit(n)
+            reasons = [""] * len(got)
+        self.queue = self._queue_items(got["window_id"].to_numpy(np.int64), reasons)
         return self.queue
 
-    def _queue_items(self, got) -> list[QueueItem]:
-        if got is None:
-            return []
-        if isinstance(got, pd.DataFrame):
-            ids = got["window_id"].to_numpy()
-            reasons = (got["reason"].astype(str).tolist() if "reason" in got
-                       else [""] * len(ids))
-        else:
-            ids = np.asarray(list(got), dtype=np.int64)
-            reasons = [""] * len(ids)
+    def _queue_items(self, ids: np.ndarray, reasons: list[str]) -> list[QueueItem]:
         pos = self.index.get_indexer(ids)
         return [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
 
@@ -374,7 +316,7 @@ def spread_and_estimate(project, class_code: dict[str, int], n: int, refresh: bo
     ``deliver``; then, unless ``more_waiting()``, the accuracy estimate as an
     :class:`EstimateUpdate`."""
     t0 = time.perf_counter()
-    project._invalidate()
+    project.reread()
     if refresh:
         if on_start:
             on_start()
@@ -386,7 +328,7 @@ def spread_and_estimate(project, class_code: dict[str, int], n: int, refresh: bo
         if got is None:
             return
     if not more_waiting():
-        deliver(EstimateUpdate(estimate_of(project)))
+        deliver(estimate_of(project))
 
 
 class ProposalWorker:

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from labeler.errors import InputError
+from labeler.results import AccuracyReport
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context
 from labeler.service.ledger import Ledger
@@ -83,13 +84,11 @@ class Audits:
                                  df["answer_class_id"] == df["proposed_class_id"])
         return df[["window_id", "run_id", "position", "proposed", "confidence", "answer", "correct"]]
 
-    def accuracy_estimate(self, *, cross_validate: bool = True) -> dict:
+    def accuracy_estimate(self, *, cross_validate: bool = True) -> AccuracyReport:
         """Accuracy of the proposals, with what it rests on (see :mod:`labeler.quality`).
 
         An audit of at least ``quality.MIN_AUDIT`` answered windows is preferred; otherwise
-        cross-validation on the confirmed windows (biased; the note says why). Keys: value, low,
-        high, basis, n, scope, level, ece, note, accuracy (= value), training_set (the same for the
-        exported set, confirmed windows counted as right), run_id.
+        cross-validation on the confirmed windows (biased; the note says why).
         """
         from labeler.quality import (accuracy_estimate as _choose, audit_accuracy,
                                      cross_validated_accuracy, training_set_estimate)
@@ -109,19 +108,14 @@ class Audits:
             cv = cross_validated_accuracy(W, self.ledger.class_codes(),
                                           spreader=LabelSpreader(alpha=run["params"]["alpha"]))
         est = _choose(audit=audit, cv=cv)
-        out = est.as_dict()
-        out["accuracy"] = out["value"]
-        out["run_id"] = int(run["id"])
+        report = AccuracyReport(run_id=int(run["id"]), estimate=est)
         if audit is not None and est.basis == "audit":
-            runs = sorted(set(done["run_id"].astype(int)))
-            out["note"] += f"; drawn from proposal run(s) {', '.join(map(str, runs))}"
+            report.audit_runs = tuple(sorted(set(done["run_id"].astype(int))))
+            est.note += f"; drawn from proposal run(s) {', '.join(map(str, report.audit_runs))}"
         p = self.proposals.table()
         lab = self.ledger.labels()
         n_conf = int(len(lab))
         n_prop = int(max(0, len(p) - p["window_id"].isin(lab["window_id"]).sum()))
         if est.basis != "none" and n_conf + n_prop:
-            out["training_set"] = training_set_estimate(est, n_conf, n_prop).as_dict()
-        for k in ("value", "low", "high", "accuracy"):
-            if isinstance(out[k], float) and not np.isfinite(out[k]):
-                out[k] = None
-        return out
+            report.training_set = training_set_estimate(est, n_conf, n_prop)
+        return report

@@ -9,6 +9,7 @@ from typing import Sequence
 import labeler
 from labeler import exporting
 from labeler.errors import ProjectError
+from labeler.results import ExportReport
 from labeler.service.audits import Audits
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context
@@ -29,7 +30,7 @@ class Exporter:
 
     def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
                min_confidence: float | None = None, classes: Sequence[str] | None = None,
-               overwrite: bool = False) -> dict:
+               overwrite: bool = False) -> ExportReport:
         """Write ``windows.<fmt>``, ``segments.<fmt>`` and ``manifest.json`` to ``folder``, each file
         atomically, the manifest last (see :mod:`labeler.exporting`)."""
         from storage.store import utc_now
@@ -75,4 +76,4 @@ class Exporter:
         run = self.ctx.store.latest_run("proposals")
         params = None if run is None else {"run_id": run["id"], "created_at": run["created_at"],
                                             "created_by": run["created_by"], **run["params"]}
-        return prop.reset_index(drop=True), params, self.audits.accuracy_estimate(), None
+        return prop.reset_index(drop=True), params, self.audits.accuracy_estimate().as_dict(), None

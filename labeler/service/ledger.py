@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from labeler.errors import InputError
+from labeler.results import ImportReport, ImportRow, LabelBatch, label_batch
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context
 from storage import StoreError
@@ -98,11 +99,11 @@ class Ledger:
     def retire_class(self, name: str) -> None:
         self.ctx.store.retire_class(self.class_id(name), self.ctx.annotator)
 
-    def merge_classes(self, source: str, target: str) -> str | None:
+    def merge_classes(self, source: str, target: str) -> LabelBatch:
         """Move every label of ``source`` to ``target`` (one batch), then retire ``source``.
 
-        The windows keep their history: the move is a batch of events of its own. Returns the batch id
-        (None when no window carried the class).
+        The windows keep their history: the move is a batch of events of its own (no batch when no
+        window carried the class: ``batch_id`` None).
         """
         store = self.ctx.store
         src = self.class_id(source)
@@ -111,31 +112,36 @@ class Ledger:
             raise InputError(f"cannot merge class {source!r} into itself; give two classes")
         with store.atomic():
             rows = [(w, who) for w, who, c in store.annotations() if c == src]
+            changes = [(w, dst) for w, _ in rows]
             batch = None
             if rows:
                 batch = store.apply_batch(
-                    self.ctx.annotator, "merge", "class-merge", [(w, dst) for w, _ in rows],
+                    self.ctx.annotator, "merge", "class-merge", changes,
                     note=f"merged {source} into {target}", per_annotator=[who for _, who in rows])
             store.retire_class(src, self.ctx.annotator, merged_into=dst)
-        return batch
+        return label_batch(batch, "merge", changes)
 
     # ------------------------------------------------------------------ labels
     def confirm(self, window_ids: Iterable[int], class_name: str, *, source: str = "api",
-                note: str | None = None, create_class: bool = False) -> str:
-        """Confirm windows as one class: one batch of events. Returns the batch id."""
+                note: str | None = None, create_class: bool = False) -> LabelBatch:
+        """Confirm windows as one class: one batch of events."""
         ids = self.check_window_ids(window_ids)
         if source not in SOURCES:
             raise InputError(f"unknown source {source!r}; use one of {', '.join(SOURCES)}")
         cid = self.class_id(class_name, create=create_class)
-        return self.ctx.store.apply_batch(self.ctx.annotator, "confirm", source,
-                                          [(int(w), cid) for w in ids], note=note)
+        changes = [(int(w), cid) for w in ids]
+        batch = self.ctx.store.apply_batch(self.ctx.annotator, "confirm", source, changes,
+                                           note=note)
+        return label_batch(batch, "confirm", changes)
 
     def withdraw(self, window_ids: Iterable[int], *, source: str = "api",
-                 note: str | None = None) -> str:
+                 note: str | None = None) -> LabelBatch:
         """Withdraw this annotator's labels of the windows (one batch)."""
         ids = self.check_window_ids(window_ids)
-        return self.ctx.store.apply_batch(self.ctx.annotator, "withdraw", source,
-                                          [(int(w), None) for w in ids], note=note)
+        changes = [(int(w), None) for w in ids]
+        batch = self.ctx.store.apply_batch(self.ctx.annotator, "withdraw", source, changes,
+                                           note=note)
+        return label_batch(batch, "withdraw", changes)
 
     def check_window_ids(self, window_ids: Iterable[int]) -> list[int]:
         try:
@@ -154,12 +160,12 @@ class Ledger:
                              f"{int(known.min())} to {int(known.max())}); give ids in that range")
         return ids
 
-    def undo(self, batch_id: str | None = None) -> str:
+    def undo(self, batch_id: str | None = None) -> LabelBatch:
         """Undo a batch (default: this annotator's last one not yet undone) by appending events.
 
         Each window touched by the batch gets back the label it had before the batch, unless its label
         has changed since (a later batch set another class): then the later change stands and the window
-        is left alone. Returns the undo's batch id.
+        is left alone. ``batch_id`` may be the first characters of an id when they name one batch.
         """
         store, me = self.ctx.store, self.ctx.annotator
         with store.atomic():
@@ -168,7 +174,7 @@ class Ledger:
                 if target is None:
                     raise InputError(f"nothing to undo for annotator {me!r}")
             else:
-                target = store.batch(batch_id)
+                target = store.batch(self.find_batch(batch_id))
                 if target is None:
                     raise InputError(f"no batch {batch_id!r}; list batches with `labeler history`")
                 if target["undone_by"] is not None:
@@ -182,9 +188,22 @@ class Ledger:
                 before = store.state_before(ev["id"], ev["window_id"], ev["annotator"])
                 changes.append((ev["window_id"], before))
                 whose.append(ev["annotator"])
-            return store.apply_batch(me, "undo", "undo", changes,
-                                     note=f"undo of batch {target['id']}", undoes=target["id"],
-                                     per_annotator=whose)
+            batch = store.apply_batch(me, "undo", "undo", changes,
+                                      note=f"undo of batch {target['id']}", undoes=target["id"],
+                                      per_annotator=whose)
+        return label_batch(batch, "undo", changes, undoes=target["id"])
+
+    def find_batch(self, batch_id: str) -> str:
+        """The full id of the batch whose id is or starts with ``batch_id``."""
+        batch_id = str(batch_id).strip()
+        if self.ctx.store.batch(batch_id) is not None:
+            return batch_id
+        full = [b["id"] for b in self.ctx.store.batches() if b["id"].startswith(batch_id)]
+        if len(full) == 0:
+            raise InputError(f"no batch {batch_id!r}; list batches with `labeler history`")
+        if len(full) > 1:
+            raise InputError(f"batch {batch_id!r}: matches {len(full)} batches; give more of the id")
+        return full[0]
 
     def labels(self) -> pd.DataFrame:
         """Current label of every labeled window: window_id, class, class_id, annotator, at, source."""
@@ -218,31 +237,44 @@ class Ledger:
 
     def history(self, *, annotator: str | None = None, class_name: str | None = None,
                 source: str | None = None, since: str | None = None,
-                until: str | None = None) -> pd.DataFrame:
-        clauses, args = [], []
-        if annotator:
-            clauses.append("annotator = ?")
-            args.append(annotator)
-        if class_name:
-            clauses.append("class_id = ?")
-            args.append(self.class_id(class_name, allow_retired=True))
-        if source:
-            clauses.append("source = ?")
-            args.append(source)
-        if since:
-            clauses.append("at >= ?")
-            args.append(since)
-        if until:
-            clauses.append("at <= ?")
-            args.append(until)
-        rows = self.ctx.store.events(" AND ".join(clauses), args)
+                until: str | None = None, batch_id: str | None = None) -> pd.DataFrame:
+        """Label events matching every filter given, oldest first: id, at, annotator (whose label
+        the event set), action, window_id, class_id, class, source, batch_id, note, by (who acted:
+        differs from annotator for undo and class merges)."""
+        cid = None if not class_name else self.class_id(class_name, allow_retired=True)
+        rows = self.ctx.store.events(annotator=annotator or None, class_id=cid,
+                                     source=source or None, since=since or None,
+                                     until=until or None, batch_id=batch_id or None)
         df = pd.DataFrame(rows, columns=EVENT_COLUMNS)
         df.insert(6, "class", df["class_id"].map(self.class_names()))
+        by = {b["id"]: b["annotator"] for b in self.ctx.store.batches()}
+        df["by"] = df["batch_id"].map(by)
         return df
+
+    def class_log(self, annotator: str | None = None) -> pd.DataFrame:
+        """Changes of classes, oldest first: at, annotator (who), action (add, rename, colour,
+        merge, retire), class_id, class (its name now), detail (a dict; a merge names the class
+        merged into by name under "into")."""
+        import json
+
+        names = self.class_names()
+        rows = []
+        for r in self.ctx.store.class_log():
+            if annotator is not None and r["annotator"] != annotator:
+                continue
+            detail = json.loads(r["detail"] or "{}")
+            if "merged_into" in detail:
+                into = detail["merged_into"]
+                detail = {"into": names.get(into, into)} if into is not None else {}
+            rows.append({"at": r["at"], "annotator": r["annotator"], "action": r["action"],
+                         "class_id": r["class_id"], "class": names.get(r["class_id"]),
+                         "detail": detail})
+        return pd.DataFrame(rows, columns=["at", "annotator", "action", "class_id", "class",
+                                           "detail"])
 
     # ------------------------------------------------------------------ interval import
     def import_intervals(self, path: str | os.PathLike, *, dry_run: bool = False,
-                         create_classes: bool = True) -> dict:
+                         create_classes: bool = True) -> ImportReport:
         """Confirm the windows inside each interval of an interval-label file (source "import").
 
         One batch per annotator named in the file (rows without one are this annotator's). With
@@ -270,9 +302,12 @@ class Ledger:
         match = importing.match_intervals(intervals, self.catalog.windows(), known, current,
                                           self.ctx.annotator)
         per_who = match.per_annotator
-        report = {"intervals": len(intervals), "windows": sum(len(m) for m in per_who.values()),
-                  "changes": match.changes, "relabels": match.relabels, "new_classes": new_classes,
-                  "rows": match.rows, "annotators": sorted(per_who), "batches": []}
+        report = ImportReport(intervals=len(intervals),
+                              windows=sum(len(m) for m in per_who.values()),
+                              changes=match.changes, relabels=match.relabels,
+                              new_classes=new_classes,
+                              rows=[ImportRow(**r) for r in match.rows],
+                              annotators=sorted(per_who), dry_run=dry_run)
         if dry_run:
             return report
         with self.ctx.store.atomic():
@@ -282,10 +317,10 @@ class Ledger:
             for who, m in per_who.items():
                 if not m:
                     continue
-                batch = self.ctx.store.apply_batch(
-                    who, "confirm", "import", [(w, ids_by_name[c]) for w, c in sorted(m.items())],
-                    note=f"imported from {Path(path).name}")
-                report["batches"].append(batch)
+                changes = [(w, ids_by_name[c]) for w, c in sorted(m.items())]
+                batch = self.ctx.store.apply_batch(who, "confirm", "import", changes,
+                                                   note=f"imported from {Path(path).name}")
+                report.batches.append(label_batch(batch, "confirm", changes))
         return report
 
     # ------------------------------------------------------------------ summaries

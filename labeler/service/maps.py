@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from labeler.errors import InputError, ProjectError
+from labeler.results import MapRun
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
 
@@ -27,8 +28,8 @@ class Maps:
         self.catalog = catalog
 
     def compute(self, method: str = "pca", *, progress: Progress | None = None,
-                random_state: int = 0, n_jobs: int = 1, **params) -> dict:
-        """Fit a map of every window ("pca" or "tsne") and store it as a run; returns its summary."""
+                random_state: int = 0, n_jobs: int = 1, **params) -> MapRun:
+        """Fit a map of every window ("pca" or "tsne") and store it as a run."""
         from labeler.embedding import make_map
 
         if method not in ("pca", "tsne"):
@@ -50,7 +51,7 @@ class Maps:
         return self._store(res.params, summary, wins["id"].to_numpy(), res.coords, res.state)
 
     def _store(self, params: dict, summary: dict, ids: np.ndarray, coords: np.ndarray,
-               state) -> dict:
+               state) -> MapRun:
         store = self.ctx.store
         buf = io.BytesIO()
         np.savez(buf, window_id=np.asarray(ids, dtype=np.int64),
@@ -60,7 +61,11 @@ class Maps:
             store.put_blob(f"map/{run_id}/coords", buf.getvalue(), run_id=run_id)
             store.put_blob(f"map/{run_id}/state", state.to_bytes(), run_id=run_id)
         self.ctx.invalidate("map")
-        return {"run_id": int(run_id), "method": params.get("method"), **summary}
+        return MapRun(run_id=int(run_id), method=str(params.get("method")),
+                      n_windows=summary["n_windows"], n_fitted=summary["n_fitted"],
+                      n_placed=summary["n_placed"], seconds=summary.get("seconds"),
+                      placed_into_run=params.get("placed_into_run"),
+                      placed_recordings=tuple(summary.get("placed_recordings", ())))
 
     def latest(self):
         """(run, window ids, coords, MapState) of the latest map run, or None."""
@@ -103,7 +108,7 @@ class Maps:
             cache["map"] = df
         return cache["map"].copy()
 
-    def place_new(self, recording_ids: list[int]) -> dict | None:
+    def place_new(self, recording_ids: list[int]) -> MapRun | None:
         """Place windows missing from the latest map into it (no re-fit); store as a new run."""
         from labeler.embedding import place
 

@@ -19,6 +19,7 @@ import pandas as pd
 from scipy import sparse
 
 from labeler.errors import InputError
+from labeler.results import ProposalRun
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
 from labeler.service.ledger import Ledger
@@ -97,12 +98,10 @@ class Proposals:
 
     def refresh(self, *, alpha: float | None = None, n_neighbors: int = 10,
                 temporal_weight: float | None = None, pca_components: int | None = 30,
-                progress: Progress | None = None) -> dict:
+                progress: Progress | None = None) -> ProposalRun:
         """Spread the confirmed labels over the window graph; store the result as a run.
 
-        Starts from the previous run's scores (warm start) when the graph is unchanged. Returns
-        the run's summary (run id, confirmed windows, classes, proposed windows, mean confidence,
-        solver iterations, seconds, whether the graph was rebuilt).
+        Starts from the previous run's scores (warm start) when the graph is unchanged.
         """
         from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
         from labeler.spreading import DEFAULT_ALPHA, LabelSpreader
@@ -166,7 +165,7 @@ class Proposals:
         self.ctx.invalidate("proposals")
         if progress:
             progress(1.0, "done")
-        return {"run_id": run_id, **summary}
+        return ProposalRun(run_id=int(run_id), **summary)
 
     def table(self) -> pd.DataFrame:
         """Latest proposals: window_id, label (class name), class_id, confidence, margin, support,

@@ -13,6 +13,7 @@ import shutil
 import tempfile
 from pathlib import Path
 
+import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -107,8 +108,13 @@ def test_interval_reader_random_csv(text):
 
 @pytest.mark.parametrize("n", [2, 3, 50])
 def test_recording_reader_tiny_valid_tables(n, tmp_path):
-    """Edge sizes read or fail with InputError, never with something else."""
-    rows = "".join(f"{i / 50:.2f},{i % 3},{i % 5}\n" for i in range(n))
+    """A valid table of a few samples (a wrist at rest, gravity on z, 50 Hz) is read whole."""
+    rows = "".join(f"{i / 50:.2f},{0.01 * (i % 3):.2f},{0.02 * (i % 5):.2f},1.00\n"
+                   for i in range(n))
     p = tmp_path / "tiny.csv"
-    p.write_text("time,wrist_acc_x,wrist_acc_y\n" + rows)
-    only_input_error(read_recording, p)
+    p.write_text("time,wrist_acc_x,wrist_acc_y,wrist_acc_z\n" + rows)
+    rec = read_recording(p)
+    assert rec.n_samples == n and rec.rate == pytest.approx(50.0)
+    assert rec.channels == ["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]
+    np.testing.assert_allclose(rec.signal[:, 2], 1.0)
+    np.testing.assert_allclose(rec.signal[:, 0], [0.01 * (i % 3) for i in range(n)], atol=1e-6)

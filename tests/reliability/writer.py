@@ -52,11 +52,11 @@ def confirm_loop(project: str, seed: int, n: int, annotator: str, mixed: bool = 
         roll = rng.random() if mixed else 1.0
         t0 = time.perf_counter()
         if roll < 0.08:
-            bid = p.withdraw(pick, source="map")
+            bid = p.withdraw(pick, source="map").batch_id
             rec = {"ack": bid, "action": "withdraw", "events": [[w, None] for w in pick]}
         elif roll < 0.12:
             try:
-                bid = p.undo()
+                bid = p.undo().batch_id
             except Exception as exc:  # nothing to undo yet is fine
                 if "nothing to undo" not in str(exc):
                     raise
@@ -64,7 +64,7 @@ def confirm_loop(project: str, seed: int, n: int, annotator: str, mixed: bool = 
             rec = {"ack": bid, "action": "undo", "events": None}
         else:
             c = classes[int(rng.integers(len(classes)))]
-            bid = p.confirm(pick, c, source=str(rng.choice(["map", "timeline", "queue"])))
+            bid = p.confirm(pick, c, source=str(rng.choice(["map", "timeline", "queue"]))).batch_id
             rec = {"ack": bid, "action": "confirm", "events": [[w, cid[c]] for w in pick]}
         slowest = max(slowest, time.perf_counter() - t0)
         emit(rec)

@@ -1,0 +1,192 @@
+"""What `Project`'s use cases hand back: small typed records, the same for the CLI, the app and
+the Python API.
+
+Writes of labels return a :class:`LabelBatch` naming the windows whose labels it set, so a caller
+that shows per-window arrays patches those rows instead of reading every label again.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from labeler.quality import Estimate
+
+
+@dataclass(frozen=True)
+class LabelBatch:
+    """One user action on labels: a batch of events (confirm, withdraw, undo, merge, import).
+
+    ``batch_id`` is None when the action had nothing to change (merging a class no window
+    carried). ``window_ids``: the windows the batch wrote an event for, sorted, without repeats;
+    ``n_events``: how many events (a window counts once per annotator whose label changed).
+    ``undoes``: the batch an undo reverted.
+    """
+    batch_id: str | None
+    action: str
+    window_ids: np.ndarray
+    n_events: int = 0
+    undoes: str | None = None
+
+    @property
+    def n_windows(self) -> int:
+        return int(self.window_ids.size)
+
+
+def label_batch(batch_id: str | None, action: str, changes, *,
+                undoes: str | None = None) -> LabelBatch:
+    """A :class:`LabelBatch` from the (window id, class id) changes a batch wrote."""
+    ids = np.unique(np.asarray([int(w) for w, _ in changes], dtype=np.int64))
+    return LabelBatch(batch_id, action, ids, len(changes), undoes)
+
+
+@dataclass(frozen=True)
+class MapRun:
+    """A stored map: a fit of every window, or new windows placed into an earlier map."""
+    run_id: int
+    method: str
+    n_windows: int
+    n_fitted: int
+    n_placed: int
+    seconds: float | None = None
+    placed_into_run: int | None = None
+    placed_recordings: tuple[int, ...] = ()
+
+
+@dataclass(frozen=True)
+class ProposalRun:
+    """One label-spreading run over the window graph and its summary."""
+    run_id: int
+    confirmed: int
+    windows: int
+    classes: dict[str, int]        # confirmed windows per class at the run
+    proposed: int
+    mean_confidence: float | None  # over proposed windows; None when every window is confirmed
+    low_support: int               # proposed windows that little label mass reached
+    conflicts: int                 # confirmed windows whose neighbourhood disagrees
+    iterations: int
+    warm_start: bool
+    graph_rebuilt: bool
+    graph_edges: int
+    seconds: float
+
+    def as_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+@dataclass
+class AccuracyReport:
+    """How accurate the latest proposals are and what that rests on.
+
+    ``estimate``: of the proposed windows (see :mod:`labeler.quality`); ``training_set``: the same
+    for the exported set, confirmed windows counted as right (None when there is nothing to
+    export); ``run_id``: the proposal run it is about; ``audit_runs``: the runs an audit drew from.
+    """
+    run_id: int
+    estimate: Estimate
+    training_set: Estimate | None = None
+    audit_runs: tuple[int, ...] = ()
+
+    @property
+    def value(self) -> float | None:
+        return _finite(self.estimate.value)
+
+    @property
+    def low(self) -> float | None:
+        return _finite(self.estimate.low)
+
+    @property
+    def high(self) -> float | None:
+        return _finite(self.estimate.high)
+
+    @property
+    def basis(self) -> str:
+        return self.estimate.basis
+
+    @property
+    def n(self) -> int:
+        return self.estimate.n
+
+    @property
+    def level(self) -> float:
+        return self.estimate.level
+
+    @property
+    def note(self) -> str:
+        return self.estimate.note
+
+    @property
+    def ece(self) -> float | None:
+        return self.estimate.ece
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON-ready (the export manifest): the estimate's fields, non-finite values as None,
+        the training-set estimate and the run."""
+        out = self.estimate.as_dict()
+        for k in ("value", "low", "high"):
+            out[k] = _finite(out[k])
+        if self.training_set is not None:
+            out["training_set"] = self.training_set.as_dict()
+        out["run_id"] = self.run_id
+        return out
+
+
+def _finite(v) -> float | None:
+    return float(v) if v is not None and np.isfinite(v) else None
+
+
+@dataclass(frozen=True)
+class ImportRow:
+    row: int
+    recording: str
+    label: str
+    windows: int
+
+
+@dataclass
+class ImportReport:
+    """What an interval import did (or, on a dry run, would do)."""
+    intervals: int
+    windows: int                 # (window, annotator) labels the file sets
+    changes: int                 # ... of them that change a label
+    relabels: int                # ... of those that replace another label
+    new_classes: list[str]
+    rows: list[ImportRow]
+    annotators: list[str]
+    dry_run: bool
+    batches: list[LabelBatch] = field(default_factory=list)
+
+    @property
+    def window_ids(self) -> np.ndarray:
+        """Windows whose labels the import wrote (empty on a dry run)."""
+        if not self.batches:
+            return np.empty(0, np.int64)
+        return np.unique(np.concatenate([b.window_ids for b in self.batches]))
+
+
+@dataclass
+class ExportReport:
+    """Files an export wrote, their row counts and the manifest as written."""
+    files: dict[str, str]        # kind (windows, segments, manifest) -> path
+    windows: int
+    segments: int
+    manifest: dict[str, Any]
+
+
+@dataclass
+class ProjectStatus:
+    """What is in a project: recordings, windows, settings, classes and confirmations."""
+    path: str
+    annotator: str
+    recordings: int
+    hours: float
+    windows: int
+    window_length_s: float
+    window_step_s: float
+    feature_set_version: str
+    classes: list[str]           # active classes
+    confirmed: int               # windows with a current label
+    annotators: list[str]        # who set the current labels
+    counts: Any                  # DataFrame: class, confirmed, retired
