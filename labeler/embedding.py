@@ -33,9 +33,9 @@ t-SNE parameters chosen from the number of windows N
 Neighbours
 ----------
 t-SNE's affinities need the 3 × perplexity nearest neighbours of each window. Up to
-:data:`EXACT_NEIGHBORS_UP_TO` windows they are exact (brute force with BLAS). Above, the windows are
+:data:`labeler.cells.EXACT_NEIGHBORS_UP_TO` windows they are exact (brute force with BLAS). Above, the windows are
 first grouped into about sqrt(N) k-means cells, and each window's neighbours are sought among the
-windows of the :data:`N_PROBE` cells nearest to its own cell (an inverted-file search, as in
+windows of the :data:`labeler.cells.N_PROBE` cells nearest to its own cell (an inverted-file search, as in
 Jégou, Douze & Schmid, "Product quantization for nearest neighbor search", 2011); distances to the
 candidates are exact. Windows are also reordered by cell during the optimization, so that
 neighbours sit close in memory (the attractive-force pass was about 1.5 times faster at 100k windows with 2 threads); the result
@@ -75,23 +75,19 @@ t-SNE map carry little meaning, and nothing here is a label.
 
 from __future__ import annotations
 
-import io
-import json
 import math
 import time
-from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
 import scipy.sparse as sp
 
-from labeler.errors import InputError
-from labeler.reduction import MAX_COMPONENTS, apply_reduction, check_features, fit_reduction
+from labeler.cells import CellIndex
+from labeler.mapstate import METHODS, MapInputError, MapResult, MapState
+from labeler.reduction import apply_reduction, check_features, fit_reduction
 
 #: Called with (fraction done in [0, 1], message).
 Progress = Callable[[float, str], None]
-
-METHODS = ("pca", "tsne")
 
 #: Windows fitted by t-SNE at most; above, a stratified subsample is fitted and the rest placed.
 #: benchmarks/bench_map.py on this 2-core machine (other jobs running alongside): a 100k-window
@@ -101,11 +97,7 @@ FIT_AT_MOST = 200_000
 #: Windows kept per stratum at least when subsampling (or all of a smaller stratum).
 MIN_PER_STRATUM = 200
 
-#: Exact neighbour search up to this many reference windows; k-means cells above.
-EXACT_NEIGHBORS_UP_TO = 10_000
 
-#: Cells searched per query in the cell search (the query's own cell and the nearest others).
-N_PROBE = 10
 
 EARLY_EXAGGERATION = 12.0
 EARLY_EXAGGERATION_ITER = 250
@@ -125,11 +117,6 @@ PLACE_N_ITER = 250
 PLACE_CHUNK = 50_000
 
 _CALLBACK_EVERY = 25
-_BLOCK = 4_000_000  # distance-matrix entries computed at once in the neighbour search
-
-
-class MapInputError(InputError, ValueError):
-    """Bad input to the map (also a ValueError, as scikit-learn conventions expect)."""
 
 
 # --------------------------------------------------------------------------------------------------
@@ -169,131 +156,6 @@ class _Stage:
     def sub(self, a: float, b: float) -> "_Stage":
         w = self.end - self.start
         return _Stage(self.progress, self.start + w * a, self.start + w * b)
-
-
-# --------------------------------------------------------------------------------------------------
-# neighbours
-
-
-def _kmeans(Z: np.ndarray, n_cells: int, random_state: int) -> np.ndarray:
-    from sklearn.cluster import KMeans
-
-    rng = np.random.RandomState(random_state)
-    m = min(Z.shape[0], 40 * n_cells)
-    sample = Z[np.sort(rng.choice(Z.shape[0], m, replace=False))] if m < Z.shape[0] else Z
-    km = KMeans(n_clusters=n_cells, n_init=1, max_iter=20, random_state=random_state,
-                algorithm="lloyd").fit(sample.astype(np.float32))
-    return km.cluster_centers_.astype(np.float32)
-
-
-def _nearest_centroid(Z: np.ndarray, centroids: np.ndarray) -> np.ndarray:
-    cc = np.einsum("ij,ij->i", centroids, centroids)
-    out = np.empty(Z.shape[0], dtype=np.int64)
-    step = max(1, _BLOCK // max(1, centroids.shape[0]))
-    for a in range(0, Z.shape[0], step):
-        d = cc[None, :] - 2.0 * (Z[a:a + step] @ centroids.T)
-        out[a:a + step] = np.argmin(d, axis=1)
-    return out
-
-
-class CellIndex:
-    """Nearest neighbours among reference rows: exact up to ``exact_up_to`` rows, k-means cells above.
-
-    ``build()`` returns each reference row's neighbours among the others, ``query(Q, k)`` those of
-    new rows; both give (indices int64 (m, k), distances float64 (m, k)), nearest first, ties by
-    index. Duck-types ``openTSNE.nearest_neighbors.KNNIndex``.
-    """
-
-    def __init__(self, data: np.ndarray, k: int, *, random_state: int = 0,
-                 exact_up_to: int = EXACT_NEIGHBORS_UP_TO, n_probe: int = N_PROBE,
-                 progress: Progress | None = None):
-        self.data = np.ascontiguousarray(data, dtype=np.float32)
-        self.n_samples = self.data.shape[0]
-        self.k = int(k)
-        self.random_state = random_state
-        n = self.n_samples
-        if n <= exact_up_to:
-            self.n_cells = 1
-            labels = np.zeros(n, dtype=np.int64)
-            self.centroids = self.data.mean(axis=0, keepdims=True)
-        else:
-            self.n_cells = int(min(4096, max(2, round(math.sqrt(n)))))
-            self.centroids = _kmeans(self.data, self.n_cells, random_state)
-            labels = _nearest_centroid(self.data, self.centroids)
-        self.labels = labels
-        self.order = np.argsort(labels, kind="stable")
-        self.sorted = self.data[self.order]
-        self.sorted_sq = np.einsum("ij,ij->i", self.sorted, self.sorted)
-        counts = np.bincount(labels, minlength=self.n_cells)
-        self.starts = np.concatenate([[0], np.cumsum(counts)])
-        self.n_probe = int(min(n_probe, self.n_cells))
-        self._progress = progress
-
-    def _probes(self, cell: int, need: int) -> np.ndarray:
-        """Cells to search for queries of ``cell``: nearest centroids until enough candidates."""
-        c = self.centroids
-        d = np.einsum("ij,ij->i", c - c[cell], c - c[cell])
-        order = np.lexsort((np.arange(self.n_cells), d))
-        counts = self.starts[1:] - self.starts[:-1]
-        total = np.cumsum(counts[order])
-        m = max(self.n_probe, int(np.searchsorted(total, need)) + 1)
-        return np.sort(order[:m])
-
-    def _search(self, Q: np.ndarray, q_labels: np.ndarray, k: int, self_ids: np.ndarray | None
-                ) -> tuple[np.ndarray, np.ndarray]:
-        m = Q.shape[0]
-        kk = k + (1 if self_ids is not None else 0)
-        ind = np.empty((m, k), dtype=np.int64)
-        dist = np.empty((m, k), dtype=np.float64)
-        q_order = np.argsort(q_labels, kind="stable")
-        q_counts = np.bincount(q_labels, minlength=self.n_cells)
-        q_starts = np.concatenate([[0], np.cumsum(q_counts)])
-        done = 0
-        for cell in range(self.n_cells):
-            rows = q_order[q_starts[cell]:q_starts[cell + 1]]
-            if rows.size == 0:
-                continue
-            probes = self._probes(cell, kk)
-            cand = np.concatenate([np.arange(self.starts[p], self.starts[p + 1]) for p in probes])
-            C = self.sorted[cand]
-            csq = self.sorted_sq[cand]
-            step = max(1, _BLOCK // max(1, cand.size))
-            for a in range(0, rows.size, step):
-                r = rows[a:a + step]
-                q = Q[r]
-                d2 = csq[None, :] - 2.0 * (q @ C.T)
-                top = np.argpartition(d2, kk - 1, axis=1)[:, :kk] if kk < cand.size else \
-                    np.broadcast_to(np.arange(cand.size), (r.size, cand.size))
-                ids = self.order[cand[top]]  # reference row ids
-                diff = self.data[ids].astype(np.float64) - q[:, None, :].astype(np.float64)
-                dd = np.sqrt(np.einsum("ijk,ijk->ij", diff, diff))
-                if self_ids is not None:
-                    own = ids == self_ids[r][:, None]
-                    missing = ~own.any(axis=1)
-                    # a row is its own neighbour at distance 0; where duplicates pushed it out,
-                    # drop the farthest candidate instead
-                    far = np.argmax(np.where(own, -np.inf, dd), axis=1)
-                    own[missing, far[missing]] = True
-                    ids = ids[~own].reshape(r.size, kk - 1)
-                    dd = dd[~own].reshape(r.size, kk - 1)
-                o = np.lexsort((ids, dd), axis=1)[:, :k]
-                ind[r] = np.take_along_axis(ids, o, 1)
-                dist[r] = np.take_along_axis(dd, o, 1)
-            done += rows.size
-            if self._progress is not None:
-                self._progress(done / m, "finding neighbours")
-        return ind, dist
-
-    def build(self) -> tuple[np.ndarray, np.ndarray]:
-        k = min(self.k, self.n_samples - 1)
-        return self._search(self.data, self.labels, k, np.arange(self.n_samples))
-
-    def query(self, query: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
-        Q = np.ascontiguousarray(query, dtype=np.float32)
-        k = min(int(k), self.n_samples)
-        labels = np.zeros(Q.shape[0], dtype=np.int64) if self.n_cells == 1 else \
-            _nearest_centroid(Q, self.centroids)
-        return self._search(Q, labels, k, None)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -341,95 +203,6 @@ def stratified_subsample(n: int, size: int, strata: np.ndarray, *, random_state:
             picked.append(rng.choice(members, t, replace=False))
     out = np.sort(np.concatenate(picked)) if picked else np.empty(0, dtype=np.int64)
     return out[:size]
-
-
-# --------------------------------------------------------------------------------------------------
-# state and result
-
-
-@dataclass
-class MapState:
-    """Everything needed to place new windows into a fitted map, as plain arrays.
-
-    ``components`` apply to standardized features ((x - mean) / scale). For a t-SNE map
-    ``reference`` holds the reduced features (float32, n_ref x k) of the windows the map was fitted
-    on and ``reference_coords`` their 2-D coordinates; both are empty for a PCA map.
-    """
-
-    method: str
-    mean: np.ndarray
-    scale: np.ndarray
-    components: np.ndarray
-    reference: np.ndarray
-    reference_coords: np.ndarray
-    params: dict = field(default_factory=dict)
-
-    _ARRAYS = ("mean", "scale", "components", "reference", "reference_coords")
-
-    def to_arrays(self) -> dict[str, np.ndarray]:
-        out = {name: np.asarray(getattr(self, name)) for name in self._ARRAYS}
-        out["method"] = np.frombuffer(self.method.encode(), dtype=np.uint8)
-        out["params"] = np.frombuffer(json.dumps(self.params, sort_keys=True).encode(), dtype=np.uint8)
-        return out
-
-    @classmethod
-    def from_arrays(cls, arrays) -> "MapState":
-        try:
-            method = bytes(np.asarray(arrays["method"], dtype=np.uint8)).decode()
-            params = json.loads(bytes(np.asarray(arrays["params"], dtype=np.uint8)).decode())
-            vals = {name: np.asarray(arrays[name]) for name in cls._ARRAYS}
-        except (KeyError, ValueError, UnicodeDecodeError) as exc:
-            raise MapInputError(f"stored map state is incomplete or damaged ({exc}); "
-                                "compute the map again") from None
-        state = cls(method=method, params=params, **vals)
-        state.validate()
-        return state
-
-    def to_bytes(self) -> bytes:
-        buf = io.BytesIO()
-        np.savez(buf, **self.to_arrays())
-        return buf.getvalue()
-
-    @classmethod
-    def from_bytes(cls, data: bytes) -> "MapState":
-        try:
-            with np.load(io.BytesIO(data), allow_pickle=False) as z:
-                arrays = {name: z[name] for name in z.files}
-        except (OSError, ValueError, EOFError) as exc:
-            raise MapInputError(f"stored map state cannot be read ({exc}); compute the map again"
-                                ) from None
-        return cls.from_arrays(arrays)
-
-    @property
-    def n_features(self) -> int:
-        return int(self.mean.shape[0])
-
-    def validate(self) -> None:
-        d = self.mean.shape[0]
-        ok = (self.method in METHODS and self.mean.ndim == 1 and self.scale.shape == (d,)
-              and self.components.ndim == 2 and self.components.shape[1] == d
-              and self.reference.ndim == 2 and self.reference_coords.ndim == 2
-              and self.reference.shape[0] == self.reference_coords.shape[0])
-        if ok and self.method == "tsne":
-            ok = (self.reference.shape[1] == self.components.shape[0]
-                  and self.reference_coords.shape[1] == 2 and self.reference.shape[0] >= 2)
-        if not ok:
-            raise MapInputError("stored map state has inconsistent array shapes; compute the map again")
-
-
-@dataclass
-class MapResult:
-    """A map: ``coords`` float32 (n, 2) in the order of the input rows.
-
-    ``fitted`` marks the rows the map was fitted on (all of them unless the input was subsampled;
-    the others were placed into the map). ``params`` is JSON-able.
-    """
-
-    coords: np.ndarray
-    method: str
-    params: dict
-    state: MapState
-    fitted: np.ndarray
 
 
 # --------------------------------------------------------------------------------------------------

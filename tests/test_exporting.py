@@ -1,5 +1,6 @@
 import hashlib
 import json
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -174,7 +175,7 @@ def test_parquet_holds_the_same_rows(project, tmp_path):
     a = project.export(tmp_path / "csv")
     b = project.export(tmp_path / "pq", fmt="parquet")
     pq = pd.read_parquet(b.files["windows"])
-    csv = pd.read_csv(a["files"]["windows"])
+    csv = pd.read_csv(a.files["windows"])
     assert list(pq.columns) == list(csv.columns)
     assert pq["start_utc"].dt.strftime(ex.ISO_UTC).tolist() == csv["start_utc"].tolist()
     pd.testing.assert_series_equal(pq["start_s"], csv["start_s"])
@@ -300,8 +301,8 @@ def fixed_proposals(monkeypatch):
                              "margin": np.linspace(0.0, 0.6, len(w))})
 
     def accuracy_estimate(self, cross_validate=True):
-        return {"value": 0.8, "low": 0.7, "high": 0.9, "basis": "audit", "n": 40,
-                "ece": float("nan")}
+        return SimpleNamespace(as_dict=lambda: {"value": 0.8, "low": 0.7, "high": 0.9,
+                                                "basis": "audit", "n": 40, "ece": float("nan")})
 
     monkeypatch.setattr(Proposals, "table", table)
     monkeypatch.setattr(Audits, "accuracy_estimate", accuracy_estimate)

@@ -1,0 +1,164 @@
+"""Commands that make, fill, show and serve a project: new, add, status, backup, demo, open, map."""
+
+from __future__ import annotations
+
+import glob
+import os
+from pathlib import Path
+
+import click
+
+from labeler.commands.base import (UserError, _open, _progress_bar, annotator_option, cli,
+                                   project_argument)
+from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S
+
+
+@cli.command("new")
+@project_argument
+@click.option("--window", "window_s", type=float, default=DEFAULT_LENGTH_S, show_default=True,
+              help="Window length in seconds.")
+@click.option("--step", "step_s", type=float, default=DEFAULT_STEP_S, show_default=True,
+              help="Step between window starts in seconds.")
+@annotator_option
+def new_cmd(project, window_s, step_s, annotator):
+    """Create an empty project file."""
+    from labeler.project import Project
+
+    with Project.create(project, window_length_s=window_s, window_step_s=step_s,
+                        annotator=annotator) as p:
+        click.echo(f"created {p.path} (windows {window_s:g} s, step {step_s:g} s)")
+
+
+@cli.command("add")
+@project_argument
+@click.argument("files", nargs=-1, required=True)
+@click.option("--rate", type=float, default=None, help="Sampling rate in Hz, for files without a "
+              "time column (or to state the nominal rate).")
+@click.option("--time-column", default=None, help="Name of the time column (default: time, t or "
+              "timestamp).")
+@click.option("--acc-unit", default="g", show_default=True,
+              type=click.Choice(["g", "m/s2"]), help="Unit of acceleration columns without one.")
+@click.option("--gyr-unit", default="deg/s", show_default=True,
+              type=click.Choice(["deg/s", "rad/s"]), help="Unit of angular-rate columns without one.")
+@annotator_option
+def add_cmd(project, files, rate, time_column, acc_unit, gyr_unit, annotator):
+    """Add recording files (CSV or Parquet; globs allowed) to a project: all of them or none."""
+    paths: list[str] = []
+    for pattern in files:
+        if os.path.exists(pattern):  # a file name may hold glob characters ([1], *)
+            hits = [pattern]
+        else:
+            hits = sorted(glob.glob(pattern)) if glob.has_magic(pattern) else [pattern]
+        if not hits:
+            raise UserError(f"{pattern}: matches no file; check the pattern")
+        paths.extend(hits)
+    with _open(project, annotator) as p:
+        bar, progress = _progress_bar("adding")
+        with bar:
+            added = p.add_recordings(paths, rate=rate, time_column=time_column,
+                                     acc_unit=acc_unit, gyr_unit=gyr_unit, progress=progress)
+        for a in added:
+            click.echo(f"added {a.name}: {a.duration_s / 60:.1f} min at {a.rate:g} Hz, "
+                       f"{a.n_windows} windows")
+            for r in a.repairs:
+                click.echo(f"  repaired: {r}")
+
+
+@cli.command("status")
+@project_argument
+def status_cmd(project):
+    """What is in a project: recordings, windows, classes and confirmations."""
+    with _open(project, readonly=True) as p:
+        _print_status(p)
+
+
+def _print_status(p) -> None:
+    s = p.status()
+    click.echo(f"project {s.path}")
+    click.echo(f"  {s.recordings} recording(s), {s.hours:.2f} h, {s.windows} windows of "
+               f"{s.window_length_s:g} s every {s.window_step_s:g} s "
+               f"(feature set {s.feature_set_version})")
+    click.echo(f"  {s.confirmed} window(s) confirmed"
+               + (f" by {', '.join(s.annotators)}" if s.annotators else ""))
+    counts = s.counts
+    if len(counts):
+        width = max(len(c) for c in counts["class"])
+        for _, row in counts.iterrows():
+            mark = " (retired)" if row["retired"] else ""
+            click.echo(f"    {row['class']:<{width}}  {row['confirmed']:>6} confirmed{mark}")
+
+
+@cli.command("backup")
+@project_argument
+@click.argument("dest", type=click.Path(dir_okay=False))
+def backup_cmd(project, dest):
+    """Write a consistent copy of a project, safe while it is in use."""
+    with _open(project, readonly=False) as p:
+        p.backup(dest)
+    click.echo(f"wrote {dest}")
+
+
+@cli.command("demo")
+@click.option("--dir", "folder", type=click.Path(file_okay=False), default="labeler-demo",
+              show_default=True, help="Folder for the demo recordings and project.")
+@click.option("--minutes", type=float, default=40.0, show_default=True,
+              help="Length of each simulated recording.")
+@click.option("--people", type=int, default=3, show_default=True, help="Simulated pickers.")
+@click.option("--port", type=int, default=0, help="Port for the app (default: a free one).")
+@click.option("--no-browser", is_flag=True, help="Print the URL only; do not open a browser.")
+@click.option("--no-serve", is_flag=True, help="Build the demo project and stop (no app).")
+def demo_cmd(folder, minutes, people, port, no_browser, no_serve):
+    """Build the demo project (an invented orchard harvest shift) and open the app on it."""
+    from labeler.demo import build_demo
+
+    project = build_demo(Path(folder), minutes=minutes, people=people, echo=click.echo)
+    from labeler.project import Project
+
+    with Project.open(project, readonly=True) as p:
+        _print_status(p)
+    if no_serve:
+        return
+    _serve_app(project, host="127.0.0.1", port=port, annotator=None, no_browser=no_browser)
+
+
+def _serve_app(project, *, host, port, annotator, no_browser) -> None:
+    """Compute the map and proposals if missing, then serve the app until Ctrl-C."""
+    from labeler.app.prepare import prepare
+    from labeler.app.server import serve
+
+    prepare(project, annotator, echo=click.echo)
+    open_browser = not no_browser and not os.environ.get("CI")
+    serve(project, host=host, port=port, annotator=annotator, open_browser=open_browser,
+          echo=click.echo)
+
+
+@cli.command("open")
+@project_argument
+@click.option("--port", type=int, default=0, help="Port for the app (default: a free one).")
+@click.option("--host", default="127.0.0.1", show_default=True,
+              help="Address to listen on; anything but 127.0.0.1 exposes the recordings.")
+@click.option("--no-browser", is_flag=True, help="Print the URL only; do not open a browser.")
+@annotator_option
+def open_cmd(project, port, host, no_browser, annotator):
+    """Open the labeling app on a project in the browser (serves until Ctrl-C)."""
+    if not 0 <= port <= 65535:
+        raise UserError(f"--port {port}: give a port between 1 and 65535 (or 0 for a free one)")
+    _serve_app(project, host=host, port=port, annotator=annotator, no_browser=no_browser)
+
+
+@cli.command("map")
+@project_argument
+@click.option("--method", type=click.Choice(["pca", "tsne"]), default="tsne", show_default=True,
+              help="pca: instant; tsne: similar windows closer together (takes longer).")
+@click.option("--seed", type=int, default=0, show_default=True, help="Random seed of the t-SNE map.")
+@click.option("--jobs", type=click.IntRange(1, 64), default=1, show_default=True,
+              help="Threads for t-SNE (the map depends on it as well as on the seed).")
+@annotator_option
+def map_cmd(project, method, seed, jobs, annotator):
+    """Compute the 2-D map of every window (a full re-fit) and store it in the project."""
+    with _open(project, annotator) as p:
+        bar, progress = _progress_bar("map")
+        with bar:
+            out = p.compute_map(method, progress=progress, random_state=seed, n_jobs=jobs)
+        click.echo(f"map run {out.run_id} ({out.method}): {out.n_windows} windows, "
+                   f"{out.n_fitted} fitted, {out.seconds:.1f} s")
