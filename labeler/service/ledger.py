@@ -178,7 +178,8 @@ class Ledger:
                 if target is None:
                     raise InputError(f"no batch {batch_id!r}; list batches with `labeler history`")
                 if target["undone_by"] is not None:
-                    raise InputError(f"batch {batch_id} was undone already (by {target['undone_by']})")
+                    raise InputError(f"batch {target['id']} was undone already (by "
+                                     f"{target['undone_by']})")
             changes, whose = [], []
             for ev in store.batch_events(target["id"]):
                 now = store.annotation(ev["window_id"], ev["annotator"])
