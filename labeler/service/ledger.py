@@ -175,8 +175,6 @@ class Ledger:
                     raise InputError(f"nothing to undo for annotator {me!r}")
             else:
                 target = store.batch(self.find_batch(batch_id))
-                if target is None:
-                    raise InputError(f"no batch {batch_id!r}; list batches with `labeler history`")
                 if target["undone_by"] is not None:
                     raise InputError(f"batch {target['id']} was undone already (by "
                                      f"{target['undone_by']})")
