@@ -192,9 +192,9 @@ def holder(project: str, seed: int) -> None:
             pick = sorted(int(w) for w in rng.choice(ids, size=int(rng.integers(1, 20)),
                                                      replace=False))
             c = classes[int(rng.integers(len(classes)))]
-            bid = page.confirm(pick, c, source="map")
+            bid = page.confirm(pick, c, source="map").batch_id
             emit({"ack": bid, "action": "confirm", "events": [[w, cid[c]] for w in pick]})
-        emit({"round": int(worker.status()["confirmed"])})  # the worker reads too
+        emit({"round": int(worker.status().confirmed)})  # the worker reads too
     worker.close()
     page.close()
     emit({"closed": os.getpid()})
