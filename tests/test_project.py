@@ -157,3 +157,42 @@ def test_create_refuses_bad_window_settings(tmp_path, length, step, option):
     msg = str(info.value)
     assert msg.startswith(f"{option}: ") and "give" in msg and "\n" not in msg
     assert list(tmp_path.iterdir()) == []
+
+
+def test_writes_name_the_windows_they_changed(project, tmp_path):
+    b1 = project.confirm([3, 1, 2, 2], "walking", create_class=True)
+    assert b1.action == "confirm" and b1.window_ids.tolist() == [1, 2, 3] and b1.n_events == 3
+    other = Project(project.store, annotator="bo")
+    other.confirm([2], "sitting", create_class=True)
+    w = project.withdraw([1])
+    assert w.action == "withdraw" and w.window_ids.tolist() == [1]
+    # undoing ana's first batch: window 1 moved on since (withdrawn) and stays; 2 and 3 go back
+    u = project.undo(b1.batch_id[:8])
+    assert u.undoes == b1.batch_id and u.window_ids.tolist() == [2, 3]
+    assert project.history(batch_id=u.batch_id)["window_id"].tolist() == [2, 3]
+    m = project.merge_classes("sitting", "walking")
+    assert m.window_ids.tolist() == [2] and m.n_events == 1
+    assert project.history(batch_id=m.batch_id)["by"].tolist() == ["ana"]
+    assert project.history(batch_id=m.batch_id)["annotator"].tolist() == ["bo"]
+    project.add_class("idle")
+    assert project.merge_classes("idle", "walking").batch_id is None
+    f = tmp_path / "iv.csv"
+    f.write_text("recording,start,end,label\nbeta,0,6,walking\n")
+    r = project.import_intervals(f)
+    wins = project.windows()
+    centre = (wins["start_s"] + wins["stop_s"]) / 2
+    want = wins.loc[(wins["recording"] == "beta") & (centre > 0) & (centre < 6), "id"].tolist()
+    assert r.window_ids.tolist() == want and r.windows == len(want)
+
+
+def test_history_filters_and_class_log(project):
+    project.confirm([1, 2], "walking", create_class=True, source="cli")
+    project.confirm([3], "sitting", create_class=True, source="map")
+    assert project.history(source="map")["window_id"].tolist() == [3]
+    assert project.history(class_name="walking")["window_id"].tolist() == [1, 2]
+    assert len(project.history(annotator="nobody")) == 0
+    project.rename_class("sitting", "seated")
+    log = project.class_log()
+    assert log["action"].tolist() == ["add", "add", "rename"]
+    assert log.iloc[-1]["class"] == "seated"
+    assert log.iloc[-1]["detail"] == {"from": "sitting", "to": "seated"}

@@ -206,3 +206,17 @@ def test_opening_again_keeps_this_process_locks(store):
         readonly.close()
         second.close()
     assert _lock_seen_by_another_process(store.path) == "held"
+
+
+def test_events_take_keyword_filters(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    c2 = store.add_class("sitting", "#0072B2", "ann")
+    b1 = store.apply_batch("ann", "confirm", "cli", [(1, c1), (2, c1)])
+    store.apply_batch("bea", "confirm", "map", [(2, c2)])
+    assert [e["window_id"] for e in store.events(annotator="ann")] == [1, 2]
+    assert [e["annotator"] for e in store.events(class_id=c2)] == ["bea"]
+    assert [e["window_id"] for e in store.events(source="cli", batch_id=b1)] == [1, 2]
+    assert store.events(source="map", annotator="ann") == []
+    first = store.events()[0]["at"]
+    assert len(store.events(since=first)) == 3 and len(store.events(until=first)) >= 2
