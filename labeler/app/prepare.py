@@ -11,15 +11,6 @@ import time
 from pathlib import Path
 from typing import Callable
 
-from labeler.errors import LabelerError
-
-
-def _map_method(p) -> str | None:
-    try:
-        return p.map_method()
-    except LabelerError:
-        return None
-
 
 def prepare(project_path: str | Path, annotator: str | None = None, *, tsne: bool = True,
             echo: Callable[[str], None] = print) -> threading.Thread | None:
@@ -27,7 +18,7 @@ def prepare(project_path: str | Path, annotator: str | None = None, *, tsne: boo
     from labeler.project import Project
 
     with Project.open(project_path, annotator=annotator) as p:
-        method = _map_method(p)
+        method = p.map_method()
         if method is None:
             t0 = time.perf_counter()
             p.compute_map("pca")

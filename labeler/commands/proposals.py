@@ -37,9 +37,9 @@ def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, ov
 
 
 def _accuracy_line(manifest: dict) -> str:
-    est = manifest.get("accuracy_estimate")
-    if not est:
-        return f"none ({manifest.get('accuracy_estimate_absent') or 'not available'})"
+    est = manifest["accuracy_estimate"]
+    if est is None:
+        return f"none ({manifest['accuracy_estimate_absent']})"
     value, lo, hi = est["value"], est["low"], est["high"]
     text = "none" if value is None else f"{value:.3f}"
     if lo is not None and hi is not None:
