@@ -29,20 +29,22 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
+from labeler.errors import ValueInputError
+
 
 def confusion(a: Sequence, b: Sequence, labels: Sequence | None = None) -> pd.DataFrame:
     """Counts of (a[i], b[i]) pairs; rows are a's labels, columns b's, both in ``labels`` order
     (default: sorted union of the labels that occur)."""
     a, b = np.asarray(a, dtype=object), np.asarray(b, dtype=object)
     if a.shape != b.shape or a.ndim != 1:
-        raise ValueError(f"a and b must be 1-D and of one length (got {a.shape} and {b.shape})")
+        raise ValueInputError(f"a and b must be 1-D and of one length (got {a.shape} and {b.shape})")
     if labels is None:
         labels = sorted(set(a.tolist()) | set(b.tolist()), key=str)
     labels = list(labels)
     index = {c: i for i, c in enumerate(labels)}
     unknown = [c for c in set(a.tolist()) | set(b.tolist()) if c not in index]
     if unknown:
-        raise ValueError(f"label {unknown[0]!r} is not among labels {labels}")
+        raise ValueInputError(f"label {unknown[0]!r} is not among labels {labels}")
     table = np.zeros((len(labels), len(labels)), dtype=np.int64)
     if a.size:
         np.add.at(table, ([index[x] for x in a], [index[x] for x in b]), 1)
@@ -54,7 +56,7 @@ def cohen_kappa_from_confusion(table) -> float:
     m = np.asarray(table, dtype=np.float64)
     n = m.sum()
     if m.ndim != 2 or m.shape[0] != m.shape[1]:
-        raise ValueError(f"a confusion table must be square (got shape {m.shape})")
+        raise ValueInputError(f"a confusion table must be square (got shape {m.shape})")
     if n == 0:
         return float("nan")
     p_o = np.trace(m) / n
@@ -74,16 +76,16 @@ def fleiss_kappa(counts) -> float:
     class j. Every item must have the same number of raters (two or more)."""
     m = np.asarray(counts, dtype=np.float64)
     if m.ndim != 2 or m.shape[0] == 0:
-        raise ValueError("counts must be a non-empty 2-D table (items × classes)")
+        raise ValueInputError("counts must be a non-empty 2-D table (items × classes)")
     if (m < 0).any():
-        raise ValueError("counts must be non-negative")
+        raise ValueInputError("counts must be non-negative")
     raters = m.sum(axis=1)
     n = raters[0]
     if not np.all(raters == n):
-        raise ValueError("every item needs the same number of raters for Fleiss' kappa "
+        raise ValueInputError("every item needs the same number of raters for Fleiss' kappa "
                          f"(found {sorted(set(raters.tolist()))})")
     if n < 2:
-        raise ValueError("Fleiss' kappa needs at least two raters per item")
+        raise ValueInputError("Fleiss' kappa needs at least two raters per item")
     p_i = ((m ** 2).sum(axis=1) - n) / (n * (n - 1))
     p_bar = p_i.mean()
     p_j = m.sum(axis=0) / m.sum()

@@ -20,6 +20,8 @@ import math
 import re
 from dataclasses import dataclass
 
+from labeler.errors import ValueInputError
+
 STANDARD_GRAVITY = 9.80665  # m/s², by definition (CGPM 1901)
 
 KINDS = {"acc": "acceleration", "gyr": "angular rate"}
@@ -51,8 +53,8 @@ class Channel:
 def parse_channel(column: str) -> Channel | None:
     """Parse a column name; None when the column does not follow the convention at all.
 
-    Raises ValueError (with the reason) when it looks like a sensor column but is malformed:
-    an unknown kind, axis or unit.
+    Raises ValueInputError (a ValueError) with the reason when it looks like a sensor column but
+    is malformed: an unknown kind, axis or unit.
     """
     m = _NAME.match(column.strip().lower())
     if m is None:
@@ -60,14 +62,14 @@ def parse_channel(column: str) -> Channel | None:
     kind, axis, unit = m["kind"], m["axis"], m["unit"]
     if kind not in KINDS:
         if axis in ("x", "y", "z"):
-            raise ValueError(f"unknown sensor kind {kind!r}; use 'acc' or 'gyr'")
+            raise ValueInputError(f"unknown sensor kind {kind!r}; use 'acc' or 'gyr'")
         return None
     if axis not in ("x", "y", "z"):
-        raise ValueError(f"unknown axis {axis!r}; use x, y or z")
+        raise ValueInputError(f"unknown axis {axis!r}; use x, y or z")
     if unit is not None:
         unit = unit.strip()
         if unit not in UNIT_FACTORS[kind]:
-            raise ValueError(f"unknown unit {unit!r} for {KINDS[kind]}; use one of "
+            raise ValueInputError(f"unknown unit {unit!r} for {KINDS[kind]}; use one of "
                              + ", ".join(sorted(UNIT_FACTORS[kind])))
     return Channel(m["site"], kind, axis, unit)
 

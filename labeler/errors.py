@@ -1,4 +1,10 @@
-"""Typed errors. Each carries one line that names the file, row or column and says what to do."""
+"""Typed errors. Each carries one line that names the file, row or column and says what to do.
+
+One tree: every error labeler reports derives from :class:`LabelerError`. This module imports
+nothing, so every layer can import it: ``storage`` (whose ``StoreError`` derives from
+``LabelerError``) takes nothing else from labeler, and the numerics raise :class:`ValueInputError`
+(also a ``ValueError``, as scikit-learn-style code expects) or a subclass of it.
+"""
 
 
 class LabelerError(Exception):
@@ -11,3 +17,7 @@ class InputError(LabelerError):
 
 class ProjectError(LabelerError):
     """The project file cannot be opened or changed as asked."""
+
+
+class ValueInputError(InputError, ValueError):
+    """A value given to a numerics function is out of its range (also a ValueError)."""

@@ -53,7 +53,7 @@ from typing import Any, Callable, Iterable, Mapping
 import numpy as np
 import pandas as pd
 
-from labeler.errors import InputError
+from labeler.errors import InputError, ValueInputError
 from labeler.results import ExportReport
 
 MANIFEST_FORMAT = "labeler-export/1"
@@ -367,7 +367,7 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, fmt: str) -> str:
                                                          float_format="%.10g"))
     if fmt == "parquet":
         return write_atomic(path, lambda p: table.to_parquet(p, index=False, engine="pyarrow"))
-    raise ValueError(f"unknown format {fmt!r}; use one of {', '.join(FORMATS)}")
+    raise ValueInputError(f"unknown format {fmt!r}; use one of {', '.join(FORMATS)}")
 
 
 def write_json(obj: Any, path: str | os.PathLike) -> str:

@@ -50,6 +50,7 @@ import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
 
 from labeler.channels import parse_channel, triads
+from labeler.errors import ValueInputError
 
 FEATURE_SET_VERSION = "1"
 
@@ -312,19 +313,19 @@ def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: f
     """
     signal = np.asarray(signal)
     if signal.ndim != 2:
-        raise ValueError(f"signal must be 2-D (n_samples, n_channels), got shape {signal.shape}")
+        raise ValueInputError(f"signal must be 2-D (n_samples, n_channels), got shape {signal.shape}")
     channels = list(channels)
     if signal.shape[1] != len(channels):
-        raise ValueError(f"signal has {signal.shape[1]} columns but {len(channels)} channel names")
+        raise ValueInputError(f"signal has {signal.shape[1]} columns but {len(channels)} channel names")
     length = int(length)
     if length < MIN_LENGTH:
-        raise ValueError(f"window length must be at least {MIN_LENGTH} samples, got {length}")
+        raise ValueInputError(f"window length must be at least {MIN_LENGTH} samples, got {length}")
     if not (rate > 0) or not math.isfinite(rate):
-        raise ValueError(f"sampling rate must be a positive number, got {rate}")
+        raise ValueInputError(f"sampling rate must be a positive number, got {rate}")
     starts = np.asarray(starts, dtype=np.int64).reshape(-1)
     n_samples = signal.shape[0]
     if starts.size and (starts.min() < 0 or starts.max() + length > n_samples):
-        raise ValueError("window out of range: every start must satisfy "
+        raise ValueInputError("window out of range: every start must satisfy "
                          f"0 <= start <= n_samples - length ({n_samples} - {length})")
     names = feature_names(channels)
     X = np.empty((starts.size, len(names)), dtype=np.float32)

@@ -46,6 +46,8 @@ import pandas as pd
 from labeler.synthetic_parts import (_F32, _band_noise, _body_rates, _events, _mount_rotation, _rng,
                                      _telegraph, _to_body, _upsample)
 
+from labeler.errors import ValueInputError
+
 BOUT_ACTIVITIES: tuple[str, ...] = ("walking", "carrying", "climbing", "picking", "standing",
                                     "sitting")
 TRANSITION = "transition"
@@ -253,9 +255,9 @@ def simulate_recording(duration_s: float, *, seed: int, person: int = 0, rate: f
     Rows are missing inside the longer gaps; short dropouts are NaN runs.
     """
     if not (duration_s > 0):
-        raise ValueError(f"duration must be > 0 s, got {duration_s}")
+        raise ValueInputError(f"duration must be > 0 s, got {duration_s}")
     if not (10.0 <= rate <= 1000.0):
-        raise ValueError(f"rate must be within 10-1000 Hz, got {rate}")
+        raise ValueInputError(f"rate must be within 10-1000 Hz, got {rate}")
     rate = float(rate)
     p = _person(person)
     rng = _rng(seed, person, 1)

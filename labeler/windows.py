@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-from labeler.errors import InputError
+from labeler.errors import InputError, ValueInputError
 
 DEFAULT_LENGTH_S = 2.56
 DEFAULT_STEP_S = 1.28
@@ -54,13 +54,13 @@ def check_window_settings(length_s, step_s) -> tuple[float, float]:
 def window_samples(rate: float, length_s: float, step_s: float) -> tuple[int, int]:
     """Window length and step in samples (at least one sample each)."""
     if not (0 < rate < math.inf):
-        raise ValueError(f"sampling rate must be > 0, got {rate}")
+        raise ValueInputError(f"sampling rate must be > 0, got {rate}")
     if not (0 < length_s < math.inf):
-        raise ValueError(f"window length must be > 0 s and finite, got {length_s}")
+        raise ValueInputError(f"window length must be > 0 s and finite, got {length_s}")
     if not (0 < step_s < math.inf):
-        raise ValueError(f"window step must be > 0 s and finite, got {step_s}")
+        raise ValueInputError(f"window step must be > 0 s and finite, got {step_s}")
     if step_s > length_s:
-        raise ValueError(f"window step {step_s} s must not be longer than the window {length_s} s")
+        raise ValueInputError(f"window step {step_s} s must not be longer than the window {length_s} s")
     length = max(1, int(round(length_s * rate)))
     step = max(1, int(round(step_s * rate)))
     return length, step

@@ -17,31 +17,93 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import functools
 import json
 import os
 import random
 import sqlite3
 import time
+import urllib.parse
 import uuid
 from pathlib import Path
 from typing import Any, Iterable, Iterator, Sequence
 
 import sqlite_utils
 
+from labeler.errors import LabelerError  # a leaf module: storage imports nothing else of labeler
+
 APPLICATION_ID = 0x4C424C52  # marks a labeler project file (PRAGMA application_id)
 BUSY_TIMEOUT_S = 30.0
 
 
-class StoreError(Exception):
+class StoreError(LabelerError):
     """A project file cannot be used as asked; the message says which file and what to do."""
 
 
 class NotAProjectError(StoreError):
-    pass
+    """The file is not a labeler project, or is damaged past use."""
 
 
 class NewerSchemaError(StoreError):
-    pass
+    """The file was written by a newer labeler."""
+
+
+class BusyError(StoreError):
+    """Another process held the write lock for longer than the retry bound."""
+
+
+class DiskFullError(StoreError):
+    """The disk (or the file's size limit) is full; the change was rolled back."""
+
+
+class ReadOnlyError(StoreError):
+    """The project file or its folder cannot be written."""
+
+
+def store_error(path: Path, exc: sqlite3.Error) -> StoreError:
+    """A one-line StoreError, naming the file and what to do, for an error SQLite raised.
+
+    Every write runs in one transaction, so whatever failed was rolled back: the messages say
+    nothing was written of the change.
+    """
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    text = str(exc)
+    if name.startswith("SQLITE_FULL") or "full" in text:
+        return DiskFullError(f"{path}: the disk is full; nothing of this change was written; free "
+                             "some space, then try again")
+    if name.startswith("SQLITE_READONLY") or "readonly" in text:
+        return ReadOnlyError(f"{path}: the project file or its folder is read-only; nothing was "
+                             "written; make both writable, then try again")
+    if name.startswith(("SQLITE_BUSY", "SQLITE_LOCKED")) or "locked" in text:
+        return BusyError(f"{path}: the project file stayed busy ({text}); another process holds "
+                         "it; try again")
+    if name.startswith(("SQLITE_CORRUPT", "SQLITE_NOTADB")) or "malformed" in text:
+        return NotAProjectError(f"{path}: the project file is damaged ({text}); restore it from a "
+                                "backup")
+    if name.startswith("SQLITE_CANTOPEN") or "unable to open" in text:
+        return StoreError(f"{path}: cannot open the project file or make its -wal and -shm files "
+                          f"beside it ({text}); check that the file and its folder exist and "
+                          "that the folder is writable")
+    if name.startswith("SQLITE_IOERR"):
+        return StoreError(f"{path}: the disk refused a read or write ({text}); nothing of this "
+                          "change was written; check the disk and the file, then try again")
+    if isinstance(exc, sqlite3.IntegrityError):
+        return StoreError(f"{path}: the change was refused by the project file's checks ({text}); "
+                          "nothing of it was written")
+    if isinstance(exc, sqlite3.ProgrammingError) and "closed" in text:
+        return StoreError(f"{path}: the project is closed; open it again")
+    return StoreError(f"{path}: the project file could not be used ({text})")
+
+
+def _raising_store_errors(method):
+    """Wrap a Store method so that SQLite's errors leave it as :class:`StoreError`."""
+    @functools.wraps(method)
+    def call(self, *args, **kwargs):
+        try:
+            return method(self, *args, **kwargs)
+        except sqlite3.Error as exc:
+            raise store_error(self.path, exc) from exc
+    return call
 
 
 def utc_now() -> str:
@@ -183,7 +245,10 @@ class Store:
         if not path.parent.exists():
             raise StoreError(f"{path}: folder {path.parent} does not exist; create it first")
         tmp = path.with_name(f".{path.name}.{uuid.uuid4().hex[:8]}.tmp")
-        conn = cls._connect(tmp)
+        try:
+            conn = cls._connect(tmp)
+        except sqlite3.Error as exc:
+            raise store_error(path, exc) from exc
         try:
             conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
             db = sqlite_utils.Database(conn)
@@ -202,11 +267,13 @@ class Store:
             conn.execute("PRAGMA journal_mode = WAL")
             conn.close()
             os.replace(tmp, path)  # the project appears whole or not at all
-        except BaseException:
+        except BaseException as exc:
             conn.close()
             for p in (tmp, Path(f"{tmp}-wal"), Path(f"{tmp}-shm")):
                 with contextlib.suppress(FileNotFoundError):
                     p.unlink()
+            if isinstance(exc, sqlite3.Error):
+                raise store_error(path, exc) from exc
             raise
         return cls.open(path)
 
@@ -218,14 +285,26 @@ class Store:
         if path.is_dir():
             raise NotAProjectError(f"{path}: is a folder, not a project file; give the .labeler file")
         writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
-        if readonly and not writable:
-            conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
-                                   isolation_level=None, check_same_thread=False)
-        else:
-            # a read-only use of a writable file still opens it read-write, with writes refused
-            # (query_only): so the connection removes the -wal it creates when it closes, and a
-            # refused file is left exactly as it was
-            conn = cls._connect(path)
+        if not writable and not readonly:
+            raise ReadOnlyError(
+                f"{path}: the project file or its folder is read-only (labeler writes the file "
+                "and keeps its -wal and -shm files beside it); nothing was written; make both "
+                "writable, or copy the project to a writable folder")
+        try:
+            if not writable:
+                # without a -wal to share, a folder no one here can write holds a file no one
+                # here changes: read it as it is (SQLite cannot make the -shm a reader needs)
+                immutable = "" if Path(f"{path}-wal").exists() else "&immutable=1"
+                conn = sqlite3.connect(f"file:{urllib.parse.quote(str(path))}?mode=ro{immutable}",
+                                       uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                                       check_same_thread=False)
+            else:
+                # a read-only use of a writable file still opens it read-write, with writes
+                # refused (query_only): so the connection removes the -wal it creates when it
+                # closes, and a refused file is left exactly as it was
+                conn = cls._connect(path)
+        except sqlite3.Error as exc:
+            raise store_error(path, exc) from exc
         store = cls(path, conn)
         store._readonly = readonly
         try:
@@ -240,10 +319,9 @@ class Store:
             conn.execute("CREATE TEMP TABLE IF NOT EXISTS touched (window_id INTEGER PRIMARY KEY)")
             if readonly:
                 conn.execute("PRAGMA query_only = ON")
-        except sqlite3.DatabaseError as exc:
+        except sqlite3.Error as exc:
             conn.close()
-            raise NotAProjectError(
-                f"{path}: the project file is damaged ({exc}); restore it from a backup") from exc
+            raise store_error(path, exc) from exc
         except BaseException:
             conn.close()
             raise
@@ -348,8 +426,10 @@ class Store:
                     break
                 except sqlite3.OperationalError as exc:
                     busy = "locked" in str(exc) or "busy" in str(exc)
-                    if not busy or time.perf_counter() >= deadline:
-                        raise StoreError(
+                    if not busy:
+                        raise store_error(self.path, exc) from exc
+                    if time.perf_counter() >= deadline:
+                        raise BusyError(
                             f"{self.path}: the project file stayed busy ({exc}); another process "
                             "holds it; try again") from exc
                     self.lock_stats["retries"] += 1
@@ -365,18 +445,24 @@ class Store:
         self._depth = 1
         try:
             yield
-        except BaseException:
+        except BaseException as exc:
             self._depth = 0
-            if self.conn.in_transaction:  # SQLite may have rolled back already (e.g. disk full)
-                self.conn.execute("ROLLBACK")
+            self._roll_back()
+            if isinstance(exc, sqlite3.Error):
+                raise store_error(self.path, exc) from exc
             raise
         self._depth = 0
         try:
             self.conn.execute("COMMIT")
-        except BaseException:
-            if self.conn.in_transaction:  # a failed COMMIT leaves the transaction open: undo it
+        except sqlite3.Error as exc:
+            self._roll_back()  # a failed COMMIT leaves the transaction open: undo it
+            raise store_error(self.path, exc) from exc
+
+    def _roll_back(self) -> None:
+        """Roll back the open transaction, if SQLite has not already (e.g. on a full disk)."""
+        if self.conn.in_transaction:
+            with contextlib.suppress(sqlite3.Error):
                 self.conn.execute("ROLLBACK")
-            raise
 
     # ------------------------------------------------------------------ meta
     def meta(self) -> dict[str, str]:
@@ -737,6 +823,15 @@ class Store:
             with contextlib.suppress(FileNotFoundError):
                 tmp.unlink()
             raise
+
+
+# Every method of Store raises StoreError, never sqlite3's errors (atomic() converts its own; the
+# constructors convert theirs while opening).
+for _name, _member in list(vars(Store).items()):
+    if (callable(_member) and not _name.startswith("__") and _name not in ("atomic", "_roll_back")
+            and not isinstance(_member, (staticmethod, classmethod))):
+        setattr(Store, _name, _raising_store_errors(_member))
+del _name, _member
 
 
 def replay_events(conn: sqlite3.Connection) -> tuple[dict[tuple[int, str], int], dict[int, int]]:

@@ -117,8 +117,9 @@ def test_batches_replay_and_current_label_rule(store):
 def test_failed_batch_leaves_nothing(store):
     _add_recording(store)
     c1 = store.add_class("walking", "#E69F00", "ann")
-    with pytest.raises(sqlite3.IntegrityError):
+    with pytest.raises(StoreError, match="refused by the project file's checks") as info:
         store.apply_batch("ann", "confirm", "cli", [(1, c1), (2, 999)])  # unknown class
+    assert isinstance(info.value.__cause__, sqlite3.IntegrityError)
     assert store.events() == [] and store.batches() == [] and store.current_labels() == []
 
 
