@@ -11,6 +11,9 @@ moment leaves only whole lines behind (a cut last line is ignored by the reader 
     python writer.py reader PROJECT STOPFILE               read transactions until STOPFILE exists
     python writer.py other PROJECT STOPFILE                another kind of write until STOPFILE exists
     python writer.py slowread PROJECT STOPFILE             long read transactions until STOPFILE exists
+    python writer.py app PROJECT SEED N ANNOTATOR          the app's document (page connection and
+                                                           proposal worker) confirms N picks (0:
+                                                           until killed), one "ack" each
     python writer.py holder PROJECT SEED                   hold the file with two connections (as the
                                                            app: the page's and the proposal worker's);
                                                            per "confirm N" line on stdin confirm N
@@ -173,6 +176,41 @@ def other(project: str, stopfile: str) -> None:
     p.close()
 
 
+def app_loop(project: str, seed: int, n: int, annotator: str) -> None:
+    """The app's own document, driven as a person would: pick windows on the map, press a class
+    key. A batch is acknowledged once the page shows it (the key's callback returned)."""
+    from bokeh.document import Document
+
+    from labeler.app.document import build_document
+
+    rng = np.random.default_rng(seed)
+    app = build_document(Document(), project, annotator)
+    ids = {str(name): int(i) for i, name in zip(app.project.classes()["id"],
+                                                 app.project.classes()["name"])}
+    emit({"ready": os.getpid()})
+    done = 0
+    while n == 0 or done < n:
+        s = app.state
+        codes = s.active_codes()
+        rows = np.sort(rng.choice(s.n, size=int(rng.integers(1, 20)), replace=False))
+        key = int(rng.integers(1, min(9, len(codes)) + 1))
+        before = s.last_batch
+        app.select_map(rows)
+        app.press(str(key))
+        if s.last_batch is before or s.last_batch is None:
+            emit({"refused": app.message})
+            continue
+        cid = ids[s.class_names[codes[key - 1]]]
+        emit({"ack": s.last_batch.batch_id, "action": "confirm",
+              "events": [[int(w), cid] for w in sorted(s.ids[rows].tolist())]})
+        done += 1
+        while app._pending:  # what the proposal worker handed back, as the next tick would
+            app._pending.pop(0)()
+    app.drain(120)
+    emit({"done": done})
+    app.close()
+
+
 def holder(project: str, seed: int) -> None:
     """Two connections in one process, as the app holds them, confirming when told to."""
     from labeler.project import Project
@@ -213,6 +251,8 @@ def main(argv: list[str]) -> None:
             reader(project, argv[2])
         elif mode == "slowread":
             reader(project, argv[2], hold_s=0.3)
+        elif mode == "app":
+            app_loop(project, int(argv[2]), int(argv[3]), argv[4])
         elif mode == "holder":
             holder(project, int(argv[2]))
         elif mode == "other":
