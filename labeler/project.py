@@ -169,6 +169,11 @@ class Project:
         return self._maps.compute(method, progress=progress, random_state=random_state,
                                   n_jobs=n_jobs, **params)
 
+    def change_mark(self) -> tuple[int, ...]:
+        """A cheap mark that differs from an earlier one exactly when labels, classes or recordings
+        changed since, in this process or another (an open page polls it every few seconds)."""
+        return self.store.change_mark()
+
     def map_run_id(self) -> int | None:
         """Id of the run that made the latest map, or None when there is no map yet."""
         return self._maps.run_id()

@@ -788,6 +788,17 @@ class Store:
         return [r[0] for r in self.conn.execute(
             "SELECT DISTINCT window_id FROM audits ORDER BY window_id")]
 
+    def change_mark(self) -> tuple[int, int, int, int]:
+        """A cheap mark of what anyone may have changed: (newest label event id, newest class change
+        id, newest recording id, number of recordings). It differs from an earlier mark exactly
+        when labels, classes or recordings changed since, whichever process changed them."""
+        row = self.conn.execute(
+            "SELECT (SELECT coalesce(max(id), 0) FROM events), "
+            "(SELECT coalesce(max(id), 0) FROM class_log), "
+            "(SELECT coalesce(max(id), 0) FROM recordings), (SELECT count(*) FROM recordings)"
+        ).fetchone()
+        return tuple(int(v) for v in row)
+
     def last_event_id(self) -> int:
         """Id of the newest label event (0 before the first); grows with every change of a label."""
         return int(self.conn.execute("SELECT coalesce(max(id), 0) FROM events").fetchone()[0])

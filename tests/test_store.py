@@ -221,3 +221,21 @@ def test_events_take_keyword_filters(store):
     assert store.events(source="map", annotator="ann") == []
     first = store.events()[0]["at"]
     assert len(store.events(since=first)) == 3 and len(store.events(until=first)) >= 2
+
+
+def test_change_mark_moves_with_changes_made_through_another_connection(store):
+    _add_recording(store)
+    other = Store.open(store.path)
+    try:
+        mark = store.change_mark()
+        assert store.change_mark() == mark                     # nothing changed: same mark
+        c1 = other.add_class("walking", "#E69F00", "b")
+        assert store.change_mark() != mark
+        mark = store.change_mark()
+        other.apply_batch("b", "confirm", "cli", [(1, c1)])
+        assert store.change_mark()[0] > mark[0] and store.change_mark()[1:] == mark[1:]
+        mark = store.change_mark()
+        other.put_blob("proposals/x", b"1")                    # not a label, class or recording
+        assert store.change_mark() == mark
+    finally:
+        other.close()
