@@ -34,6 +34,7 @@ NONE_COLOUR = "#BDBDBD"          # windows with no label and no proposal
 MAP_W, MAP_H, SIDE_W = 720, 500, 420
 WIDE_W = MAP_W + SIDE_W + 20
 MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
+OTHERS_CHECK_MS = 2000           # how often an open page looks for changes made elsewhere
 CONTEXT_S = 4.0                  # seconds of signal shown either side of the picked window
 AXIS_COLOURS = ("#0072B2", "#D55E00", "#009E73")   # x, y, z (Okabe & Ito 2008 colours)
 COLOUR_MODES = ("label", "confidence", "support", "recording")
@@ -158,8 +159,10 @@ class LabelerApp:
         self._build()
         doc.title = f"labeler · {Path(str(project.path)).name}"
         self._map_run = project.map_run_id()
+        self._mark = project.change_mark()
         if getattr(doc, "session_context", None) is not None:
-            doc.add_periodic_callback(self.check_map, MAP_CHECK_MS)
+            doc.add_periodic_callback(lambda: self._safely(self.check_map), MAP_CHECK_MS)
+            doc.add_periodic_callback(lambda: self._safely(self.check_others), OTHERS_CHECK_MS)
         if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
             # page has loaded, so a page that reloads itself (see _DRAW_PROBE) costs no run
@@ -827,6 +830,9 @@ class LabelerApp:
             return
         self._say("")
         self.new_class.value = ""
+        self._redraw_classes()
+
+    def _redraw_classes(self) -> None:
         self.classes_src.data = self._classes_data()
         args = self._class_mapper_args()
         self.class_mapper.update(palette=args["palette"], high=args["high"])
@@ -863,6 +869,47 @@ class LabelerApp:
         colour = "#555555" if info else "#8a1c00"
         self.message_div.text = (f"<span style='color:{colour}'>{html.escape(text)}</span>"
                                  if text else "")
+
+    def check_others(self) -> bool:
+        """Show what changed in the project file since the last look, in another process (a
+        confirmation from the command line, an import, another annotator's page) or this one; True
+        when the page changed. Cheap when nothing did: one query of the change mark."""
+        if self.closed:
+            return False
+        mark = self.project.change_mark()
+        if mark == self._mark:
+            return False
+        old, self._mark = self._mark, mark
+        s = self.state
+        news = []
+        if mark[1] != old[1]:
+            before = (s.class_names, s.class_colours, s.class_active)
+            s.reload_classes()
+            if (s.class_names, s.class_colours, s.class_active) != before:
+                self._redraw_classes()
+                news.append("the classes changed")
+        changed = s.sync_labels()
+        if changed.size:
+            self._send_rows(changed)
+            self._refresh_counts()
+            self._refresh_queue()
+            if self.focus_row is not None:
+                self._retitle_signal(self.focus_row)
+            self.request_proposals()
+            news.append(f"{changed.size} window label{'s' if changed.size != 1 else ''} changed")
+        if mark[2:] != old[2:]:
+            news.append("recordings were added or removed: reload the page to see them")
+        if news:
+            self._say("elsewhere: " + "; ".join(news), info=True)
+        return bool(news)
+
+    def _safely(self, look: Callable[[], bool]) -> None:
+        """A timer of the page: a file that cannot be read now is one line in the page, not a
+        traceback on the server (the next look tries again)."""
+        try:
+            look()
+        except LabelerError as exc:
+            self._say(str(exc))
 
     def check_map(self) -> bool:
         """Show a newer map when one has been stored (the t-SNE made in the background, or
