@@ -9,9 +9,11 @@ brackets, for example ``wrist_acc_x``, ``hip_gyr_z[rad/s]`` or ``ankle_acc_y[m/s
 - ``axis``: ``x``, ``y`` or ``z`` in the sensor's own frame.
 
 Units are converted on reading to one unit per kind: acceleration in g (standard gravity,
-9.80665 m/s²), angular rate in deg/s. Accepted units: acceleration ``g``, ``m/s2`` (also ``m/s^2``,
-``m/s²``); angular rate ``deg/s`` (also ``dps``), ``rad/s``. A column without a unit takes the unit
-given on the command line (``--acc-unit`` / ``--gyr-unit``), g and deg/s by default.
+9.80665 m/s²), angular rate in deg/s. Accepted units: acceleration ``g``, ``mg``, ``m/s2`` (also
+``m/s^2``, ``m/s²``); angular rate ``deg/s`` (also ``dps``), ``rad/s``. A column without a unit takes
+the unit given on the command line (``--acc-unit`` / ``--gyr-unit``); without one, acceleration is
+read as g unless its level at rest says m/s² or mg (see :mod:`labeler.recordings`), angular rate as
+deg/s.
 """
 
 from __future__ import annotations
@@ -29,7 +31,7 @@ CANONICAL_UNITS = {"acc": "g", "gyr": "deg/s"}
 
 # factor that turns a value in the given unit into the canonical unit of its kind
 UNIT_FACTORS = {
-    "acc": {"g": 1.0, "m/s2": 1.0 / STANDARD_GRAVITY, "m/s^2": 1.0 / STANDARD_GRAVITY,
+    "acc": {"g": 1.0, "mg": 1e-3, "m/s2": 1.0 / STANDARD_GRAVITY, "m/s^2": 1.0 / STANDARD_GRAVITY,
             "m/s²": 1.0 / STANDARD_GRAVITY},
     "gyr": {"deg/s": 1.0, "dps": 1.0, "rad/s": 180.0 / math.pi},
 }

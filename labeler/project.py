@@ -109,27 +109,28 @@ class Project:
         return self._catalog.feature_set_version
 
     # ------------------------------------------------------------------ recordings
-    def add_recordings(self, paths: Sequence[str | os.PathLike], *, rate: float | None = None,
-                       time_column: str | None = None, acc_unit: str = "g",
-                       gyr_unit: str = "deg/s", progress: Progress | None = None
-                       ) -> list[AddedRecording]:
+    def add_recordings(self, paths: Sequence[str | os.PathLike], *,
+                       progress: Progress | None = None, dry_run: bool = False,
+                       **read_options) -> list[AddedRecording]:
         """Read, check and add recording files; all of them or none (one transaction).
 
-        Every file is read and checked before anything is written, so a bad file leaves the project
-        as it was.
+        ``read_options`` go to :func:`labeler.recordings.read_recording` (rate, time_column,
+        time_unit, time_format, tz, columns, skip_rows, acc_unit, gyr_unit; see
+        :class:`labeler.profiles.ReadOptions`). Every file is read and checked before anything is
+        written, so a bad file leaves the project as it was; ``dry_run`` stops there.
         """
-        recs = self._catalog.read_files(paths, rate=rate, time_column=time_column,
-                                        acc_unit=acc_unit, gyr_unit=gyr_unit, progress=progress)
-        return self._add(recs, progress, 0.5)
+        recs = self._catalog.read_files(paths, progress=progress, **read_options)
+        return self._add(recs, progress, 0.5, dry_run)
 
     def add_recording_data(self, recordings: Sequence[Recording], *,
                            progress: Progress | None = None) -> list[AddedRecording]:
         """Add already-read recordings (from :func:`read_recording` or a simulator)."""
         return self._add(recordings, progress, 0.0)
 
-    def _add(self, recordings, progress, offset) -> list[AddedRecording]:
-        added = self._catalog.add(recordings, progress=progress, offset=offset)
-        self._maps.place_new([a.id for a in added])  # a project with a map keeps every window on it
+    def _add(self, recordings, progress, offset, dry_run=False) -> list[AddedRecording]:
+        added = self._catalog.add(recordings, progress=progress, offset=offset, dry_run=dry_run)
+        if not dry_run:  # a project with a map keeps every window on it
+            self._maps.place_new([a.id for a in added])
         return added
 
     def recordings(self) -> pd.DataFrame:

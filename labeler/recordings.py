@@ -1,39 +1,48 @@
-"""Reading recordings: CSV or Parquet files of body-worn motion sensors.
+"""Reading recordings: CSV (plain or gzip-compressed) or Parquet files of body-worn motion sensors.
 
 A recording file has one row per sample and one column per sensor channel, named by the convention of
-:mod:`labeler.channels` (``wrist_acc_x``, ``hip_gyr_z[rad/s]`` ...). Time is either
+:mod:`labeler.channels` (``wrist_acc_x``, ``hip_gyr_z[rad/s]`` ...) or mapped to it by a column
+mapping (``columns``: file column -> channel; see :mod:`labeler.profiles`). Time is either
 
 - a column named ``time`` (or ``t``, ``timestamp``, or the one given with ``time_column``), holding
-  seconds (any origin) or ISO-8601 timestamps (``2026-09-14T06:30:00.020Z``), or
+  numbers (seconds, or the unit given as ``time_unit``; Unix time in ms, us or ns is recognised) or
+  clock times (ISO-8601, or the layout given as ``time_format``; a zone-less clock needs ``tz``), see
+  :mod:`labeler.timecolumn`, or
 - absent, in which case the sampling rate must be given (``rate``) and samples are taken as uniform.
 
 What is normal in real recordings is repaired, and each repair is noted in ``Recording.repairs``:
 jittered timestamps are resampled onto a uniform grid (linear interpolation), short runs of missing
 values (up to ``max_fill_s``, default 0.25 s) are interpolated, longer runs and pauses in time longer
 than ``max_gap_s`` (default 1 s) are kept as gaps that no window crosses; a byte-order mark is dropped;
-semicolon- or tab-separated files are read as such; columns that are neither time nor sensor are
-ignored. What cannot be repaired raises :class:`labeler.errors.InputError` with one line that names
-the file, the row or column and the fix, before anything is written.
+semicolon- or tab-separated files are read as such; lines before the column names (a device's
+preamble) are skipped; columns that are neither time nor sensor are ignored. What reading found
+rather than was told is noted in ``Recording.notes``: Unix time, a preamble, an acceleration unit
+read from the level at rest (:mod:`labeler.gravity`). What cannot be repaired raises
+:class:`labeler.errors.InputError` with one line that names the file, the row or column and the fix,
+before anything is written.
 """
 
 from __future__ import annotations
 
 import csv
+import gzip
 import hashlib
-import io
 import math
 import os
 import re
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from labeler.channels import CANONICAL_UNITS, KINDS, UNIT_FACTORS, parse_channel
+from labeler.channels import CANONICAL_UNITS, UNIT_FACTORS, parse_channel, triads
 from labeler.errors import InputError
+from labeler.gravity import judge_level, rest_level
+from labeler.timecolumn import read_time_column
 
-TIME_COLUMNS = ("time", "t", "timestamp", "time_s", "seconds")
+TIME_COLUMNS = ("time", "t", "timestamp", "time_s", "seconds", "datetime", "date_time")
 DEFAULT_MAX_GAP_S = 1.0
 DEFAULT_MAX_FILL_S = 0.25
 # beyond these, a value is not a body-worn motion sensor reading in the stated unit; most likely the
@@ -42,6 +51,8 @@ DEFAULT_MAX_FILL_S = 0.25
 ABSURD = {"acc": 400.0, "gyr": 40000.0}
 MIN_RATE, MAX_RATE = 1.0, 10000.0
 MAX_GRID_SAMPLES = 5_000_000  # a grid may exceed 10x the file's samples up to this (28 h at 50 Hz)
+HEAD_BYTES = 1 << 16          # what is read to find the separator and the column names
+MAX_PREAMBLE_LINES = 50
 
 
 @dataclass
@@ -58,6 +69,10 @@ class Recording:
     valid: np.ndarray              # (n_samples,) bool, False inside gaps
     start_time: str | None = None  # ISO-8601 UTC of the first sample, when the file gave timestamps
     repairs: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)     # what was found rather than told
+    sources: dict[str, str] = field(default_factory=dict)  # channel -> the file's column
+    time_read: str = ""            # how the time was read (for a dry run)
+    found: dict = field(default_factory=dict)  # reading options found, not given (time_unit ...)
 
     @property
     def n_samples(self) -> int:
@@ -66,6 +81,10 @@ class Recording:
     @property
     def duration_s(self) -> float:
         return self.n_samples / self.rate
+
+    def gaps(self) -> list[tuple[float, float]]:
+        """(start s, length s) of every run of samples no window may use."""
+        return [(a / self.rate, (b - a) / self.rate) for a, b in _runs(~self.valid)]
 
 
 def file_hash(path: str | os.PathLike) -> str:
@@ -79,7 +98,8 @@ def file_hash(path: str | os.PathLike) -> str:
 def recording_name(path: str | os.PathLike) -> str:
     """A tidy name from a file name: the stem, odd characters replaced by '_'."""
     stem = Path(path).name
-    for suffix in (".csv.gz", ".csv", ".parquet", ".pq", ".tsv", ".txt"):
+    for suffix in (".csv.gz", ".tsv.gz", ".txt.gz", ".csv", ".parquet", ".pq", ".tsv", ".txt",
+                   ".gz"):
         if stem.lower().endswith(suffix):
             stem = stem[: -len(suffix)]
             break
@@ -88,49 +108,80 @@ def recording_name(path: str | os.PathLike) -> str:
 
 
 def read_recording(path: str | os.PathLike, *, rate: float | None = None,
-                   time_column: str | None = None, acc_unit: str = "g", gyr_unit: str = "deg/s",
+                   time_column: str | None = None, time_unit: str | None = None,
+                   time_format: str | None = None, tz: str | None = None,
+                   columns: dict[str, str] | None = None, skip_rows: int | None = None,
+                   acc_unit: str | None = None, gyr_unit: str | None = None,
                    max_gap_s: float = DEFAULT_MAX_GAP_S, max_fill_s: float = DEFAULT_MAX_FILL_S,
-                   name: str | None = None) -> Recording:
-    """Read, validate and repair one recording file. Raises InputError on what cannot be repaired."""
+                   name: str | None = None, options_origin: str = "--column") -> Recording:
+    """Read, validate and repair one recording file. Raises InputError on what cannot be repaired.
+
+    ``columns`` maps file columns to channel names; ``skip_rows`` lines before the column names are
+    skipped (None: found; see the module docstring for the rest).
+    """
     path = Path(path)
     where = str(path)
     if rate is not None and not (isinstance(rate, (int, float)) and math.isfinite(rate)
                                  and MIN_RATE <= rate <= MAX_RATE):
         raise InputError(f"{where}: sampling rate {rate} Hz is not usable; give --rate between "
                          f"{MIN_RATE:g} and {MAX_RATE:g} Hz")
-    if acc_unit not in UNIT_FACTORS["acc"]:
-        raise InputError(f"{where}: unknown acceleration unit {acc_unit!r}; use "
-                         + " or ".join(sorted(UNIT_FACTORS['acc'])))
-    if gyr_unit not in UNIT_FACTORS["gyr"]:
-        raise InputError(f"{where}: unknown angular-rate unit {gyr_unit!r}; use "
-                         + " or ".join(sorted(UNIT_FACTORS['gyr'])))
+    _check_units(where, acc_unit, gyr_unit)
     if not path.exists():
         raise InputError(f"{where}: no such file; check the path")
     if path.is_dir():
         raise InputError(f"{where}: is a folder; give recording files (CSV or Parquet)")
     repairs: list[str] = []
-    frame = _read_table(path, repairs)
+    notes: list[str] = []
+    known = set(columns or {}) | ({time_column} if time_column else set())
+    found: dict = {}
+    frame, first_row = _read_table(path, repairs, notes, skip_rows, known, found)
     return recording_from_frame(frame, where=where, content_hash=file_hash(path),
                                 name=name or recording_name(path), rate=rate,
-                                time_column=time_column, acc_unit=acc_unit, gyr_unit=gyr_unit,
-                                max_gap_s=max_gap_s, max_fill_s=max_fill_s, repairs=repairs)
+                                time_column=time_column, time_unit=time_unit,
+                                time_format=time_format, tz=tz, columns=columns,
+                                acc_unit=acc_unit, gyr_unit=gyr_unit, max_gap_s=max_gap_s,
+                                max_fill_s=max_fill_s, repairs=repairs, notes=notes,
+                                first_row=first_row, options_origin=options_origin, found=found)
 
 
-def _read_table(path: Path, repairs: list[str]) -> pd.DataFrame:
+def _check_units(where: str, acc_unit: str | None, gyr_unit: str | None) -> None:
+    if acc_unit is not None and acc_unit not in UNIT_FACTORS["acc"]:
+        raise InputError(f"{where}: unknown acceleration unit {acc_unit!r}; use "
+                         + " or ".join(sorted(UNIT_FACTORS['acc'])))
+    if gyr_unit is not None and gyr_unit not in UNIT_FACTORS["gyr"]:
+        raise InputError(f"{where}: unknown angular-rate unit {gyr_unit!r}; use "
+                         + " or ".join(sorted(UNIT_FACTORS['gyr'])))
+
+
+def _read_table(path: Path, repairs: list[str], notes: list[str], skip_rows: int | None,
+                known: set[str], found: dict) -> tuple[pd.DataFrame, int]:
+    """The file as a table, and the file line of its first row of values."""
     where = str(path)
     if path.stat().st_size == 0:
         raise InputError(f"{where}: the file is empty; export the recording again")
     with open(path, "rb") as fh:
-        head = fh.read(4096)
+        head = fh.read(HEAD_BYTES)
     is_parquet = head.startswith(b"PAR1") or path.suffix.lower() in (".parquet", ".pq")
     if is_parquet:
         try:
             import pyarrow.parquet as pq
 
-            return pq.read_table(path).to_pandas()
+            return pq.read_table(path).to_pandas(), 2
         except Exception as exc:  # pyarrow raises several types for damaged files
             raise InputError(f"{where}: not a readable Parquet file ({_short(exc)}); export it "
                              "again or give a CSV") from None
+    compression = None
+    if head.startswith(b"\x1f\x8b"):
+        compression = "gzip"
+        try:
+            with gzip.open(path, "rb") as fh:
+                head = fh.read(HEAD_BYTES)
+        except (OSError, EOFError, zlib.error) as exc:
+            raise InputError(f"{where}: a damaged gzip file ({_short(exc)}); compress or copy "
+                             "the recording again") from None
+        if not head:
+            raise InputError(f"{where}: the gzip file holds nothing; export the recording again")
+        repairs.append("read gzip-compressed text")
     if b"\x00" in head:
         raise InputError(f"{where}: binary content, not a CSV text file; give a CSV or Parquet file")
     try:
@@ -143,12 +194,26 @@ def _read_table(path: Path, repairs: list[str]) -> pd.DataFrame:
     if text_head.startswith("\ufeff"):
         repairs.append("dropped a byte-order mark")
         text_head = text_head[1:]
-    first = text_head.splitlines()[0] if text_head.strip() else ""
+    lines = text_head.splitlines()
+    complete = "\n" in text_head or "\r" in text_head
+    if skip_rows is None:
+        skip = _preamble_length(lines[:MAX_PREAMBLE_LINES], known)
+        if skip:
+            found["skip_rows"] = skip
+            notes.append(f"skipped {skip} line(s) before the column names on line {skip + 1} "
+                         f"(a preamble); say so with --skip-rows {skip}")
+    else:
+        skip = skip_rows
+        if skip >= len(lines) and complete:
+            raise InputError(f"{where}: --skip-rows {skip} skips every line of the file; give the "
+                             "number of lines before the column names")
+    first = lines[skip] if skip < len(lines) else ""
     if not first.strip():
-        raise InputError(f"{where}: the first line is empty; the first line must name the columns")
+        raise InputError(f"{where}: line {skip + 1} is empty; the first line must name the "
+                         "columns" + (" (after the skipped lines)" if skip else ""))
     sep = _sniff_separator(first)
     names = [c.strip() for c in next(csv.reader([first], delimiter=sep))]
-    if "\n" not in text_head and "\r" not in text_head:
+    if skip + 1 >= len(lines) and not complete:
         names = names[:-1]  # the header goes on past the first block; its last name may be cut
     seen: set[str] = set()
     for c in names:
@@ -162,7 +227,7 @@ def _read_table(path: Path, repairs: list[str]) -> pd.DataFrame:
         # numeric columns parse in C; a column with any non-number stays text and is checked
         # cell by cell in _numeric_column, which names the first bad row
         frame = pd.read_csv(path, sep=sep, encoding="utf-8-sig", skipinitialspace=True,
-                            low_memory=False)
+                            low_memory=False, skiprows=skip, compression=compression)
     except pd.errors.ParserError as exc:
         raise InputError(f"{where}: cannot be parsed as CSV ({_short(exc)}); check that every row "
                          "has as many fields as the header") from None
@@ -170,8 +235,35 @@ def _read_table(path: Path, repairs: list[str]) -> pd.DataFrame:
         raise InputError(f"{where}: not UTF-8 text; save the CSV as UTF-8") from None
     except pd.errors.EmptyDataError:
         raise InputError(f"{where}: the file holds no columns; export the recording again") from None
+    except (OSError, EOFError, zlib.error) as exc:  # a gzip stream cut short or damaged
+        raise InputError(f"{where}: a damaged gzip file ({_short(exc)}); compress or copy the "
+                         "recording again") from None
     frame.columns = [str(c).strip() for c in frame.columns]
-    return frame
+    return frame, skip + 2
+
+
+def _names_a_column(field_: str, known: set[str]) -> bool:
+    name = field_.strip().strip('"').strip()
+    if not name:
+        return False
+    if name in known or name.lower() in TIME_COLUMNS:
+        return True
+    try:
+        return parse_channel(name) is not None
+    except ValueError:
+        return True  # a malformed channel name is still a column name
+
+
+def _preamble_length(lines: list[str], known: set[str]) -> int:
+    """Lines before the first one that names a time or sensor column; 0 when the first does or
+    when no line does (then the first line is the header and the usual checks speak)."""
+    for k, line in enumerate(lines):
+        sep = _sniff_separator(line)
+        fields_ = next(csv.reader([line], delimiter=sep), []) if line.strip() else []
+        hits = sum(_names_a_column(f, known) for f in fields_)
+        if hits >= 1 and (len(fields_) >= 2 or hits == len(fields_)):
+            return k
+    return 0
 
 
 def _sniff_separator(header: str) -> str:
@@ -187,56 +279,79 @@ def _short(exc: BaseException) -> str:
 
 def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, name: str,
                          rate: float | None = None, time_column: str | None = None,
-                         acc_unit: str = "g", gyr_unit: str = "deg/s",
+                         time_unit: str | None = None, time_format: str | None = None,
+                         tz: str | None = None, columns: dict[str, str] | None = None,
+                         acc_unit: str | None = None, gyr_unit: str | None = None,
                          max_gap_s: float = DEFAULT_MAX_GAP_S,
                          max_fill_s: float = DEFAULT_MAX_FILL_S,
-                         repairs: list[str] | None = None) -> Recording:
-    """Validate and repair a table of samples (see the module docstring)."""
+                         repairs: list[str] | None = None, notes: list[str] | None = None,
+                         first_row: int = 2, options_origin: str = "--column",
+                         found: dict | None = None) -> Recording:
+    """Validate and repair a table of samples (see the module docstring). ``first_row`` is the
+    file line of the table's first row, for messages."""
     repairs = [] if repairs is None else repairs
-    columns = [str(c) for c in frame.columns]
-    if len(set(columns)) != len(columns):
-        dup = next(c for c in columns if columns.count(c) > 1)
+    notes = [] if notes is None else notes
+    found = {} if found is None else found
+    _check_units(where, acc_unit, gyr_unit)
+    columns_in = [str(c) for c in frame.columns]
+    if len(set(columns_in)) != len(columns_in):
+        dup = next(c for c in columns_in if columns_in.count(c) > 1)
         raise InputError(f"{where}: column {dup!r} appears twice; rename or drop one")
+    mapping = dict(columns or {})
+    for src in mapping:
+        if src not in columns_in:
+            raise InputError(f"{where}: no column {src!r} for the column mapping ({options_origin} "
+                             f"{src}={mapping[src]}); columns are " + ", ".join(columns_in[:12])
+                             + "; fix the mapping")
     # ---- which column is time, which are sensors
     tcol = None
     if time_column is not None:
-        if time_column not in columns:
-            raise InputError(f"{where}: no column {time_column!r}; columns are "
-                             + ", ".join(columns[:12]))
+        if time_column not in columns_in:
+            raise InputError(f"{where}: no column {time_column!r} (--time-column); columns are "
+                             + ", ".join(columns_in[:12]))
         tcol = time_column
     else:
-        for c in columns:
-            if c.strip().lower() in TIME_COLUMNS:
+        for c in columns_in:
+            if c.strip().lower() in TIME_COLUMNS and c not in mapping:
                 tcol = c
                 break
     sensor_cols: list[str] = []
     channels: list[str] = []
     units: dict[str, str] = {}
+    stated: dict[str, str | None] = {}   # channel -> who stated its unit (None: assumed)
     factors: list[float] = []
     kinds: list[str] = []
+    sources: dict[str, str] = {}
     ignored = []
-    for c in columns:
+    for c in columns_in:
         if c == tcol:
             continue
+        spec = mapping.get(c, c)
         try:
-            ch = parse_channel(c)
+            ch = parse_channel(spec)
         except ValueError as exc:
-            raise InputError(f"{where}: column {c!r}: {exc}") from None
+            label = f"column {c!r}" if spec == c else f"column {c!r} ({options_origin} {c}={spec})"
+            raise InputError(f"{where}: {label}: {exc}") from None
         if ch is None:
             ignored.append(c)
             continue
         if ch.name in channels:
             raise InputError(f"{where}: column {c!r} repeats channel {ch.name}; keep one")
-        unit = ch.unit or (acc_unit if ch.kind == "acc" else gyr_unit)
+        given = acc_unit if ch.kind == "acc" else gyr_unit
+        unit = ch.unit or given or CANONICAL_UNITS[ch.kind]
+        stated[ch.name] = ("column" if ch.unit else
+                           ("option" if given is not None else None))
         sensor_cols.append(c)
         channels.append(ch.name)
+        sources[ch.name] = c
         units[ch.name] = unit
         factors.append(UNIT_FACTORS[ch.kind][unit])
         kinds.append(ch.kind)
     if not channels:
-        shown = ", ".join(repr(c) for c in columns[:8]) or "none"
+        shown = ", ".join(repr(c) for c in columns_in[:8]) or "none"
         raise InputError(f"{where}: no sensor channel among the columns ({shown}); name them "
-                         "<site>_<kind>_<axis>, e.g. wrist_acc_x or hip_gyr_z")
+                         "<site>_<kind>_<axis>, e.g. wrist_acc_x or hip_gyr_z, or map them with "
+                         "--column FILE_COLUMN=CHANNEL")
     if ignored:
         repairs.append("ignored columns that are neither time nor sensor: " + ", ".join(ignored[:10]))
     if len(frame) == 0:
@@ -245,20 +360,22 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     # ---- values
     values = np.empty((len(frame), len(channels)), dtype=np.float64)
     for j, c in enumerate(sensor_cols):
-        values[:, j] = _numeric_column(frame[c], where, c)
+        values[:, j] = _numeric_column(frame[c], where, c, first_row)
+    for j, c in enumerate(channels):
+        if np.isnan(values[:, j]).all():
+            raise InputError(f"{where}: column {sensor_cols[j]!r} holds no values; drop the column")
+    _check_gravity(values, channels, sensor_cols, units, factors, stated, where, notes, found)
     for j, c in enumerate(channels):
         col = values[:, j]
-        if np.isnan(col).all():
-            raise InputError(f"{where}: column {sensor_cols[j]!r} holds no values; drop the column")
         finite = col[~np.isnan(col)]
         bad = np.flatnonzero(np.abs(finite) > ABSURD[kinds[j]] / factors[j])
         if bad.size or np.isinf(finite).any():
             row = int(np.flatnonzero(~np.isnan(col))[bad[0] if bad.size else
                                                      np.flatnonzero(np.isinf(finite))[0]])
             raise InputError(
-                f"{where}: row {row + 2}, column {sensor_cols[j]!r}: value {col[row]:g} is beyond "
-                f"any body-worn sensor in {units[c]}; check the column's unit (e.g. "
-                f"{sensor_cols[j].split('[')[0]}[{'m/s2' if kinds[j] == 'acc' else 'rad/s'}]) or the data")
+                f"{where}: row {row + first_row}, column {sensor_cols[j]!r}: value {col[row]:g} is "
+                f"beyond any body-worn sensor in {units[c]}; check the column's unit (e.g. "
+                f"{channels[j]}[{'m/s2' if kinds[j] == 'acc' else 'rad/s'}]) or the data")
     values *= np.asarray(factors)[None, :]
     converted = sorted({units[c] for c in channels} - set(CANONICAL_UNITS.values()))
     if converted:
@@ -268,38 +385,46 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     start_time = None
     if tcol is None:
         if rate is None:
-            raise InputError(f"{where}: no time column; add a 'time' column (seconds or ISO-8601) "
-                             "or give the sampling rate with --rate HZ")
+            raise InputError(f"{where}: no time column; add a 'time' column (seconds or ISO-8601), "
+                             "name it with --time-column, or give the sampling rate with --rate HZ")
         t = np.arange(len(frame), dtype=np.float64) / rate
+        time_read = f"no time column: samples every 1/{rate:g} s (--rate)"
     else:
-        t, start_time = _time_column(frame[tcol], where, tcol)
+        tc = read_time_column(frame[tcol], where=where, name=tcol, first_row=first_row,
+                              unit=time_unit, time_format=time_format, tz=tz, rate=rate)
+        t, start_time, time_read = tc.t, tc.start_time, tc.described
+        if tc.note:
+            notes.append(tc.note)
+        if tc.unit_found:
+            found["time_unit"] = tc.unit_found
         infinite = np.flatnonzero(~np.isfinite(t))
         if infinite.size:
             r = int(infinite[0])
-            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: time {t[r]:g} is not a finite "
-                             "number of seconds; fix the cell")
+            raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: time {t[r]:g} is not a "
+                             "finite number of seconds; fix the cell")
     if len(t) >= 2:
         dt = np.diff(t)
         back = np.flatnonzero(dt < 0)
         if back.size:
             r = int(back[0]) + 1
-            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: time goes backwards "
-                             f"({t[r - 1]:.6g} then {t[r]:.6g}); sort the rows by time or fix the clock")
+            raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: time goes backwards "
+                             f"({t[r - 1]:.6g} then {t[r]:.6g} s from the first sample); sort the "
+                             "rows by time or fix the clock")
         dup = np.flatnonzero(dt == 0)
         if dup.size:
             r = int(dup[0]) + 1
-            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: duplicate timestamp "
-                             f"{t[r]:.6g}; remove repeated rows")
+            raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: duplicate timestamp "
+                             f"{_time_cell(frame, tcol, r)}; remove repeated rows")
         nominal_dt = 1.0 / rate if rate is not None else float(np.median(dt))
         if not (nominal_dt > 0 and MIN_RATE <= 1.0 / nominal_dt <= MAX_RATE):
             raise InputError(f"{where}: column {tcol!r}: median time step {nominal_dt:.6g} s is "
-                             "not a sampling rate; give the time in seconds, or --rate HZ")
+                             "not a sampling rate; check the time column or --time-unit")
         small = np.flatnonzero(dt < 0.25 * nominal_dt)
         if small.size:
             r = int(small[0]) + 1
-            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: timestamps {dt[small[0]]:.3g} s "
-                             f"apart where samples come every {nominal_dt:.3g} s; remove duplicated "
-                             "rows or give the right --rate")
+            raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: timestamps "
+                             f"{dt[small[0]]:.3g} s apart where samples come every {nominal_dt:.3g} "
+                             "s; remove duplicated rows or give the right --rate")
         fs = 1.0 / nominal_dt
         if rate is None:
             fs = _tidy_rate(fs)
@@ -308,7 +433,7 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         n_grid = (t[-1] - t[0]) * fs + 1
         if n_grid > max(10 * len(t), MAX_GRID_SAMPLES):
             r = int(np.argmax(dt)) + 1
-            raise InputError(f"{where}: row {r + 2}, column {tcol!r}: time jumps from "
+            raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: time jumps from "
                              f"{t[r - 1]:.6g} to {t[r]:.6g} s, a pause of {dt[r - 1]:.3g} s in "
                              f"{len(t)} samples; fix the clock or split the recording there")
     else:
@@ -320,10 +445,67 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         start_time = _shift_iso(start_time, 0.0)
     return Recording(name=name, source_path=where, content_hash=content_hash, rate=float(fs),
                      channels=channels, units=units, signal=signal.astype(np.float32),
-                     valid=valid, start_time=start_time, repairs=repairs)
+                     valid=valid, start_time=start_time, repairs=repairs, notes=notes,
+                     sources=sources, time_read=time_read,
+                     found={k: v for k, v in found.items() if v is not None})
 
 
-def _numeric_column(col: pd.Series, where: str, name: str) -> np.ndarray:
+def _time_cell(frame: pd.DataFrame, tcol: str, r: int) -> str:
+    value = frame[tcol].iloc[r]
+    return f"{value:g}" if isinstance(value, (int, float, np.integer, np.floating)) else str(value)
+
+
+def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[str],
+                   units: dict[str, str], factors: list[float], stated: dict[str, str | None],
+                   where: str, notes: list[str], found: dict) -> None:
+    """At rest |acc| is 1 g: convert a triad whose assumed unit is wrong (with a note), refuse one
+    whose stated unit is (see :mod:`labeler.gravity`). Changes ``units`` and ``factors``."""
+    assumed_units = set()
+    for site, kind, idx in triads(channels):
+        if kind != "acc":
+            continue
+        cols = list(idx)
+        mag = np.sqrt(sum((values[:, j] * factors[j]) ** 2 for j in cols))
+        level = rest_level(mag)
+        if level is None:
+            continue
+        unit = units[channels[cols[0]]]
+        who = [stated[channels[j]] for j in cols]
+        verdict = judge_level(level, unit, stated=any(w is not None for w in who))
+        names = "/".join(sensor_cols[j] for j in cols)
+        if all(w is None for w in who):
+            assumed_units.add(verdict.unit)
+        if verdict.action == "ok":
+            continue
+        if verdict.action == "convert":
+            for j in cols:
+                units[channels[j]] = verdict.unit
+                factors[j] = UNIT_FACTORS["acc"][verdict.unit]
+            notes.append(f"read {names} as {verdict.unit}: at rest |acc| is {level:.3g} g if read "
+                         f"as {unit}, {verdict.fitted_level_g:.3g} g as {verdict.unit}; say so with "
+                         f"--acc-unit {verdict.unit} to silence this")
+        elif verdict.action == "note":
+            if level < 1.0:
+                notes.append(f"{names}: at rest |acc| is {level:.2g} g, not 1 g: gravity seems "
+                             f"removed by the device, so the unit {unit} cannot be checked")
+            else:
+                notes.append(f"{names}: at rest |acc| is {level:.3g} g, not 1 g; kept in the "
+                             f"stated unit {unit}")
+        elif verdict.unit != unit:
+            fix = (f"name the columns {site}_acc_x[{verdict.unit}] ..." if "column" in who
+                   else f"give --acc-unit {verdict.unit}")
+            raise InputError(f"{where}: columns {names}: at rest |acc| is {level:.3g} g in the "
+                             f"stated unit {unit} but {verdict.fitted_level_g:.3g} g in "
+                             f"{verdict.unit}; the values are in {verdict.unit}: {fix}")
+        else:
+            raise InputError(f"{where}: columns {names}: at rest |acc| is {level:.3g} g, far from "
+                             "1 g in g, m/s2 or mg; check the sensor's scale (raw counts?) and the "
+                             "column mapping, or state the unit with --acc-unit to keep the values")
+    if len(assumed_units) == 1 and assumed_units != {CANONICAL_UNITS["acc"]}:
+        found["acc_unit"] = assumed_units.pop()
+
+
+def _numeric_column(col: pd.Series, where: str, name: str, first_row: int = 2) -> np.ndarray:
     if col.dtype.kind in "fiu":
         return col.to_numpy(dtype=np.float64)
     if col.dtype.kind == "b":
@@ -334,35 +516,9 @@ def _numeric_column(col: pd.Series, where: str, name: str) -> np.ndarray:
     bad = num.isna() & ~empty
     if bad.any():
         i = int(np.flatnonzero(bad.to_numpy())[0])
-        raise InputError(f"{where}: row {i + 2}, column {name!r}: {text.iloc[i][:30]!r} is not a "
-                         "number; fix the cell or leave it empty (gaps are filled or skipped)")
+        raise InputError(f"{where}: row {i + first_row}, column {name!r}: {text.iloc[i][:30]!r} is "
+                         "not a number; fix the cell or leave it empty (gaps are filled or skipped)")
     return num.to_numpy(dtype=np.float64)
-
-
-def _time_column(col: pd.Series, where: str, name: str) -> tuple[np.ndarray, str | None]:
-    text = col.astype(str).str.strip() if col.dtype.kind not in "fiuM" else None
-    if col.dtype.kind == "M":
-        ts = pd.to_datetime(col, utc=True)
-    elif text is not None and text.str.contains(r"^\d{4}-\d{2}-\d{2}", regex=True).any():
-        try:
-            ts = pd.to_datetime(text, utc=True, format="ISO8601")
-        except (ValueError, TypeError):
-            bad = pd.to_datetime(text, utc=True, format="ISO8601", errors="coerce").isna()
-            i = int(np.flatnonzero(bad.to_numpy())[0])
-            raise InputError(f"{where}: row {i + 2}, column {name!r}: {text.iloc[i][:40]!r} is not an "
-                             "ISO-8601 time; use e.g. 2026-09-14T06:30:00.020Z") from None
-    else:
-        t = _numeric_column(col, where, name)
-        miss = np.flatnonzero(np.isnan(t))
-        if miss.size:
-            raise InputError(f"{where}: row {int(miss[0]) + 2}, column {name!r}: time is missing; "
-                             "every row needs a time")
-        return t, None
-    if ts.isna().any():
-        i = int(np.flatnonzero(ts.isna().to_numpy())[0])
-        raise InputError(f"{where}: row {i + 2}, column {name!r}: time is missing; every row needs a time")
-    t = (ts - ts.iloc[0]).dt.total_seconds().to_numpy(dtype=np.float64)
-    return t, ts.iloc[0].strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 def _tidy_rate(fs: float) -> float:
@@ -396,7 +552,8 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
     # 2. uniform grid
     dt = np.diff(t)
     nominal = 1.0 / fs
-    jitter = bool(dt.size) and float(np.max(np.abs(dt - nominal))) > 1e-6 * nominal
+    regular = dt[dt <= 1.5 * nominal]  # longer steps are dropouts or gaps, not jitter
+    jitter = bool(regular.size) and float(np.max(np.abs(regular - nominal))) > 1e-6 * nominal
     n_grid = int(math.floor((t[-1] - t[0]) * fs + 1e-6)) + 1
     grid = t[0] + np.arange(n_grid) / fs
     if not jitter and n_grid == n:
@@ -413,6 +570,9 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         valid = row_ok[left] & (exact | row_ok[right])
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
+        short = int(np.count_nonzero((dt > 1.5 * nominal) & (dt <= max(max_gap_s, 1.5 * nominal))))
+        if short:
+            repairs.append(f"interpolated across {short} dropout(s) of samples up to {max_gap_s:g} s")
     # 3. pauses in time longer than max_gap_s are gaps; so are runs of missing values left over
     if dt.size:
         long = np.flatnonzero(dt > max(max_gap_s, 1.5 * nominal))

@@ -32,17 +32,85 @@ def new_cmd(project, window_s, step_s, annotator):
 @cli.command("add")
 @project_argument
 @click.argument("files", nargs=-1, required=True)
+@click.option("--profile", "profile_path", default=None, metavar="FILE",
+              help="A device profile (JSON) with the options below for this device's files.")
+@click.option("--column", "column_maps", multiple=True, metavar="FILE_COLUMN=CHANNEL",
+              help="Read a file's column as a channel, e.g. accel_x=wrist_acc_x[m/s2] (repeat, or "
+                   "separate pairs with commas).")
+@click.option("--time-column", default=None, metavar="NAME",
+              help="Name of the time column (default: time, t, timestamp ...).")
+@click.option("--time-unit", type=click.Choice(["s", "ms", "us", "ns"]), default=None,
+              help="Unit of a numeric time column (default: seconds; Unix time in ms, us or ns is "
+                   "recognised and noted).")
+@click.option("--time-format", default=None, metavar="LAYOUT",
+              help="Layout of clock times that are not ISO-8601, e.g. '%d/%m/%Y %H:%M:%S.%f'.")
+@click.option("--tz", default=None, metavar="ZONE",
+              help="Zone of clock times written without one, e.g. Europe/Vienna or UTC.")
+@click.option("--skip-rows", type=click.IntRange(0, 1000), default=None, metavar="N",
+              help="Lines before the column names (default: found and noted).")
 @click.option("--rate", type=float, default=None, help="Sampling rate in Hz, for files without a "
               "time column (or to state the nominal rate).")
-@click.option("--time-column", default=None, help="Name of the time column (default: time, t or "
-              "timestamp).")
-@click.option("--acc-unit", default="g", show_default=True,
-              type=click.Choice(["g", "m/s2"]), help="Unit of acceleration columns without one.")
-@click.option("--gyr-unit", default="deg/s", show_default=True,
-              type=click.Choice(["deg/s", "rad/s"]), help="Unit of angular-rate columns without one.")
+@click.option("--acc-unit", default=None, type=click.Choice(["g", "m/s2", "mg"]),
+              help="Unit of acceleration columns without one (default: g, or what the level at "
+                   "rest shows, noted).")
+@click.option("--gyr-unit", default=None, type=click.Choice(["deg/s", "rad/s"]),
+              help="Unit of angular-rate columns without one (default: deg/s).")
+@click.option("--dry-run", is_flag=True,
+              help="Read and check the files and print what was found; write nothing.")
+@click.option("--save-profile", default=None, metavar="FILE",
+              help="Write the reading options in effect to FILE as a device profile.")
 @annotator_option
-def add_cmd(project, files, rate, time_column, acc_unit, gyr_unit, annotator):
-    """Add recording files (CSV or Parquet; globs allowed) to a project: all of them or none."""
+def add_cmd(project, files, profile_path, column_maps, time_column, time_unit, time_format, tz,
+            skip_rows, rate, acc_unit, gyr_unit, dry_run, save_profile, annotator):
+    """Add recording files (CSV, CSV.GZ or Parquet; globs allowed) to a project: all or none."""
+    from labeler.profiles import (ReadOptions, check_options, check_profile_path, load_profile,
+                                  parse_column_options)
+    from labeler.profiles import save_profile as write_profile
+
+    given = check_options(ReadOptions(
+        columns=parse_column_options(column_maps), time_column=time_column, time_unit=time_unit,
+        time_format=time_format, tz=tz, skip_rows=skip_rows, rate=rate, acc_unit=acc_unit,
+        gyr_unit=gyr_unit))
+    options = load_profile(profile_path).merged(given) if profile_path else given
+    if save_profile:
+        check_profile_path(save_profile)
+    paths = _expand_files(files)
+    with _open(project, annotator, readonly=dry_run) as p:
+        bar, progress = _progress_bar("reading" if dry_run else "adding")
+        with bar:
+            added = p.add_recordings(paths, progress=progress, dry_run=dry_run,
+                                     **options.as_kwargs())
+        for a in added:
+            verb = "would add" if dry_run else "added"
+            click.echo(f"{verb} {a.name}: {a.duration_s / 60:.1f} min at {a.rate:g} Hz, "
+                       f"{a.n_windows} windows")
+            if dry_run:
+                _print_reading(a.recording)
+            for r in a.repairs:
+                click.echo(f"  repaired: {r}")
+            for n in a.notes:
+                click.echo(f"  note: {n}")
+    if save_profile:
+        write_profile(_with_found(options, [a.recording for a in added]), save_profile)
+        click.echo(f"wrote device profile {save_profile}")
+    if dry_run:
+        click.echo("dry run: nothing written to the project")
+
+
+def _with_found(options, recordings):
+    """The options plus what reading found alike in every file (time unit, acceleration unit,
+    preamble length), so the saved profile states them."""
+    from dataclasses import replace
+
+    extra = {}
+    for key in ("time_unit", "acc_unit", "skip_rows"):
+        values = {(r.found.get(key) if r is not None else None) for r in recordings}
+        if getattr(options, key) is None and len(values) == 1 and None not in values:
+            extra[key] = values.pop()
+    return replace(options, **extra)
+
+
+def _expand_files(files) -> list[str]:
     paths: list[str] = []
     for pattern in files:
         if os.path.exists(pattern):  # a file name may hold glob characters ([1], *)
@@ -52,16 +120,27 @@ def add_cmd(project, files, rate, time_column, acc_unit, gyr_unit, annotator):
         if not hits:
             raise UserError(f"{pattern}: matches no file; check the pattern")
         paths.extend(hits)
-    with _open(project, annotator) as p:
-        bar, progress = _progress_bar("adding")
-        with bar:
-            added = p.add_recordings(paths, rate=rate, time_column=time_column,
-                                     acc_unit=acc_unit, gyr_unit=gyr_unit, progress=progress)
-        for a in added:
-            click.echo(f"added {a.name}: {a.duration_s / 60:.1f} min at {a.rate:g} Hz, "
-                       f"{a.n_windows} windows")
-            for r in a.repairs:
-                click.echo(f"  repaired: {r}")
+    return paths
+
+
+def _print_reading(rec) -> None:
+    """What a dry run found in one file: time, rate, channels with their units, gaps."""
+    click.echo(f"  file: {rec.source_path}")
+    click.echo(f"  time: {rec.time_read}" + (f"; first sample {rec.start_time}"
+                                             if rec.start_time else ""))
+    click.echo(f"  rate: {rec.rate:g} Hz, {rec.n_samples} samples on the grid")
+    parts = []
+    for ch in rec.channels:
+        src = rec.sources.get(ch, ch)
+        parts.append(f"{ch}" + (f" <- {src}" if src != ch else "") + f" [{rec.units[ch]}]")
+    click.echo(f"  channels ({len(rec.channels)}): " + ", ".join(parts))
+    gaps = rec.gaps()
+    if gaps:
+        shown = "; ".join(f"at {a:.1f} s for {d:.2f} s" for a, d in gaps[:5])
+        more = f"; and {len(gaps) - 5} more" if len(gaps) > 5 else ""
+        click.echo(f"  gaps: {len(gaps)}, {sum(d for _, d in gaps):.1f} s in all: {shown}{more}")
+    else:
+        click.echo("  gaps: none")
 
 
 @cli.command("status")

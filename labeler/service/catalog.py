@@ -7,7 +7,7 @@ the project as it was.
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
 
@@ -36,6 +36,8 @@ class AddedRecording:
     n_windows: int
     duration_s: float
     repairs: list[str]
+    notes: list[str] = field(default_factory=list)
+    recording: Recording | None = None  # what was read (a dry run prints it)
 
 
 class Catalog:
@@ -58,10 +60,10 @@ class Catalog:
         return str(self.ctx.store.setting("feature_set_version", _features.FEATURE_SET_VERSION))
 
     # ------------------------------------------------------------------ adding
-    def read_files(self, paths: Sequence[str | os.PathLike], *, rate: float | None = None,
-                   time_column: str | None = None, acc_unit: str = "g", gyr_unit: str = "deg/s",
-                   progress: Progress | None = None) -> list[Recording]:
-        """Read and check recording files (nothing is written)."""
+    def read_files(self, paths: Sequence[str | os.PathLike], *, progress: Progress | None = None,
+                   **read_options) -> list[Recording]:
+        """Read and check recording files (nothing is written). ``read_options`` go to
+        :func:`labeler.recordings.read_recording` (see :class:`labeler.profiles.ReadOptions`)."""
         if not paths:
             raise InputError("no recording files given; pass one or more CSV or Parquet files")
         recs: list[Recording] = []
@@ -69,13 +71,13 @@ class Catalog:
             self.ctx.refuse_own_file(p)
             if progress:
                 progress(i / (2 * len(paths)), f"reading {Path(p).name}")
-            recs.append(read_recording(p, rate=rate, time_column=time_column, acc_unit=acc_unit,
-                                       gyr_unit=gyr_unit))
+            recs.append(read_recording(p, **read_options))
         return recs
 
     def add(self, recordings: Sequence[Recording], *, progress: Progress | None = None,
-            offset: float = 0.0) -> list[AddedRecording]:
-        """Add already-read recordings in one transaction: all of them or none."""
+            offset: float = 0.0, dry_run: bool = False) -> list[AddedRecording]:
+        """Add already-read recordings in one transaction: all of them or none (``dry_run``: check
+        them and write nothing)."""
         store = self.ctx.store
         existing = {r["content_hash"]: r["name"] for r in store.recordings()}
         names = {r["name"] for r in store.recordings()}
@@ -98,13 +100,18 @@ class Catalog:
                 progress(offset + (1 - offset) * i / max(1, len(recordings)),
                          f"features of {rec.name}")
             prepared.append(self._prepare(rec))
+        if dry_run:
+            return [AddedRecording(-1, rec.name, rec.n_samples, rec.rate, len(wins["seq"]),
+                                   rec.duration_s, rec.repairs, rec.notes, rec)
+                    for rec, (_row, _chunks, wins, _feats) in zip(recordings, prepared)]
         added = []
         try:
             with store.atomic():
                 for rec, (row, chunks, wins, feats) in zip(recordings, prepared):
                     rid = store.add_recording(row, chunks, wins, feats)
                     added.append(AddedRecording(rid, rec.name, rec.n_samples, rec.rate,
-                                                len(wins["seq"]), rec.duration_s, rec.repairs))
+                                                len(wins["seq"]), rec.duration_s, rec.repairs,
+                                                rec.notes, rec))
         except StoreError as exc:
             raise InputError(str(exc)) from None
         self.ctx.invalidate()
@@ -128,7 +135,8 @@ class Catalog:
         row = {"name": rec.name, "source_path": rec.source_path, "content_hash": rec.content_hash,
                "rate": rec.rate, "channels": rec.channels, "units": rec.units,
                "n_samples": rec.n_samples, "start_time": rec.start_time,
-               "added_by": self.ctx.annotator, "repairs": rec.repairs, "window_length": length,
+               "added_by": self.ctx.annotator, "repairs": rec.repairs + rec.notes,
+               "window_length": length,
                "window_step": step}
         chunk = max(1, int(CHUNK_SECONDS * rec.rate))
         sig = np.ascontiguousarray(rec.signal, dtype=np.float32)

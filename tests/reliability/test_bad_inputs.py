@@ -205,6 +205,33 @@ def option_cases(project: Path, rec: Path, tmp: Path) -> dict[str, tuple[list, l
         "add_glob_no_match": (["add", project, str(tmp / "*.nothing")], ["*.nothing"]),
         "add_folder": (["add", project, tmp], [str(tmp)]),
         "add_same_recording_again": (["add", project, rec], ["already in the project"]),
+        "add_profile_missing": (["add", project, rec, "--profile", tmp / "nope.json"],
+                                ["nope.json"]),
+        "add_profile_not_json": (["add", project, rec, "--profile", tmp / "broken.json"],
+                                 ["broken.json", "line 1", "JSON"]),
+        "add_profile_not_a_profile": (["add", project, rec, "--profile", tmp / "other.json"],
+                                      ["other.json", "labeler_device_profile"]),
+        "add_profile_unknown_key": (["add", project, rec, "--profile", tmp / "colour.json"],
+                                    ["colour.json", "'colour'"]),
+        "add_profile_bad_zone": (["add", project, rec, "--profile", tmp / "zone.json"],
+                                 ["zone.json", "'tz'", "Nowhere/City"]),
+        "add_profile_bad_channel": (["add", project, rec, "--profile", tmp / "channel.json"],
+                                    ["channel.json", "ax=wrist_acc_q", "axis"]),
+        "add_column_without_equals": (["add", project, rec, "--column", "accel_x"],
+                                      ["--column", "accel_x"]),
+        "add_column_unknown_kind": (["add", project, rec, "--column", "accel_x=wrist_speed_x"],
+                                    ["--column", "accel_x=wrist_speed_x", "speed"]),
+        "add_column_twice_to_one_channel": (["add", project, rec, "--column",
+                                             "accel_x=wrist_acc_x,accel_y=wrist_acc_x"],
+                                            ["--column", "wrist_acc_x"]),
+        "add_tz_unknown": (["add", project, rec, "--tz", "Mars/Olympus"], ["--tz", "Mars/Olympus"]),
+        "add_time_unit_unknown": (["add", project, rec, "--time-unit", "fortnight"],
+                                  ["--time-unit", "fortnight"]),
+        "add_time_format_without_field": (["add", project, rec, "--time-format", "dd/mm/yyyy"],
+                                          ["--time-format", "dd/mm/yyyy"]),
+        "add_skip_rows_negative": (["add", project, rec, "--skip-rows", "-1"], ["--skip-rows"]),
+        "add_save_profile_missing_folder": (["add", project, rec, "--save-profile",
+                                             tmp / "nowhere" / "d.json"], ["nowhere"]),
         "confirm_no_windows_option": (["confirm", project, "walking"], ["--windows"]),
         "confirm_bad_id": (["confirm", project, "walking", "--windows", "1,x"], ["'x'"]),
         "confirm_huge_id": (["confirm", project, "walking", "--windows", "99999999999999999999999"],
@@ -241,6 +268,18 @@ def option_cases(project: Path, rec: Path, tmp: Path) -> dict[str, tuple[list, l
     }
 
 
+def write_profiles(tmp: Path) -> None:
+    """The device profiles the option cases name."""
+    (tmp / "broken.json").write_text('{"labeler_device_profile": 1, columns: }', encoding="utf-8")
+    (tmp / "other.json").write_text('{"a": 1}', encoding="utf-8")
+    (tmp / "colour.json").write_text('{"labeler_device_profile": 1, "colour": "red"}',
+                                     encoding="utf-8")
+    (tmp / "zone.json").write_text('{"labeler_device_profile": 1, "tz": "Nowhere/City"}',
+                                   encoding="utf-8")
+    (tmp / "channel.json").write_text(
+        '{"labeler_device_profile": 1, "columns": {"ax": "wrist_acc_q"}}', encoding="utf-8")
+
+
 OPTION_NAMES = sorted(option_cases(Path("p"), Path("r"), Path("t")))
 
 
@@ -252,6 +291,7 @@ def test_bad_option(name, tmp_path):
     rec = tmp_path / "worker1.csv"
     shutil.copyfile(template_recordings()[0], rec)
     args, words = option_cases(project, rec, tmp_path)[name]
+    write_profiles(tmp_path)
     before = file_state(project)
     check_one_line_error(invoke(args), words)
     assert file_state(project) == before, "a refused option changed the project file"

@@ -76,8 +76,8 @@ def build(dest: Path) -> list[dict]:
     rnd = random.Random(11)
     add("recording", "binary_junk.csv", bytes(rnd.randrange(256) for _ in range(5000)),
         mentions=["binary"], why="random bytes with NULs")
-    add("recording", "gzipped.csv", gzip.compress(text.encode()), mentions=["binary"],
-        why="a gzip file named .csv")
+    add("recording", "gzipped.csv", gzip.compress(text.encode()), expect="repaired",
+        mentions=["gzip"], why="a gzip file named .csv: read by its content")
     add("recording", "latin1.csv", (header.replace("time", "zeit") .replace("zeit", "time")
                                     + "".join(lines[1:40])).encode("utf-8")
         + "1.0,é,0,0,0,0,0,0,0,0,0,0,0\n".encode("latin-1"), mentions=["UTF-8"],
@@ -161,8 +161,11 @@ def build(dest: Path) -> list[dict]:
         + "9,9,9,9,9,9,9,9,9,9,9,9,9,9,9,9\n", mentions=["row"], why="rows with too many fields")
     add("recording", "single_sample.csv", "".join(lines[:2]), mentions=["single sample"],
         why="one row")
-    add("recording", "blank_first_line.csv", "\n" + text, mentions=["first line"],
-        why="an empty first line where the header should be")
+    add("recording", "blank_first_line.csv", "\n" + text, expect="repaired",
+        mentions=["skipped 1 line(s) before the column names on line 2"],
+        why="an empty first line before the header: skipped, with a note")
+    add("recording", "blank_lines_only.csv", "\n\n\n", mentions=["line 1", "empty"],
+        why="only empty lines")
     add("recording", "duplicate_column.csv", text.replace("hip_acc_x", "wrist_acc_x", 1),
         mentions=["wrist_acc_x"], why="one channel twice")
     buf = io.BytesIO()
@@ -190,6 +193,96 @@ def build(dest: Path) -> list[dict]:
         why="spaces, quotes, brackets and unicode in the file name (and a bad cell)")
     add("recording", "name with spaces;and$dollar.csv", text.replace("wrist_gyr_z", "wrist_gyr_w", 1),
         mentions=["wrist_gyr_w", "axis"], why="odd file name, and an unknown axis")
+
+    # ---------------------------------------------------------------- device files
+    add("recording", "device.csv.gz", gzip.compress(text.encode()), expect="repaired",
+        mentions=["gzip"], why="gzip-compressed CSV")
+    add("recording", "cut_short.csv.gz", gzip.compress(text.encode())[:900],
+        mentions=["gzip", "again"], why="a gzip file cut short")
+    add("recording", "preamble.csv", "Device: orchard band v2\nSerial: 0042\n" + text,
+        expect="repaired", mentions=["skipped 2 line(s)", "--skip-rows 2"],
+        why="two lines of device information before the column names")
+    add("recording", "preamble_skip_too_many.csv", "Serial: 0042\n" + text,
+        args=["--skip-rows", "900"], mentions=["--skip-rows 900"],
+        why="--skip-rows beyond the end of the file")
+    epoch = good.copy()
+    epoch["time"] = 1_789_367_400_000 + np.arange(len(epoch)) * 20
+    add("recording", "epoch_ms.csv", csv_text(epoch), expect="repaired",
+        mentions=["Unix time in ms", "--time-unit ms"], why="Unix time in milliseconds")
+    add("recording", "epoch_ms_with_rate.csv", csv_text(epoch.assign(time=epoch["time"] + 7)),
+        args=["--rate", "50"], expect="repaired", mentions=["Unix time in ms"],
+        why="Unix time in ms with the nominal --rate: accepted, never a --rate that fails")
+    rel_ms = good.copy()
+    rel_ms["time"] = np.arange(len(rel_ms)) * 20
+    add("recording", "relative_ms_with_rate.csv", csv_text(rel_ms), args=["--rate", "50"],
+        mentions=["--rate says 50 Hz", "--time-unit ms"],
+        why="milliseconds from the start, given with --rate 50")
+    add("recording", "seconds_said_ms.csv", text, args=["--time-unit", "ms"],
+        mentions=["time step 0.02 ms", "--time-unit s"], why="seconds declared as milliseconds")
+    clock = good.copy()
+    clock["time"] = (pd.Timestamp("2026-09-14T06:30:00") + pd.to_timedelta(clock["time"], unit="s")) \
+        .dt.strftime("%Y-%m-%dT%H:%M:%S.%f")
+    add("recording", "iso_without_zone.csv", csv_text(clock), mentions=["without a zone", "--tz"],
+        why="clock times without a zone: never taken as UTC silently")
+    add("recording", "iso_without_zone_tz.csv", csv_text(clock.assign(
+        wrist_acc_x=clock["wrist_acc_x"] + 0.001)), args=["--tz", "Europe/Vienna"],
+        expect="repaired", mentions=[], why="clock times without a zone and --tz")
+    mixed = good.copy()
+    mixed["time"] = (pd.Timestamp("2026-09-14T06:30:00Z") + pd.to_timedelta(mixed["time"], unit="s")) \
+        .dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ").astype(object)
+    mixed.loc[100, "time"] = mixed.loc[100, "time"][:-1]
+    add("recording", "iso_mixed_zone.csv", csv_text(mixed), mentions=["row 102", "zone"],
+        why="one time without the zone the others have")
+    dst = good.copy()
+    dst["time"] = (pd.Timestamp("2026-03-29T02:10:00") + pd.to_timedelta(dst["time"], unit="s")) \
+        .dt.strftime("%Y-%m-%d %H:%M:%S.%f")
+    add("recording", "dst_gap.csv", csv_text(dst), args=["--tz", "Europe/Vienna"],
+        mentions=["row 2", "daylight-saving"], why="clock times in the hour a spring change skips")
+    dayfirst = good.copy()
+    dayfirst["time"] = (pd.Timestamp("2026-09-14T06:30:00") + pd.to_timedelta(dayfirst["time"], unit="s")) \
+        .dt.strftime("%d/%m/%Y %H:%M:%S.%f")
+    add("recording", "day_first.csv", csv_text(dayfirst),
+        mentions=["row 2", "--time-format '%d/%m/%Y %H:%M:%S.%f'"],
+        why="dd/mm/yyyy clock times")
+    add("recording", "day_first_wrong_layout.csv", csv_text(dayfirst.assign(
+        hip_acc_x=dayfirst["hip_acc_x"] + 0.001)), args=["--time-format", "%m/%d/%Y %H:%M:%S.%f",
+                                                          "--tz", "UTC"],
+        mentions=["row 2", "does not match --time-format"], why="a layout that does not fit")
+    add("recording", "day_first_right_layout.csv", csv_text(dayfirst.assign(
+        hip_acc_x=dayfirst["hip_acc_x"] + 0.002)), args=["--time-format", "%d/%m/%Y %H:%M:%S.%f",
+                                                          "--tz", "Europe/Vienna"],
+        expect="repaired", mentions=[], why="dd/mm/yyyy with its layout and zone")
+    acc_cols = [c for c in good.columns if "_acc_" in c]
+    mps2 = good.copy()
+    mps2[acc_cols] = mps2[acc_cols] * 9.80665
+    add("recording", "mps2_unstated.csv", csv_text(mps2), expect="repaired",
+        mentions=["as m/s2", "--acc-unit m/s2"], why="m/s² without a unit: level 9.8, read as m/s²")
+    add("recording", "mps2_stated_g.csv", csv_text(mps2.assign(time=mps2["time"] + 1)),
+        args=["--acc-unit", "g"], mentions=["--acc-unit m/s2"],
+        why="m/s² where --acc-unit says g")
+    mg = good.copy()
+    mg[acc_cols] = mg[acc_cols] * 1000.0
+    add("recording", "mg_header_says_g.csv", csv_text(mg.rename(columns={
+        c: c + "[g]" for c in acc_cols})), mentions=["wrist_acc_x[g]", "[mg]"],
+        why="milli-g in columns whose names say g")
+    counts = good.copy()
+    counts[acc_cols] = np.round(counts[acc_cols] * 4096.0 * 3.1)
+    add("recording", "raw_counts.csv", csv_text(counts), mentions=["far from 1 g", "--acc-unit"],
+        why="raw sensor counts, no unit fits")
+    device = good.rename(columns={"wrist_acc_x": "accel_x", "wrist_acc_y": "accel_y",
+                                  "wrist_acc_z": "accel_z"})
+    add("recording", "mapped_columns.csv", csv_text(device), expect="repaired", mentions=[],
+        args=["--column", "accel_x=wrist_acc_x,accel_y=wrist_acc_y", "--column",
+              "accel_z=wrist_acc_z"], why="device column names mapped to channels")
+    add("recording", "mapping_missing_column.csv", csv_text(device.assign(time=device["time"] + 2)),
+        args=["--column", "ax=wrist_acc_x"], mentions=["'ax'", "--column ax=wrist_acc_x"],
+        why="a mapping from a column the file does not have")
+    buf = io.BytesIO()
+    naive = good.copy()
+    naive["time"] = pd.Timestamp("2026-09-14T06:30:00") + pd.to_timedelta(naive["time"], unit="s")
+    naive.to_parquet(buf, index=False)
+    add("recording", "naive_timestamps.parquet", buf.getvalue(), mentions=["--tz"],
+        why="Parquet timestamps without a zone")
 
     # ---------------------------------------------------------------- interval-label files
     ok_rows = "worker1,0,10,walking\nworker2,5,20,sitting\n"
