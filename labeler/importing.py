@@ -1,8 +1,13 @@
 """Reading interval-label files: one row per labeled interval of a recording.
 
 Columns (header required, comma-separated, UTF-8): ``recording`` (the recording's name in the
-project), ``start`` and ``end`` (seconds from the recording's first sample), ``label`` (a class name),
-and optionally ``annotator`` (who labeled it; default: the importing annotator) and ``note``.
+project), ``start`` and ``end``, ``label`` (a class name), and optionally ``annotator`` (who labeled
+it; default: the importing annotator) and ``note``.
+
+``start`` and ``end`` are seconds from the recording's first sample, or clock times in ISO-8601
+(``2026-09-14T07:05:00+02:00``): those need a recording whose file gave clock times (its start is
+known) and a zone, written in the cell or given as ``tz`` (never taken as UTC silently). A clock
+interval that begins before its recording is cut at the recording's first sample.
 
 Which windows an interval labels (:func:`windows_inside`): a window takes an interval's label when the
 window's centre lies strictly inside the interval. For every interval longer than half a window this is
@@ -50,10 +55,19 @@ class Interval:
     label: str
     annotator: str | None
     note: str | None
+    clock: bool = False  # start and end were clock times
 
 
-def read_intervals(path: str | os.PathLike) -> list[Interval]:
-    """Parse and check an interval-label file. Raises InputError naming the row or column."""
+_ISO = re.compile(r"^\d{4}-\d{2}-\d{2}[T ]\d{1,2}:\d{2}")
+
+
+def read_intervals(path: str | os.PathLike, *, start_times: dict[str, str | None] | None = None,
+                   tz: str | None = None) -> list[Interval]:
+    """Parse and check an interval-label file. Raises InputError naming the row or column.
+
+    ``start_times`` (recording name -> ISO-8601 UTC of its first sample, or None) turns clock
+    times into seconds; ``tz`` is the zone of clock times written without one.
+    """
     path = Path(path)
     where = str(path)
     if not path.exists():
@@ -84,19 +98,28 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
         name = str(d["recording"]).strip()
         if not name:
             raise InputError(f"{where}: row {line}, column 'recording': empty; name the recording")
-        try:
-            start, end = float(d["start"]), float(d["end"])
-        except (ValueError, TypeError):
-            raise InputError(f"{where}: row {line}: start {d['start']!r} and end {d['end']!r} must "
-                             "be seconds") from None
-        if not (np.isfinite(start) and np.isfinite(end)):
-            raise InputError(f"{where}: row {line}: start and end must be finite seconds")
+        raw_start, raw_end = str(d["start"]).strip(), str(d["end"]).strip()
+        clock = bool(_ISO.match(raw_start) or _ISO.match(raw_end))
+        if clock:
+            start, end = _clock_interval(where, line, name, raw_start, raw_end, start_times, tz)
+        else:
+            try:
+                start, end = float(raw_start), float(raw_end)
+            except (ValueError, TypeError):
+                raise InputError(f"{where}: row {line}: start {d['start']!r} and end {d['end']!r} "
+                                 "must be seconds or ISO-8601 clock times") from None
+            if not (np.isfinite(start) and np.isfinite(end)):
+                raise InputError(f"{where}: row {line}: start and end must be finite seconds")
         if end <= start:
-            raise InputError(f"{where}: row {line}: end {end:g} is not after start {start:g}; "
-                             "swap them or fix the row")
-        if start < 0:
+            raise InputError(f"{where}: row {line}: end {_shown(raw_end, end, clock)} is not after "
+                             f"start {_shown(raw_start, start, clock)}; swap them or fix the row")
+        if start < 0 and not clock:
             raise InputError(f"{where}: row {line}, column 'start': {start:g} is negative; times "
                              "count from the recording's first sample")
+        if clock and end <= 0:
+            raise InputError(f"{where}: row {line}: ends at {raw_end}, before recording {name!r} "
+                             "begins; fix the row or the recording name")
+        start = max(0.0, start)
         label = str(d["label"]).strip()
         if not label:
             raise InputError(f"{where}: row {line}, column 'label': empty; give a class name")
@@ -108,7 +131,7 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
             raise InputError(f"{where}: row {line}, column 'annotator': {who[:70]!r} must be 1-60 "
                              "printable characters; shorten it")
         note = str(d.get("note") or "").strip() or None
-        out.append(Interval(line, name, start, end, label, who, note))
+        out.append(Interval(line, name, start, end, label, who, note, clock))
     if not out:
         raise InputError(f"{where}: header only, no intervals; add rows recording,start,end,label")
     # overlapping intervals of one recording with different labels contradict each other
@@ -124,6 +147,51 @@ def read_intervals(path: str | os.PathLike) -> list[Interval]:
                     f"{min(a.end, b.end):g} s) with different labels {a.label!r} and {b.label!r}; "
                     "make them meet end to start")
     return out
+
+
+def _shown(raw: str, value: float, clock: bool) -> str:
+    return raw if clock else f"{value:g}"
+
+
+def _clock_interval(where: str, line: int, name: str, raw_start: str, raw_end: str,
+                    start_times: dict[str, str | None] | None, tz: str | None
+                    ) -> tuple[float, float]:
+    """Seconds from the recording's first sample of an interval written in clock times."""
+    for column, raw in (("start", raw_start), ("end", raw_end)):
+        if not _ISO.match(raw):
+            raise InputError(f"{where}: row {line}, column {column!r}: {raw[:40]!r} is not an "
+                             "ISO-8601 time like the other end; write both ends as clock times or "
+                             "both as seconds")
+    if start_times is None or name not in start_times:
+        raise InputError(f"{where}: row {line}, column 'recording': no recording {name!r} in the "
+                         "project to place clock times in; add it first or fix the name")
+    origin = start_times[name]
+    if origin is None:
+        raise InputError(f"{where}: row {line}: recording {name!r} has no clock (its file gave "
+                         "seconds); give start and end as seconds from its first sample")
+    out = []
+    for column, raw in (("start", raw_start), ("end", raw_end)):
+        try:
+            ts = pd.Timestamp(raw)
+        except (ValueError, TypeError):
+            raise InputError(f"{where}: row {line}, column {column!r}: {raw[:40]!r} is not an "
+                             "ISO-8601 time; use e.g. 2026-09-14T07:05:00+02:00") from None
+        if ts.tzinfo is None:
+            if tz is None:
+                raise InputError(f"{where}: row {line}, column {column!r}: {raw[:40]!r} has no "
+                                 "zone; write it with one (Z or +02:00) or give the zone with "
+                                 "--tz, e.g. --tz Europe/Vienna")
+            from labeler.profiles import check_zone
+
+            check_zone(tz, "--tz")
+            try:
+                ts = ts.tz_localize(tz, nonexistent="raise", ambiguous="raise")
+            except Exception:  # pandas raises several types at a daylight-saving change
+                raise InputError(f"{where}: row {line}, column {column!r}: {raw[:40]!r} does not "
+                                 f"exist or is ambiguous in {tz} (a daylight-saving change); "
+                                 "write it with its offset, e.g. +02:00") from None
+        out.append((ts.tz_convert("UTC") - pd.Timestamp(origin)).total_seconds())
+    return out[0], out[1]
 
 
 def windows_inside(start_s, stop_s, a: float, b: float) -> np.ndarray:

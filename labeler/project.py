@@ -255,10 +255,12 @@ class Project:
         return self._ledger.class_log(annotator)
 
     def import_intervals(self, path: str | os.PathLike, *, dry_run: bool = False,
-                         create_classes: bool = True) -> ImportReport:
+                         create_classes: bool = True, tz: str | None = None) -> ImportReport:
         """Confirm the windows inside each interval of an interval-label file (source "import");
-        one batch per annotator named in the file. ``dry_run`` writes nothing."""
-        return self._ledger.import_intervals(path, dry_run=dry_run, create_classes=create_classes)
+        one batch per annotator named in the file. ``dry_run`` writes nothing. Start and end may be
+        clock times (``tz``: the zone of those written without one)."""
+        return self._ledger.import_intervals(path, dry_run=dry_run, create_classes=create_classes,
+                                             tz=tz)
 
     # ------------------------------------------------------------------ summaries
     def counts(self) -> pd.DataFrame:

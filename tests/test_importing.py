@@ -190,7 +190,7 @@ def test_cli_import(tmp_path, files):
     ("recording,start,label\nalpha,1,walk\n",
      "missing column 'end'; the header must name recording,start,end,label"),
     ("recording,start,end,label\nalpha,one,6,walk\n",
-     "row 2: start 'one' and end '6' must be seconds"),
+     "row 2: start 'one' and end '6' must be seconds or ISO-8601 clock times"),
     ("recording,start,end,label\nalpha,1,6,\n",
      "row 2, column 'label': empty; give a class name"),
     ("recording,start,end,label\nalpha,100,106,walk\n",

@@ -152,14 +152,21 @@ def class_retire_cmd(project, name, annotator):
 @click.argument("file", type=click.Path(dir_okay=False))
 @click.option("--dry-run", is_flag=True, help="Report what would change; write nothing.")
 @click.option("--no-new-classes", is_flag=True, help="Refuse labels that are not classes yet.")
+@click.option("--tz", default=None, metavar="ZONE",
+              help="Zone of clock times written without one, e.g. Europe/Vienna or UTC.")
 @annotator_option
-def import_cmd(project, file, dry_run, no_new_classes, annotator):
+def import_cmd(project, file, dry_run, no_new_classes, tz, annotator):
     """Confirm the windows inside each interval of a CSV (recording,start,end,label[,annotator]).
 
-    A window takes an interval's label when its centre lies inside the interval (so a window
-    straddling a boundary goes to the side holding most of it)."""
+    Start and end are seconds from the recording's first sample or ISO-8601 clock times. A window
+    takes an interval's label when its centre lies inside the interval (so a window straddling a
+    boundary goes to the side holding most of it)."""
+    if tz is not None:
+        from labeler.profiles import check_zone
+
+        check_zone(tz, "--tz")
     with _open(project, annotator) as p:
-        r = p.import_intervals(file, dry_run=dry_run, create_classes=not no_new_classes)
+        r = p.import_intervals(file, dry_run=dry_run, create_classes=not no_new_classes, tz=tz)
     verb = "would confirm" if dry_run else "confirmed"
     click.echo(f"{'dry run: ' if dry_run else ''}{verb} {r.windows} window(s) from "
                f"{r.intervals} interval(s) for {', '.join(r.annotators)}: {r.changes} "

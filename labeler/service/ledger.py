@@ -273,18 +273,20 @@ class Ledger:
 
     # ------------------------------------------------------------------ interval import
     def import_intervals(self, path: str | os.PathLike, *, dry_run: bool = False,
-                         create_classes: bool = True) -> ImportReport:
+                         create_classes: bool = True, tz: str | None = None) -> ImportReport:
         """Confirm the windows inside each interval of an interval-label file (source "import").
 
         One batch per annotator named in the file (rows without one are this annotator's). With
         ``dry_run`` nothing is written; the report says what would change. Windows take an interval's
-        label by the majority rule of :mod:`labeler.importing`.
+        label by the majority rule of :mod:`labeler.importing`; start and end may be clock times
+        (``tz`` is the zone of those written without one).
         """
         from labeler import importing
 
         self.ctx.refuse_own_file(path)
-        intervals = importing.read_intervals(path)
         recs = self.catalog.recordings()
+        intervals = importing.read_intervals(path, tz=tz, start_times={
+            n: (t if isinstance(t, str) else None) for n, t in zip(recs["name"], recs["start_time"])})
         importing.check_recordings(intervals, dict(zip(recs["name"], recs["n_samples"] / recs["rate"])),
                                    path)
         known = list(self.classes()["name"])

@@ -327,6 +327,11 @@ def build(dest: Path) -> list[dict]:
         mentions=[], why="semicolon-separated (one unknown column)")
     add("intervals", "jagged.csv", hdr + "worker1,0,10,walking,extra,more\n", mentions=[],
         why="a row with more fields than the header")
+    add("intervals", "clock_on_seconds_recording.csv",
+        hdr + "worker1,2026-09-14T06:30:10Z,2026-09-14T06:30:20Z,walking\n",
+        mentions=["row 2", "no clock"], why="clock times for a recording whose file gave seconds")
+    add("intervals", "clock_and_seconds_mixed.csv", hdr + "worker1,2026-09-14T06:30:10Z,20,walking\n",
+        mentions=["row 2", "'end'", "'20'"], why="one end a clock time, the other seconds")
     add("intervals", "bom_ok.csv", b"\xef\xbb\xbf" + (hdr + ok_rows).encode(), expect="repaired",
         mentions=[], why="a byte-order mark (accepted)")
 
