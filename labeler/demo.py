@@ -10,6 +10,23 @@ import pandas as pd
 
 DEMO_SEED = 2026
 PROJECT_NAME = "harvest.labeler"
+MINUTES = (1.0, 24 * 60.0)   # one window needs 2.56 s; a day is the most the demo simulates
+PEOPLE = (1, 50)
+
+
+def check_demo_size(minutes: float, people: int) -> None:
+    """Refuse a demo that cannot be built, naming the command-line option."""
+    import math
+
+    from labeler.errors import InputError
+
+    if not (isinstance(minutes, (int, float)) and math.isfinite(minutes)
+            and MINUTES[0] <= minutes <= MINUTES[1]):
+        raise InputError(f"--minutes {minutes:g}: give the length of each simulated recording, "
+                         f"{MINUTES[0]:g} to {MINUTES[1]:g} minutes")
+    if not (isinstance(people, int) and PEOPLE[0] <= people <= PEOPLE[1]):
+        raise InputError(f"--people {people}: give how many pickers to simulate, {PEOPLE[0]} to "
+                         f"{PEOPLE[1]}")
 
 
 def write_demo_files(folder: Path, *, minutes: float = 40.0, people: int = 3,
@@ -63,15 +80,20 @@ def build_demo(folder: Path, *, minutes: float = 40.0, people: int = 3,
     if project.exists():
         echo(f"using the demo project {project} (delete the folder to build it anew)")
         return project
+    check_demo_size(minutes, people)
     echo(f"simulating {people} picker(s) x {minutes:g} min of an invented orchard shift in {folder}")
     paths, labels, _ = write_demo_files(folder, minutes=minutes, people=people)
     tmp = folder / (PROJECT_NAME + ".building")
     for leftover in folder.glob(PROJECT_NAME + ".building*"):
         leftover.unlink()
-    with Project.create(tmp, annotator="demo") as p:
-        p.add_recordings(paths)
-        report = p.import_intervals(labels)
-        echo(f"imported {report.intervals} known bouts ({report.windows} windows) from "
-             f"{labels.name}")
-    tmp.replace(project)  # a finished project or none
+    try:
+        with Project.create(tmp, annotator="demo") as p:
+            p.add_recordings(paths)
+            report = p.import_intervals(labels)
+            echo(f"imported {report.intervals} known bouts ({report.windows} windows) from "
+                 f"{labels.name}")
+        tmp.replace(project)  # a finished project or none
+    finally:
+        for leftover in folder.glob(PROJECT_NAME + ".building*"):
+            leftover.unlink(missing_ok=True)
     return project
