@@ -207,9 +207,15 @@ def load_profile(path: str | os.PathLike) -> ReadOptions:
     return check_options(ReadOptions(origin=where, **kw), origin=where)
 
 
-def check_profile_path(path: str | os.PathLike) -> Path:
-    """Where a profile may be written: not a folder, in a folder that exists."""
+def check_profile_path(path: str | os.PathLike, project: str | os.PathLike | None = None) -> Path:
+    """Where a profile may be written: not a folder, in a folder that exists, not the project's
+    own file (or its -wal or -shm)."""
     path = Path(path)
+    own = ({Path(f"{Path(project).resolve()}{s}") for s in ("", "-wal", "-shm", "-journal")}
+           if project is not None else set())
+    if path.resolve() in own:
+        raise InputError(f"--save-profile {path}: is the project's own file; give another name, "
+                         "e.g. device.json")
     if path.is_dir():
         raise InputError(f"--save-profile {path}: is a folder; give a file name")
     if not path.parent.exists():

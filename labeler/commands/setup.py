@@ -73,7 +73,7 @@ def add_cmd(project, files, profile_path, column_maps, time_column, time_unit, t
         gyr_unit=gyr_unit))
     options = load_profile(profile_path).merged(given) if profile_path else given
     if save_profile:
-        check_profile_path(save_profile)
+        check_profile_path(save_profile, project)
     paths = _expand_files(files)
     with _open(project, annotator, readonly=dry_run) as p:
         bar, progress = _progress_bar("reading" if dry_run else "adding")

@@ -232,6 +232,8 @@ def option_cases(project: Path, rec: Path, tmp: Path) -> dict[str, tuple[list, l
         "add_skip_rows_negative": (["add", project, rec, "--skip-rows", "-1"], ["--skip-rows"]),
         "add_save_profile_missing_folder": (["add", project, rec, "--save-profile",
                                              tmp / "nowhere" / "d.json"], ["nowhere"]),
+        "add_save_profile_over_the_project": (["add", project, rec, "--dry-run", "--save-profile",
+                                               project], ["--save-profile", "project's own file"]),
         "confirm_no_windows_option": (["confirm", project, "walking"], ["--windows"]),
         "confirm_bad_id": (["confirm", project, "walking", "--windows", "1,x"], ["'x'"]),
         "confirm_huge_id": (["confirm", project, "walking", "--windows", "99999999999999999999999"],
