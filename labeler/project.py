@@ -18,7 +18,7 @@ from labeler import features as _features
 from labeler.errors import ProjectError
 from labeler.recordings import Recording
 from labeler.results import (AccuracyReport, ExportReport, ImportReport, LabelBatch, MapRun,
-                             ProjectStatus, ProposalRun)
+                             ProjectStatus, ProposalRun, RemovedRecording)
 from labeler.service.audits import Audits
 from labeler.service.catalog import CHUNK_SECONDS, AddedRecording, Catalog
 from labeler.service.context import Context, Progress, default_annotator
@@ -111,30 +111,66 @@ class Project:
     # ------------------------------------------------------------------ recordings
     def add_recordings(self, paths: Sequence[str | os.PathLike], *,
                        progress: Progress | None = None, dry_run: bool = False,
-                       **read_options) -> list[AddedRecording]:
+                       person: str | None = None, **read_options) -> list[AddedRecording]:
         """Read, check and add recording files; all of them or none (one transaction).
 
         ``read_options`` go to :func:`labeler.recordings.read_recording` (rate, time_column,
         time_unit, time_format, tz, columns, skip_rows, acc_unit, gyr_unit; see
         :class:`labeler.profiles.ReadOptions`). Every file is read and checked before anything is
-        written, so a bad file leaves the project as it was; ``dry_run`` stops there.
+        written, so a bad file leaves the project as it was; ``dry_run`` stops there. ``person``
+        says who wore the sensors (exported for grouped splits).
+
+        A project holds one channel set: a recording that lacks some of the project's channels is
+        refused; one with more keeps the project's (the rest left out, noted); columns in another
+        order are put in the project's.
         """
         recs = self._catalog.read_files(paths, progress=progress, **read_options)
-        return self._add(recs, progress, 0.5, dry_run)
+        return self._add(recs, progress, 0.5, dry_run, person)
 
     def add_recording_data(self, recordings: Sequence[Recording], *,
-                           progress: Progress | None = None) -> list[AddedRecording]:
+                           progress: Progress | None = None,
+                           person: str | None = None) -> list[AddedRecording]:
         """Add already-read recordings (from :func:`read_recording` or a simulator)."""
-        return self._add(recordings, progress, 0.0)
+        return self._add(recordings, progress, 0.0, person=person)
 
-    def _add(self, recordings, progress, offset, dry_run=False) -> list[AddedRecording]:
-        added = self._catalog.add(recordings, progress=progress, offset=offset, dry_run=dry_run)
+    def _add(self, recordings, progress, offset, dry_run=False, person=None
+             ) -> list[AddedRecording]:
+        added = self._catalog.add(recordings, progress=progress, offset=offset, dry_run=dry_run,
+                                  person=person)
         if not dry_run:  # a project with a map keeps every window on it
             self._maps.place_new([a.id for a in added])
         return added
 
-    def recordings(self) -> pd.DataFrame:
-        return self._catalog.recordings()
+    def recordings(self, include_removed: bool = False) -> pd.DataFrame:
+        """The recordings: id, name, source_path, content_hash, rate, channels, units, n_samples,
+        start_time, added_at, added_by, repairs, window_length, window_step, person (and, with
+        ``include_removed``, removed ones with removed_at and removed_by)."""
+        return self._catalog.recordings(include_removed)
+
+    def remove_recording(self, recording: str | int) -> RemovedRecording:
+        """Take a recording out of the project, in one transaction.
+
+        Its signal and features are deleted from the file (overwritten; backups made before keep
+        them). Its windows stay, marked removed, so the label history keeps every event, naming
+        them. From then on its windows and their labels are out of everything else: windows,
+        features, labels, proposals, the review queue, audits, the accuracy estimate, the map and
+        exports; proposals already made for other windows stay until the next proposal run, which
+        spreads without it. A file of the same content may be added again under another name.
+        """
+        rid = self._catalog.recording_id(recording)
+        w = self._catalog.windows()
+        mine = w.loc[w["recording_id"] == rid, "id"]
+        confirmed = int(self._ledger.labels()["window_id"].isin(mine).sum())
+        return self._catalog.remove(rid, confirmed)
+
+    def window_names(self) -> pd.Series:
+        """"<recording>#<number>" of every window, those of removed recordings marked
+        " (removed)", indexed by window id (what the label history names)."""
+        return self._catalog.window_names()
+
+    def set_person(self, recording: str | int, person: str | None) -> None:
+        """Who wore the sensor of a recording (None: unknown); exported for grouped splits."""
+        self._catalog.set_person(recording, person)
 
     def recording_id(self, name_or_id: str | int) -> int:
         return self._catalog.recording_id(name_or_id)

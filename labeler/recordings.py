@@ -602,3 +602,28 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
 def _shift_iso(iso: str, seconds: float) -> str:
     ts = pd.Timestamp(iso) + pd.Timedelta(seconds=seconds)
     return ts.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def conform_channels(rec: Recording, channels: list[str]) -> Recording:
+    """The recording with the channels ``channels`` (a project's) in that order: channels the
+    project lacks are left out and columns reordered, each noted. InputError naming what is missing
+    when the recording lacks some of them (features of different channels cannot be compared, so a
+    project holds one channel set)."""
+    if list(rec.channels) == list(channels):
+        return rec
+    missing = [c for c in channels if c not in rec.channels]
+    if missing:
+        shown = ", ".join(missing[:6]) + (" ..." if len(missing) > 6 else "")
+        raise InputError(f"{rec.source_path}: lacks the project's channels {shown}; map its columns "
+                         "to them with --column, or add it to a project of its own")
+    extra = [c for c in rec.channels if c not in channels]
+    notes = list(rec.notes)
+    if extra:
+        notes.append("left out channels the project does not have: " + ", ".join(extra))
+    elif rec.channels != channels:
+        notes.append("put the columns in the project's channel order")
+    order = [rec.channels.index(c) for c in channels]
+    return Recording(**{**rec.__dict__, "channels": list(channels),
+                        "units": {c: rec.units[c] for c in channels},
+                        "sources": {c: rec.sources.get(c, c) for c in channels},
+                        "signal": np.ascontiguousarray(rec.signal[:, order]), "notes": notes})

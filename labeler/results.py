@@ -166,6 +166,15 @@ class ImportReport:
         return np.unique(np.concatenate([b.window_ids for b in self.batches]))
 
 
+@dataclass(frozen=True)
+class RemovedRecording:
+    """A recording taken out of a project: its windows' labels stay in the history."""
+    id: int
+    name: str
+    windows: int                 # windows it had
+    confirmed: int               # of them with a current label (kept, no longer used)
+
+
 @dataclass
 class ExportReport:
     """Files an export wrote, their row counts and the manifest as written."""

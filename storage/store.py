@@ -199,7 +199,16 @@ def _m1_initial(db: sqlite_utils.Database) -> None:
     db["audits"].create_index(["window_id"])
 
 
-MIGRATIONS = [_m1_initial]
+def _m2_recording_person_and_removal(db: sqlite_utils.Database) -> None:
+    """Who wore the sensor (``person``, for grouped splits of a training set), and removal: a
+    removed recording keeps its row and its windows (so the label history still names them) with
+    the time and the person of the removal; its signal and features are deleted."""
+    db.execute("ALTER TABLE recordings ADD COLUMN person TEXT")
+    db.execute("ALTER TABLE recordings ADD COLUMN removed_at TEXT")
+    db.execute("ALTER TABLE recordings ADD COLUMN removed_by TEXT")
+
+
+MIGRATIONS = [_m1_initial, _m2_recording_person_and_removal]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 # The current label of a window: among the annotators' current labels of that window, the one set by
@@ -213,6 +222,11 @@ WHERE a.window_id IN (SELECT window_id FROM temp.touched)
   AND a.event_id = (SELECT max(b.event_id) FROM annotations b WHERE b.window_id = a.window_id);
 DELETE FROM temp.touched;
 """
+
+
+# a row whose window_id belongs to a recording still in the project (not removed)
+_LIVE_WINDOW = ("window_id IN (SELECT w.id FROM windows w JOIN recordings r ON r.id = "
+                "w.recording_id WHERE r.removed_at IS NULL)")
 
 
 class Store:
@@ -520,8 +534,9 @@ class Store:
                  features["n_features"], features["data"]))
         return rid
 
-    def recordings(self) -> list[dict[str, Any]]:
-        rows = [dict(r) for r in self.db.query("SELECT * FROM recordings ORDER BY id")]
+    def recordings(self, include_removed: bool = False) -> list[dict[str, Any]]:
+        where = "" if include_removed else " WHERE removed_at IS NULL"
+        rows = [dict(r) for r in self.db.query(f"SELECT * FROM recordings{where} ORDER BY id")]
         for r in rows:
             for key in ("channels", "units", "repairs"):
                 r[key] = json.loads(r[key]) if r[key] else None
@@ -540,9 +555,12 @@ class Store:
             args.append(stop)
         return list(self.conn.execute(sql + " ORDER BY chunk", args))
 
-    def windows_columns(self) -> dict[str, list]:
+    def windows_columns(self, include_removed: bool = False) -> dict[str, list]:
+        """Windows of the recordings in the project (and of removed ones, if asked)."""
+        where = "" if include_removed else (" WHERE recording_id IN (SELECT id FROM recordings "
+                                            "WHERE removed_at IS NULL)")
         cur = self.conn.execute("SELECT id, recording_id, seq, start_sample, stop_sample, start_s, "
-                                "stop_s FROM windows ORDER BY id")
+                                f"stop_s FROM windows{where} ORDER BY id")
         rows = cur.fetchall()
         names = ["id", "recording_id", "seq", "start_sample", "stop_sample", "start_s", "stop_s"]
         return {n: [r[i] for r in rows] for i, n in enumerate(names)}
@@ -554,6 +572,37 @@ class Store:
         for r in rows:
             r["names"] = json.loads(r["names"])
         return rows
+
+    def remove_recording(self, recording_id: int, annotator: str) -> dict[str, Any]:
+        """Take a recording out of the project in one transaction: its signal and features are
+        deleted (overwritten on disk: secure_delete), its row and windows stay, marked removed, so
+        the label history keeps naming them. Its content hash is set aside, so the same file may be
+        added again (under another name). Returns the recording's row as it was."""
+        with self.atomic():
+            row = self.conn.execute("SELECT id, name, content_hash, removed_at FROM recordings "
+                                    "WHERE id = ?", (recording_id,)).fetchone()
+            if row is None or row[3] is not None:
+                raise StoreError(f"no recording {recording_id} in the project; list them with "
+                                 "`labeler recording list`")
+            self.conn.execute("PRAGMA secure_delete = ON")
+            try:
+                self.conn.execute("DELETE FROM signal_chunks WHERE recording_id = ?", (recording_id,))
+                self.conn.execute("DELETE FROM features WHERE recording_id = ?", (recording_id,))
+            finally:
+                self.conn.execute("PRAGMA secure_delete = OFF")
+            self.conn.execute(
+                "UPDATE recordings SET removed_at = ?, removed_by = ?, content_hash = ? WHERE id = ?",
+                (utc_now(), annotator, f"removed:{recording_id}:{row[2]}", recording_id))
+        return {"id": row[0], "name": row[1], "content_hash": row[2]}
+
+    def set_person(self, recording_id: int, person: str | None) -> None:
+        """Who wore the sensor of a recording (None: not known)."""
+        with self.atomic():
+            cur = self.conn.execute("UPDATE recordings SET person = ? WHERE id = ? AND removed_at "
+                                    "IS NULL", (person, recording_id))
+            if cur.rowcount != 1:
+                raise StoreError(f"no recording {recording_id} in the project; list them with "
+                                 "`labeler recording list`")
 
     # ------------------------------------------------------------------ classes
     def classes(self, include_retired: bool = True) -> list[dict[str, Any]]:
@@ -706,20 +755,32 @@ class Store:
             sql += " WHERE " + " AND ".join(clause for clause, _ in used)
         return [dict(r) for r in self.db.query(sql + " ORDER BY id", [v for _, v in used])]
 
-    def current_labels(self) -> list[tuple[int, int, str, str, str]]:
-        """(window_id, class_id, annotator, at, source) of every labeled window."""
+    def current_labels(self, include_removed: bool = False) -> list[tuple[int, int, str, str, str]]:
+        """(window_id, class_id, annotator, at, source) of every labeled window (of the recordings
+        in the project; labels of removed recordings stay in the tables and the history)."""
         return self.conn.execute(
-            "SELECT window_id, class_id, annotator, at, source FROM current_labels "
-            "ORDER BY window_id").fetchall()
-
-    def annotations(self) -> list[tuple[int, str, int]]:
-        return self.conn.execute(
-            "SELECT window_id, annotator, class_id FROM annotations ORDER BY window_id, annotator"
+            "SELECT window_id, class_id, annotator, at, source FROM current_labels"
+            + ("" if include_removed else f" WHERE {_LIVE_WINDOW}") + " ORDER BY window_id"
         ).fetchall()
 
-    def replay(self) -> tuple[dict[tuple[int, str], int], dict[int, int]]:
-        """Recompute (annotations, current labels) from the events alone, without touching tables."""
-        return replay_events(self.conn)
+    def annotations(self, include_removed: bool = False) -> list[tuple[int, str, int]]:
+        return self.conn.execute(
+            "SELECT window_id, annotator, class_id FROM annotations"
+            + ("" if include_removed else f" WHERE {_LIVE_WINDOW}")
+            + " ORDER BY window_id, annotator").fetchall()
+
+    def replay(self, include_removed: bool = False
+               ) -> tuple[dict[tuple[int, str], int], dict[int, int]]:
+        """Recompute (annotations, current labels) from the events alone, without touching tables
+        (of the windows :meth:`annotations` and :meth:`current_labels` return)."""
+        ann, current = replay_events(self.conn)
+        if include_removed:
+            return ann, current
+        live = {r[0] for r in self.conn.execute(
+            "SELECT w.id FROM windows w JOIN recordings r ON r.id = w.recording_id "
+            "WHERE r.removed_at IS NULL")}
+        return ({k: c for k, c in ann.items() if k[0] in live},
+                {w: c for w, c in current.items() if w in live})
 
     # ------------------------------------------------------------------ runs and results
     def add_run(self, kind: str, params: dict, summary: dict, created_by: str = "") -> int:

@@ -199,8 +199,10 @@ def _utc_option(value: str | None, option: str) -> str | None:
 
 @cli.command("history")
 @project_argument
-@click.option("--annotator", "who", default=None, metavar="NAME", help="Only events of NAME.")
-@click.option("--class", "class_name", default=None, metavar="NAME", help="Only events of NAME.")
+@click.option("--annotator", "-a", "who", default=None, metavar="NAME",
+              help="Only events of annotator NAME (the name labels were made with, -a NAME).")
+@click.option("--class", "class_name", default=None, metavar="NAME",
+              help="Only events of class NAME.")
 @click.option("--source", default=None, metavar="SOURCE",
               help="Only events made through SOURCE (map, timeline, queue, audit, import, cli, api, "
                    "class-merge, undo).")
@@ -230,13 +232,12 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last, 
         if len(h) == 0:
             click.echo("no events match")
             return
-        w = p.windows().set_index("id")
+        names = p.window_names()
         # annotator: whose label the event set; by: who acted (differs for undo and class merges)
         rows = [("event", "at (UTC)", "annotator", "by", "action", "window", "class", "source",
                  "batch")]
         for ev in h.itertuples(index=False):
-            win = (f"{w.at[ev.window_id, 'recording']}#{int(w.at[ev.window_id, 'seq'])}"
-                   if ev.window_id in w.index else str(ev.window_id))
+            win = names.get(ev.window_id, str(ev.window_id))
             label = "-" if ev.class_id is None or ev.class_id != ev.class_id else str(ev[6])
             rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator,
                          ev.by if isinstance(ev.by, str) else "?", ev.action, win, label, ev.source,

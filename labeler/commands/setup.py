@@ -8,8 +8,8 @@ from pathlib import Path
 
 import click
 
-from labeler.commands.base import (UserError, _open, _progress_bar, annotator_option, cli,
-                                   project_argument)
+from labeler.commands.base import (UserError, _Group, _open, _progress_bar, annotator_option,
+                                   cli, project_argument)
 from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S
 
 
@@ -59,9 +59,11 @@ def new_cmd(project, window_s, step_s, annotator):
               help="Read and check the files and print what was found; write nothing.")
 @click.option("--save-profile", default=None, metavar="FILE",
               help="Write the reading options in effect to FILE as a device profile.")
+@click.option("--person", default=None, metavar="ID",
+              help="Who wore the sensors (exported for splits by person).")
 @annotator_option
 def add_cmd(project, files, profile_path, column_maps, time_column, time_unit, time_format, tz,
-            skip_rows, rate, acc_unit, gyr_unit, dry_run, save_profile, annotator):
+            skip_rows, rate, acc_unit, gyr_unit, dry_run, save_profile, person, annotator):
     """Add recording files (CSV, CSV.GZ or Parquet; globs allowed) to a project: all or none."""
     from labeler.profiles import (ReadOptions, check_options, check_profile_path, load_profile,
                                   parse_column_options)
@@ -78,7 +80,7 @@ def add_cmd(project, files, profile_path, column_maps, time_column, time_unit, t
     with _open(project, annotator, readonly=dry_run) as p:
         bar, progress = _progress_bar("reading" if dry_run else "adding")
         with bar:
-            added = p.add_recordings(paths, progress=progress, dry_run=dry_run,
+            added = p.add_recordings(paths, progress=progress, dry_run=dry_run, person=person,
                                      **options.as_kwargs())
         for a in added:
             verb = "would add" if dry_run else "added"
@@ -159,12 +161,90 @@ def _print_status(p) -> None:
                f"(feature set {s.feature_set_version})")
     click.echo(f"  {s.confirmed} window(s) confirmed"
                + (f" by {', '.join(s.annotators)}" if s.annotators else ""))
+    recs = p.recordings()
+    if len(recs):
+        click.echo("  recordings:")
+        width = max(len(n) for n in recs["name"])
+        for r in recs.itertuples(index=False):
+            start = f", from {r.start_time[:19].replace('T', ' ')} UTC" if isinstance(
+                r.start_time, str) else ""
+            who = f", person {r.person}" if isinstance(r.person, str) else ""
+            click.echo(f"    {r.name:<{width}}  {r.n_samples / r.rate / 60:7.1f} min at "
+                       f"{r.rate:g} Hz{start}{who}")
     counts = s.counts
     if len(counts):
         width = max(len(c) for c in counts["class"])
         for _, row in counts.iterrows():
             mark = " (retired)" if row["retired"] else ""
             click.echo(f"    {row['class']:<{width}}  {row['confirmed']:>6} confirmed{mark}")
+
+
+@cli.group("recording", cls=_Group)
+def recording_group():
+    """List and remove recordings, say who wore them (the label history is kept)."""
+
+
+@recording_group.command("list")
+@project_argument
+@click.option("--removed", is_flag=True, help="Show removed recordings too.")
+def recording_list_cmd(project, removed):
+    """The recordings: length, rate, windows, confirmed windows, person, start, source file."""
+    with _open(project, readonly=True) as p:
+        recs = p.recordings(include_removed=removed)
+        w = p.windows()
+        lab = p.labels()
+    confirmed = w[w["id"].isin(lab["window_id"])].groupby("recording_id").size()
+    n_windows = w.groupby("recording_id").size()
+    rows = [("recording", "minutes", "rate", "windows", "confirmed", "person", "start", "file")]
+    for r in recs.itertuples(index=False):
+        gone = isinstance(r.removed_at, str)
+        rows.append((r.name, f"{r.n_samples / r.rate / 60:.1f}", f"{r.rate:g}",
+                     "-" if gone else str(int(n_windows.get(r.id, 0))),
+                     "-" if gone else str(int(confirmed.get(r.id, 0))),
+                     r.person if isinstance(r.person, str) else "-",
+                     r.start_time[:19] if isinstance(r.start_time, str) else "-",
+                     str(r.source_path) + (f"  (removed {r.removed_at[:19]} by {r.removed_by})"
+                                           if gone else "")))
+    if len(rows) == 1:
+        click.echo("no recordings yet; add them with `labeler add PROJECT FILES`")
+        return
+    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+    for row in rows:
+        click.echo("  ".join(v.ljust(n) for v, n in zip(row, widths)).rstrip())
+
+
+@recording_group.command("remove")
+@project_argument
+@click.argument("recording")
+@click.option("--yes", is_flag=True, help="Remove it: its signal and features are deleted.")
+@annotator_option
+def recording_remove_cmd(project, recording, yes, annotator):
+    """Take a recording out of the project. Its label events stay in the history; its windows
+    leave proposals, the queue, audits, the map and exports; its signal and features are deleted
+    from the project file (backups made before keep them)."""
+    with _open(project, annotator, readonly=not yes) as p:
+        rid = p.recording_id(recording)
+        name = p.recordings().set_index("id").loc[rid, "name"]
+        if not yes:
+            raise UserError(f"removing {name} deletes its signal and features from the project "
+                            "file (its label events stay in the history); add --yes to remove it")
+        out = p.remove_recording(rid)
+    click.echo(f"removed {out.name}: {out.windows} window(s), {out.confirmed} confirmed; its label "
+               "events stay in the history")
+    click.echo("  its windows are out of proposals, the queue, audits, the map and exports; run "
+               "`labeler propose` to spread labels without it")
+
+
+@recording_group.command("person")
+@project_argument
+@click.argument("recording")
+@click.argument("person")
+@annotator_option
+def recording_person_cmd(project, recording, person, annotator):
+    """Say who wore the sensors of RECORDING (exported for splits by person)."""
+    with _open(project, annotator) as p:
+        p.set_person(recording, person)
+    click.echo(f"{recording}: person {person}")
 
 
 @cli.command("backup")

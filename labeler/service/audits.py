@@ -35,7 +35,9 @@ class Audits:
     def open_windows(self) -> np.ndarray:
         """Windows drawn into an audit and not answered yet."""
         lab = set(self.ledger.labels()["window_id"].tolist())
-        return np.array(sorted(set(self.ctx.store.audited_window_ids()) - lab), dtype=np.int64)
+        live = set(self.catalog.windows()["id"].tolist())
+        return np.array(sorted((set(self.ctx.store.audited_window_ids()) & live) - lab),
+                        dtype=np.int64)
 
     def draw(self, n: int = 30, *, random_state=None) -> pd.DataFrame:
         """Draw a uniformly random sample of ``n`` proposed, unconfirmed windows for an audit.
@@ -74,6 +76,7 @@ class Audits:
         """Every audited window: window_id, run_id, proposed (at draw time), confidence, answer
         (its current label, None while unanswered), correct."""
         df = pd.DataFrame(self.ctx.store.audits(), columns=AUDIT_COLUMNS)
+        df = df[df["window_id"].isin(self.catalog.windows()["id"])]  # not of removed recordings
         lab = self.ledger.labels()
         cur = dict(zip(lab["window_id"], lab["class_id"]))
         names = self.ledger.class_names()

@@ -6,7 +6,9 @@ the project as it was.
 
 from __future__ import annotations
 
+import contextlib
 import os
+import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
@@ -16,7 +18,8 @@ import pandas as pd
 
 from labeler import features as _features
 from labeler.errors import InputError, ProjectError
-from labeler.recordings import Recording, read_recording
+from labeler.recordings import Recording, conform_channels, read_recording
+from labeler.results import RemovedRecording
 from labeler.service.context import Context, Progress
 from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
 from storage import StoreError
@@ -24,7 +27,7 @@ from storage import StoreError
 CHUNK_SECONDS = 60.0
 RECORDING_COLUMNS = ["id", "name", "source_path", "content_hash", "rate", "channels", "units",
                      "n_samples", "start_time", "added_at", "added_by", "repairs", "window_length",
-                     "window_step"]
+                     "window_step", "person", "removed_at", "removed_by"]
 
 
 @dataclass
@@ -75,14 +78,26 @@ class Catalog:
         return recs
 
     def add(self, recordings: Sequence[Recording], *, progress: Progress | None = None,
-            offset: float = 0.0, dry_run: bool = False) -> list[AddedRecording]:
+            offset: float = 0.0, dry_run: bool = False, person: str | None = None
+            ) -> list[AddedRecording]:
         """Add already-read recordings in one transaction: all of them or none (``dry_run``: check
-        them and write nothing)."""
+        them and write nothing; ``person``: who wore the sensors, for grouped splits)."""
+        if person is not None:
+            person = check_person(person)
         store = self.ctx.store
-        existing = {r["content_hash"]: r["name"] for r in store.recordings()}
-        names = {r["name"] for r in store.recordings()}
+        live = store.recordings()
+        existing = {r["content_hash"]: r["name"] for r in live}
+        names = {r["name"] for r in live}
+        removed = {r["name"] for r in store.recordings(include_removed=True)} - names
+        # one channel set per project: features of different channels cannot be compared
+        channels = list(live[0]["channels"]) if live else (
+            list(recordings[0].channels) if recordings else [])
+        recordings = [conform_channels(rec, channels) for rec in recordings]
         seen: dict[str, str] = {}
         for rec in recordings:
+            if rec.name in removed:
+                raise InputError(f"{rec.source_path}: a recording named {rec.name!r} was removed "
+                                 "from the project; rename the file to add it again; nothing added")
             if rec.content_hash in existing:
                 raise InputError(f"{rec.source_path}: already in the project as recording "
                                  f"{existing[rec.content_hash]!r} (same content); nothing added")
@@ -108,7 +123,7 @@ class Catalog:
         try:
             with store.atomic():
                 for rec, (row, chunks, wins, feats) in zip(recordings, prepared):
-                    rid = store.add_recording(row, chunks, wins, feats)
+                    rid = store.add_recording(dict(row, person=person), chunks, wins, feats)
                     added.append(AddedRecording(rid, rec.name, rec.n_samples, rec.rate,
                                                 len(wins["seq"]), rec.duration_s, rec.repairs,
                                                 rec.notes, rec))
@@ -150,8 +165,40 @@ class Catalog:
         return row, chunks, wins, feats
 
     # ------------------------------------------------------------------ recordings
-    def recordings(self) -> pd.DataFrame:
-        return pd.DataFrame(self.ctx.store.recordings(), columns=RECORDING_COLUMNS)
+    def recordings(self, include_removed: bool = False) -> pd.DataFrame:
+        """The recordings in the project (and removed ones, with ``removed_at``, if asked)."""
+        return pd.DataFrame(self.ctx.store.recordings(include_removed=include_removed),
+                            columns=RECORDING_COLUMNS)
+
+    def remove(self, name_or_id: str | int, confirmed: int) -> RemovedRecording:
+        """Take a recording out of the project (see :meth:`labeler.project.Project.remove_recording`);
+        ``confirmed`` is how many of its windows carry a current label (for the report)."""
+        rid = self.recording_id(name_or_id)
+        n_windows = int((self.windows()["recording_id"] == rid).sum())
+        try:
+            row = self.ctx.store.remove_recording(rid, self.ctx.annotator)
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+        self.ctx.invalidate()
+        with contextlib.suppress(sqlite3.Error):  # best effort: readers may hold the old pages
+            self.ctx.store.conn.execute("PRAGMA wal_checkpoint(PASSIVE)")
+        return RemovedRecording(id=rid, name=row["name"], windows=n_windows, confirmed=confirmed)
+
+    def window_names(self) -> pd.Series:
+        """"<recording>#<number>" of every window, removed recordings' included (marked
+        " (removed)"), indexed by window id: what the label history names."""
+        cols = self.ctx.store.windows_columns(include_removed=True)
+        recs = self.recordings(include_removed=True).set_index("id")
+        rid = pd.Series(cols["recording_id"])
+        names = rid.map(recs["name"]) + "#" + pd.Series(cols["seq"]).astype(str)
+        gone = rid.map(recs["removed_at"].notna()).fillna(False).astype(bool)
+        names[gone] = names[gone] + " (removed)"
+        return pd.Series(names.to_numpy(), index=pd.Index(cols["id"], name="window_id"))
+
+    def set_person(self, name_or_id: str | int, person: str | None) -> None:
+        """Who wore the sensor of a recording (None: unknown)."""
+        self.ctx.store.set_person(self.recording_id(name_or_id),
+                                  None if person is None else check_person(person))
 
     def recording_id(self, name_or_id: str | int) -> int:
         recs = self.recordings()
@@ -255,3 +302,10 @@ class Catalog:
             jumps = np.where(np.diff(start[idx]) == step, 1, 2)
             seq[idx] = np.concatenate([[0], np.cumsum(jumps)])
         return rid, seq
+
+
+def check_person(person: str) -> str:
+    text = str(person).strip()
+    if not text or len(text) > 60 or not text.isprintable():
+        raise InputError(f"--person {person!r}: give 1-60 printable characters")
+    return text

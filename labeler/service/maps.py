@@ -104,7 +104,9 @@ class Maps:
                                    "y": np.empty(0, np.float32)})
             else:
                 _, ids, coords, _ = latest
-                df = pd.DataFrame({"window_id": ids, "x": coords[:, 0], "y": coords[:, 1]})
+                keep = np.isin(ids, self.catalog.windows()["id"].to_numpy())  # not removed ones
+                df = pd.DataFrame({"window_id": ids[keep], "x": coords[keep, 0],
+                                   "y": coords[keep, 1]})
             cache["map"] = df
         return cache["map"].copy()
 
