@@ -27,6 +27,12 @@ back its label: an imported interval labels the windows whose centre lies inside
 carries the number of windows, how many of them were confirmed, and the lowest and mean confidence
 inside.
 
+**Grouped splits**: every window row also carries ``person`` (who wore the sensor; the recording's
+name when the project does not know), ``bout`` (the number of its segment: consecutive windows of one
+label) and ``recording_file`` (the file it was read from), because overlapping windows leak across a
+random train/test split (:mod:`labeler.training`). On request the rows carry the window's features
+(one named column each, ``--features``) and the window signals go to ``signals.npz`` (``--signal``).
+
 **Manifest** (JSON): tool and feature-set versions, window settings, the proposal run's parameters,
 content hashes of the recordings, counts per class and status and confirmation source, the selection
 made, the accuracy estimate with its interval and what it rests on (or ``null`` with the reason), and
@@ -55,6 +61,7 @@ import pandas as pd
 
 from labeler.errors import InputError, ValueInputError
 from labeler.results import ExportReport
+from labeler.training import GROUPED_SPLITS, bout_ids, window_signals
 
 MANIFEST_FORMAT = "labeler-export/1"
 FORMATS = ("csv", "parquet")
@@ -67,7 +74,8 @@ WINDOW_COLUMNS = ["recording", "window", "window_id", "start_s", "end_s", "start
                   "label", "status", "confidence", "margin", "annotator", "confirmed_at", "source",
                   "retired"]
 SEGMENT_COLUMNS = ["recording", "start", "end", "label", "start_utc", "end_utc", "windows",
-                   "confirmed", "confidence_min", "confidence_mean", "retired"]
+                   "confirmed", "confidence_min", "confidence_mean", "retired", "bout"]
+GROUP_COLUMNS = ["person", "bout", "recording_file"]
 
 
 # --------------------------------------------------------------------------- window rows
@@ -150,13 +158,7 @@ def segments(table: pd.DataFrame, geometry: Mapping[str, tuple[float, float]]) -
     length = t["recording"].map(lambda r: geometry[r][0]).to_numpy(float)
     step = t["recording"].map(lambda r: geometry[r][1]).to_numpy(float)
     start = t["start_s"].to_numpy(float)
-    rec = t["recording"].to_numpy()
-    lab = t["label"].to_numpy()
-    new = np.ones(len(t), dtype=bool)
-    if len(t) > 1:
-        follows = np.abs(start[1:] - start[:-1] - step[1:]) <= 1e-6 * np.maximum(1.0, step[1:])
-        new[1:] = ~((rec[1:] == rec[:-1]) & (lab[1:] == lab[:-1]) & follows)
-    seg = np.cumsum(new) - 1
+    seg = bout_ids(t["recording"].to_numpy(), t["label"].to_numpy(), start, step)
     centre = start + length / 2
     t["_seg"] = seg
     t["_a"] = centre - step / 2
@@ -177,6 +179,7 @@ def segments(table: pd.DataFrame, geometry: Mapping[str, tuple[float, float]]) -
         "confidence_min": g["confidence"].min(),
         "confidence_mean": g["confidence"].mean(),
         "retired": g["retired"].first().astype(bool),
+        "bout": pd.Series(np.unique(seg), index=np.unique(seg)).astype("int64"),
     })
     return out[SEGMENT_COLUMNS].reset_index(drop=True)
 
@@ -184,7 +187,7 @@ def segments(table: pd.DataFrame, geometry: Mapping[str, tuple[float, float]]) -
 _SEGMENT_DTYPES = {"recording": object, "start": float, "end": float, "label": object,
                    "start_utc": "datetime64[ns, UTC]", "end_utc": "datetime64[ns, UTC]",
                    "windows": "int64", "confirmed": "int64", "confidence_min": float,
-                   "confidence_mean": float, "retired": bool}
+                   "confidence_mean": float, "retired": bool, "bout": "int64"}
 
 
 # --------------------------------------------------------------------------- manifest
@@ -232,7 +235,7 @@ def build_manifest(*, tool_version: str, created_at: str, created_by: str, proje
 
 def check_request(folder: str | os.PathLike, *, fmt: str, min_confidence: float | None,
                   classes: Iterable[str] | None, known_classes: Iterable[str],
-                  overwrite: bool) -> tuple[dict[str, Path], list[str] | None]:
+                  overwrite: bool, signal: bool = False) -> tuple[dict[str, Path], list[str] | None]:
     """Check export options before anything is read or written. Returns the target files
     (windows, segments, manifest) and the selected classes spelt as in the project."""
     if fmt not in FORMATS:
@@ -254,6 +257,8 @@ def check_request(folder: str | os.PathLike, *, fmt: str, min_confidence: float 
         raise InputError(f"{folder}: folder {folder.parent} does not exist; create it first")
     targets = {"windows": folder / f"windows.{fmt}", "segments": folder / f"segments.{fmt}",
                "manifest": folder / "manifest.json"}
+    if signal:
+        targets["signals"] = folder / "signals.npz"
     if not overwrite:
         for p in targets.values():
             if p.exists():
@@ -277,6 +282,8 @@ class ExportInputs:
     feature_set_version: str
     window_length_s: float
     window_step_s: float
+    features: tuple[np.ndarray, list[str]] | None = None  # X in the row order of ``windows``
+    signal_of: Callable[[str], np.ndarray] | None = None  # recording name -> its whole signal
 
 
 def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt: str,
@@ -301,13 +308,35 @@ def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt
                          "selection (confirmed only, minimum confidence, classes); loosen it")
     geometry = {r["name"]: (r["window_length"] / r["rate"], r["window_step"] / r["rate"])
                 for _, r in recs.iterrows()}
+    table = add_group_columns(table, geometry, recs)
     segs = segments(table, geometry)
+    signals = None
+    if "signals" in targets:
+        if inputs.signal_of is None:
+            raise InputError(f"{where}: the window signals cannot be read; export without --signal")
+        rows = table[["recording", "window_id"]].merge(
+            inputs.windows[["id", "start_sample", "stop_sample"]].rename(columns={"id": "window_id"}),
+            on="window_id", how="left")
+        signals = window_signals(inputs.signal_of, rows, dict(zip(recs["name"], recs["rate"])),
+                                 dict(zip(recs["name"], recs["channels"])))
+    feature_names = None
+    if inputs.features is not None:
+        X, feature_names = inputs.features
+        pos = pd.Index(inputs.windows["id"]).get_indexer(table["window_id"])
+        table = pd.concat([table, pd.DataFrame(X[pos], columns=feature_names)], axis=1)
     Path(targets["windows"]).parent.mkdir(exist_ok=True)
     files = {}
     for kind, frame in (("windows", table), ("segments", segs)):
         digest = write_table(frame, targets[kind], fmt)
         files[kind] = {"name": Path(targets[kind]).name, "format": fmt, "rows": int(len(frame)),
                        "sha256": digest}
+    if signals is not None:
+        files["signals"] = {"name": Path(targets["signals"]).name, "format": "npz",
+                            "rows": int(len(table)), "sha256": write_npz(signals, targets["signals"]),
+                            "arrays": {"window_id": "window ids, in the row order of the windows "
+                                                    "table", "signal": "float32 (windows, samples, "
+                                                    "channels), canonical units (g, deg/s)",
+                                       "channels": "channel names", "rate_hz": "sampling rate"}}
     names = {c["id"]: c["name"] for c in inputs.classes}
     manifest = build_manifest(
         tool_version=tool_version, created_at=created_at, created_by=created_by,
@@ -316,6 +345,7 @@ def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt
                          "segment_rule": "each window stands for the step-long span around "
                                          "its centre; segments join those spans"},
         recordings=[{"name": r["name"], "content_hash": r["content_hash"],
+                     "source_path": r["source_path"], "person": _person(r),
                      "rate_hz": float(r["rate"]), "n_samples": int(r["n_samples"]),
                      "duration_s": float(r["n_samples"] / r["rate"]),
                      "start_time": start_times[r["name"]], "channels": list(r["channels"]),
@@ -331,10 +361,38 @@ def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt
                    "classes": classes},
         proposals=inputs.proposal_params, accuracy=inputs.accuracy,
         accuracy_absent=inputs.accuracy_absent, table=table, files=files)
+    manifest["features"] = (None if feature_names is None else
+                            {"columns": list(feature_names),
+                             "set_version": inputs.feature_set_version})
+    manifest["grouped_splits"] = {
+        "why": GROUPED_SPLITS, "group_columns": ["person", "recording", "bout"],
+        "person_known": bool(recs["person"].notna().all()) if "person" in recs else False,
+        "python": "labeler.training.read_training_set(folder) -> (X, y, groups) for "
+                  "sklearn.model_selection.GroupKFold"}
     manifest = json_ready(manifest)
     write_json(manifest, targets["manifest"])
     return ExportReport(files={k: str(v) for k, v in targets.items()}, windows=int(len(table)),
                         segments=int(len(segs)), manifest=manifest)
+
+
+def add_group_columns(table: pd.DataFrame, geometry: Mapping[str, tuple[float, float]],
+                      recordings: pd.DataFrame) -> pd.DataFrame:
+    """The window rows with :data:`GROUP_COLUMNS`: person (the recording's name when not known),
+    bout (the number of the row's segment, see :func:`segments`) and recording_file."""
+    t = table.sort_values(["recording", "start_s", "window"], kind="stable").reset_index(drop=True)
+    by_name = recordings.set_index("name")
+    persons = {n: _person(r) or n for n, r in by_name.iterrows()}
+    step = t["recording"].map(lambda r: geometry[r][1]).to_numpy(float)
+    t["person"] = t["recording"].map(persons)
+    t["bout"] = bout_ids(t["recording"].to_numpy(), t["label"].to_numpy(),
+                         t["start_s"].to_numpy(float), step).astype("int64")
+    t["recording_file"] = t["recording"].map(by_name["source_path"])
+    return t
+
+
+def _person(row) -> str | None:
+    value = row.get("person") if hasattr(row, "get") else None
+    return value if isinstance(value, str) and value else None
 
 
 # --------------------------------------------------------------------------- writing
@@ -368,6 +426,14 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, fmt: str) -> str:
     if fmt == "parquet":
         return write_atomic(path, lambda p: table.to_parquet(p, index=False, engine="pyarrow"))
     raise ValueInputError(f"unknown format {fmt!r}; use one of {', '.join(FORMATS)}")
+
+
+def write_npz(arrays: Mapping[str, np.ndarray], path: str | os.PathLike) -> str:
+    """Write NumPy arrays to one compressed .npz file atomically; returns its SHA-256."""
+    def write(p: Path) -> None:
+        with open(p, "wb") as fh:  # a file object: np.savez adds no suffix to it
+            np.savez_compressed(fh, **arrays)
+    return write_atomic(path, write)
 
 
 def write_json(obj: Any, path: str | os.PathLike) -> str:

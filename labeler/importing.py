@@ -21,7 +21,7 @@ Overlapping intervals of one annotator with different labels contradict each oth
 intervals of different annotators may overlap (several people labeling the same stretch).
 
 The columns that ``labeler export`` writes to a segments file besides recording, start, end and label
-(start_utc, end_utc, windows, confirmed, confidence_min, confidence_mean, retired) are accepted and
+(start_utc, end_utc, windows, confirmed, confidence_min, confidence_mean, retired, bout) are accepted and
 not used, so an exported segments file imports as it is.
 """
 
@@ -43,7 +43,7 @@ REQUIRED = ("recording", "start", "end", "label")
 OPTIONAL = ("annotator", "note")
 #: written by `labeler export` into segments files; read past on import
 EXPORT_EXTRAS = ("start_utc", "end_utc", "windows", "confirmed", "confidence_min", "confidence_mean",
-                 "retired")
+                 "retired", "bout")
 
 
 @dataclass

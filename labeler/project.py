@@ -323,13 +323,17 @@ class Project:
     # ------------------------------------------------------------------ export
     def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
                min_confidence: float | None = None, classes: Sequence[str] | None = None,
-               overwrite: bool = False) -> ExportReport:
+               overwrite: bool = False, features: bool = False,
+               signal: bool = False) -> ExportReport:
         """Write the training set to ``folder``: ``windows.<fmt>``, ``segments.<fmt>`` and
         ``manifest.json`` (see :mod:`labeler.exporting`), each file atomically, the manifest last.
+        Window rows carry person, bout and recording_file for grouped splits; ``features`` adds
+        one named column per feature, ``signal`` writes the window signals to ``signals.npz``.
+        :func:`labeler.training.read_training_set` reads such a folder as (X, y, groups).
         """
         return self._exporter.export(folder, fmt=fmt, confirmed_only=confirmed_only,
                                      min_confidence=min_confidence, classes=classes,
-                                     overwrite=overwrite)
+                                     overwrite=overwrite, features=features, signal=signal)
 
     # ------------------------------------------------------------------ proposals
     def refresh_proposals(self, *, alpha: float | None = None, n_neighbors: int = 10,

@@ -64,7 +64,7 @@ def test_window_rows_carry_provenance_and_utc(project, tmp_path):
     project.confirm([win(project, "beta", 3)], "standing", source="queue", create_class=True)
     out = project.export(tmp_path / "out")
     t = pd.read_csv(out.files["windows"], keep_default_na=False)
-    assert list(t.columns) == ex.WINDOW_COLUMNS
+    assert list(t.columns) == ex.WINDOW_COLUMNS + ex.GROUP_COLUMNS
     assert list(t["recording"]) == ["alpha"] * 3 + ["beta"]
     assert list(t["window"]) == [0, 1, 2, 3]
     # alpha has no clock time: UTC columns are empty; beta's first sample is at START

@@ -18,19 +18,30 @@ from labeler.commands.base import _open, _progress_bar, annotator_option, cli, p
 @click.option("--class", "classes", multiple=True, metavar="NAME",
               help="Only this class (repeat for several).")
 @click.option("--overwrite", is_flag=True, help="Replace an earlier export in FOLDER.")
+@click.option("--features", is_flag=True,
+              help="Add each window's features (one named column each) to the window rows.")
+@click.option("--signal", is_flag=True,
+              help="Write the window signals to signals.npz (one sampling rate needed).")
 @annotator_option
-def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, overwrite, annotator):
-    """Write the training set to FOLDER: windows, merged segments and a manifest (JSON)."""
+def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, overwrite, features,
+               signal, annotator):
+    """Write the training set to FOLDER: windows, merged segments and a manifest (JSON).
+
+    Window rows carry person, recording and bout: split by them (e.g. GroupKFold), since
+    overlapping windows leak across a random train/test split."""
     with _open(project, annotator) as p:
         out = p.export(folder, fmt=fmt, confirmed_only=confirmed_only,
                        min_confidence=min_confidence, classes=list(classes) or None,
-                       overwrite=overwrite)
+                       overwrite=overwrite, features=features, signal=signal)
     m = out.manifest
     by = m["counts"]["by_status"]
     click.echo(f"wrote {out.windows} window(s) ({by['confirmed']} confirmed, {by['proposed']} "
                f"proposed) and {out.segments} segment(s) to {folder}")
-    for kind in ("windows", "segments", "manifest"):
-        click.echo(f"  {out.files[kind]}")
+    for kind in ("windows", "segments", "signals", "manifest"):
+        if kind in out.files:
+            click.echo(f"  {out.files[kind]}")
+    click.echo("  split by person, recording or bout (columns of the window rows), never at "
+               "random: overlapping windows leak across a random split")
     click.echo("  accuracy estimate: " + _accuracy_line(m))
     if by["proposed"]:
         click.echo("  proposed labels are suggestions; a qualified person reviews them before use")

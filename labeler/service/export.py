@@ -30,15 +30,23 @@ class Exporter:
 
     def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
                min_confidence: float | None = None, classes: Sequence[str] | None = None,
-               overwrite: bool = False) -> ExportReport:
+               overwrite: bool = False, features: bool = False,
+               signal: bool = False) -> ExportReport:
         """Write ``windows.<fmt>``, ``segments.<fmt>`` and ``manifest.json`` to ``folder``, each file
-        atomically, the manifest last (see :mod:`labeler.exporting`)."""
+        atomically, the manifest last (see :mod:`labeler.exporting`); with ``features`` the window
+        rows carry their features, with ``signal`` the window signals go to ``signals.npz``."""
+        from dataclasses import replace
+
         from storage.store import utc_now
 
         targets, classes = exporting.check_request(
             folder, fmt=fmt, min_confidence=min_confidence, classes=classes,
-            known_classes=self.ledger.classes()["name"], overwrite=overwrite)
+            known_classes=self.ledger.classes()["name"], overwrite=overwrite, signal=signal)
         inputs = self.snapshot()
+        if features:
+            inputs = replace(inputs, features=self.catalog.features())
+        if signal:
+            inputs = replace(inputs, signal_of=lambda name: self.catalog.signal(name)[1])
         return exporting.write_training_set(
             inputs, targets, fmt=fmt, confirmed_only=confirmed_only,
             min_confidence=min_confidence, classes=classes, tool_version=labeler.__version__,
