@@ -24,6 +24,23 @@ def main(argv=None):
     except KeyboardInterrupt:
         click.echo("interrupted; nothing half-written (every write is one transaction)", err=True)
         sys.exit(130)
+    except BrokenPipeError:  # the reader of our output went away; so do we, quietly
+        _quiet_stdout()
+        sys.exit(0)
+    finally:
+        try:
+            sys.stdout.flush()
+        except BrokenPipeError:  # the last lines found no reader: nothing to say about it
+            _quiet_stdout()
+
+
+def _quiet_stdout() -> None:
+    """Point stdout at the null device, so the interpreter's last flush finds no closed pipe."""
+    import os
+
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
+    os.close(devnull)
 
 
 if __name__ == "__main__":  # pragma: no cover

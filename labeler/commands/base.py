@@ -3,6 +3,7 @@ progress bars and the common options."""
 
 from __future__ import annotations
 
+import errno
 import sqlite3
 import sys
 
@@ -27,9 +28,12 @@ class _Group(click.Group):
         try:
             return super().invoke(ctx)
         except click.UsageError as exc:
-            # click would print usage, a hint and the error on three lines: one line instead
-            where = exc.ctx.command_path if exc.ctx is not None else ctx.command_path
-            raise UserError(_one_line(f"{exc.format_message()}; see `{where} --help`")) from None
+            # click would print usage, a hint and the error on three lines: one line instead,
+            # with the usage of the command that was mistyped
+            at = exc.ctx if exc.ctx is not None else ctx
+            usage = _one_line(at.get_usage()).replace("Usage: ", "usage: ", 1)
+            raise UserError(_one_line(f"{exc.format_message().rstrip('.')}; {usage}; see "
+                                      f"`{at.command_path} --help`")) from None
         except (LabelerError, StoreError) as exc:
             raise UserError(_one_line(str(exc))) from None
         except sqlite3.DatabaseError as exc:  # a project file damaged past what opening checks
@@ -37,6 +41,8 @@ class _Group(click.Group):
             raise UserError(_one_line(f"{name}: the project file cannot be read ({exc}); restore it "
                                       "from a backup")) from None
         except OSError as exc:
+            if exc.errno == errno.EPIPE:  # the reader went away (`labeler history P | head`)
+                raise  # click ends quietly
             name = getattr(exc, "filename", None) or ""
             raise UserError(_one_line(f"{name}: {exc.strerror or exc}; check the path and "
                                       "permissions")) from None

@@ -209,7 +209,8 @@ def _utc_option(value: str | None, option: str) -> str | None:
 @click.option("--since", default=None, metavar="TIME", help="Only events at or after TIME (UTC).")
 @click.option("--until", default=None, metavar="TIME", help="Only events at or before TIME (UTC).")
 @click.option("--batch", "batch_id", default=None, metavar="ID", help="Only events of this batch.")
-@click.option("--last", type=int, default=None, metavar="N", help="Only the last N events.")
+@click.option("--last", type=click.IntRange(min=0), default=None, metavar="N",
+              help="Only the last N events.")
 @click.option("--class-log", is_flag=True,
               help="Show the class changes (add, rename, colour, merge, retire) instead.")
 def history_cmd(project, who, class_name, source, since, until, batch_id, last, class_log):

@@ -13,7 +13,7 @@ from labeler.commands.base import _open, _progress_bar, annotator_option, cli, p
 @click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv",
               show_default=True, help="Table format of windows and segments.")
 @click.option("--confirmed-only", is_flag=True, help="Only windows a person confirmed.")
-@click.option("--min-confidence", type=float, default=None, metavar="P",
+@click.option("--min-confidence", type=click.FloatRange(0.0, 1.0), default=None, metavar="P",
               help="Leave out proposed windows whose confidence is below P (0-1).")
 @click.option("--class", "classes", multiple=True, metavar="NAME",
               help="Only this class (repeat for several).")
@@ -60,11 +60,12 @@ def _accuracy_line(manifest: dict) -> str:
 
 @cli.command("propose")
 @project_argument
-@click.option("--alpha", type=float, default=None, metavar="A",
+@click.option("--alpha", type=click.FloatRange(0.0, 1.0, min_open=True, max_open=True),
+              default=None, metavar="A",
               help="Share of a window's scores that comes from its neighbours (0-1, default 0.9).")
-@click.option("--neighbors", type=int, default=10, show_default=True,
+@click.option("--neighbors", type=click.IntRange(1, 1000), default=10, show_default=True,
               help="Nearest neighbours per window in the graph.")
-@click.option("--temporal-weight", type=float, default=None, metavar="W",
+@click.option("--temporal-weight", type=click.FloatRange(0.0, 1e6), default=None, metavar="W",
               help="Weight of the edge between consecutive windows (0 turns it off).")
 @annotator_option
 def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
@@ -87,7 +88,8 @@ def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
 
 @cli.command("queue")
 @project_argument
-@click.option("-n", "n", type=int, default=20, show_default=True, help="How many windows.")
+@click.option("-n", "n", type=click.IntRange(1, 100000), default=20, show_default=True,
+              help="How many windows.")
 @annotator_option
 def queue_cmd(project, n, annotator):
     """Windows to review next, most useful first, with the reason for each."""
@@ -102,7 +104,7 @@ def queue_cmd(project, n, annotator):
 
 @cli.command("audit")
 @project_argument
-@click.option("-n", "n", type=int, default=30, show_default=True,
+@click.option("-n", "n", type=click.IntRange(1, 100000), default=30, show_default=True,
               help="How many windows to draw.")
 @click.option("--status", "show_status", is_flag=True,
               help="Show the audit so far instead of drawing.")
