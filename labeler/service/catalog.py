@@ -307,5 +307,6 @@ class Catalog:
 def check_person(person: str) -> str:
     text = str(person).strip()
     if not text or len(text) > 60 or not text.isprintable():
-        raise InputError(f"--person {person!r}: give 1-60 printable characters")
+        raise InputError(f"person {str(person)[:70]!r} must be 1-60 printable characters; "
+                         "shorten it")
     return text

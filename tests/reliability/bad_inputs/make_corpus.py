@@ -277,6 +277,14 @@ def build(dest: Path) -> list[dict]:
     add("recording", "mapping_missing_column.csv", csv_text(device.assign(time=device["time"] + 2)),
         args=["--column", "ax=wrist_acc_x"], mentions=["'ax'", "--column ax=wrist_acc_x"],
         why="a mapping from a column the file does not have")
+    add("recording", "wrist_only.csv", csv_text(good[["time"] + [c for c in good.columns
+                                                              if c.startswith("wrist")]]),
+        mentions=["lacks the project's channels", "hip_acc_x", "--column"],
+        why="fewer channels than the project's recordings")
+    add("recording", "extra_site.csv", csv_text(good.assign(
+        ankle_acc_x=0.1, ankle_acc_y=0.2, ankle_acc_z=0.97)), expect="repaired",
+        mentions=["left out channels the project does not have: ankle_acc_x"],
+        why="more channels than the project's: the shared ones are kept")
     buf = io.BytesIO()
     naive = good.copy()
     naive["time"] = pd.Timestamp("2026-09-14T06:30:00") + pd.to_timedelta(naive["time"], unit="s")
