@@ -3,7 +3,7 @@
 A body-worn accelerometer that includes gravity reads |acc| = 1 g (9.80665 m/s², 1000 mg) whenever
 the body part is still, so the level of the quietest stretches of a recording says its unit: a file
 whose level is 9.8 in "g" is in m/s², one whose level is 1000 is in mg. The level is the median
-|acc| of the quietest tenth of short blocks (32 samples), robust to motion because even a busy
+|acc| of the quietest tenth of short blocks (about 1 s), robust to motion because even a busy
 recording has still moments and a moving limb averages to about 1 g.
 
 :func:`judge_level` decides: the level fits the unit (nothing to do), another unit fits (convert when
@@ -21,7 +21,7 @@ from labeler.channels import UNIT_FACTORS
 
 # |acc| at rest in g for a sensor that is still: 1 g; the band allows calibration offsets of
 # consumer sensors and slow movement in the quietest blocks (common practice, no source)
-REST_BAND_G = (0.75, 1.3)
+REST_BAND_G = (0.7, 1.6)
 # below this the sensor reports linear acceleration (gravity removed by the device)
 NO_GRAVITY_G = 0.5
 BLOCK = 32

@@ -49,6 +49,7 @@ DEFAULT_MAX_FILL_S = 0.25
 # unit is wrong (common practice, no source: consumer IMUs saturate at 16 g and 2000 deg/s, research
 # devices at up to 200 g / 4000 deg/s)
 ABSURD = {"acc": 400.0, "gyr": 40000.0}
+ABSURD_AT_REST_G = 16.0  # no unit makes a still sensor read this; saying "keep it" would not help
 MIN_RATE, MAX_RATE = 1.0, 10000.0
 MAX_GRID_SAMPLES = 5_000_000  # a grid may exceed 10x the file's samples up to this (28 h at 50 Hz)
 HEAD_BYTES = 1 << 16          # what is read to find the separator and the column names
@@ -364,22 +365,6 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     for j, c in enumerate(channels):
         if np.isnan(values[:, j]).all():
             raise InputError(f"{where}: column {sensor_cols[j]!r} holds no values; drop the column")
-    _check_gravity(values, channels, sensor_cols, units, factors, stated, where, notes, found)
-    for j, c in enumerate(channels):
-        col = values[:, j]
-        finite = col[~np.isnan(col)]
-        bad = np.flatnonzero(np.abs(finite) > ABSURD[kinds[j]] / factors[j])
-        if bad.size or np.isinf(finite).any():
-            row = int(np.flatnonzero(~np.isnan(col))[bad[0] if bad.size else
-                                                     np.flatnonzero(np.isinf(finite))[0]])
-            raise InputError(
-                f"{where}: row {row + first_row}, column {sensor_cols[j]!r}: value {col[row]:g} is "
-                f"beyond any body-worn sensor in {units[c]}; check the column's unit (e.g. "
-                f"{channels[j]}[{'m/s2' if kinds[j] == 'acc' else 'rad/s'}]) or the data")
-    values *= np.asarray(factors)[None, :]
-    converted = sorted({units[c] for c in channels} - set(CANONICAL_UNITS.values()))
-    if converted:
-        repairs.append("converted " + ", ".join(converted) + " to g and deg/s")
 
     # ---- time
     start_time = None
@@ -440,6 +425,23 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         fs = float(rate) if rate is not None else None
         if fs is None:
             raise InputError(f"{where}: a single sample; a recording needs many samples")
+    _check_gravity(values, channels, sensor_cols, units, factors, stated, where, notes, found,
+                   block=max(8, int(round(fs))))
+    for j, c in enumerate(channels):
+        col = values[:, j]
+        finite = col[~np.isnan(col)]
+        bad = np.flatnonzero(np.abs(finite) > ABSURD[kinds[j]] / factors[j])
+        if bad.size or np.isinf(finite).any():
+            row = int(np.flatnonzero(~np.isnan(col))[bad[0] if bad.size else
+                                                     np.flatnonzero(np.isinf(finite))[0]])
+            raise InputError(
+                f"{where}: row {row + first_row}, column {sensor_cols[j]!r}: value {col[row]:g} is "
+                f"beyond any body-worn sensor in {units[c]}; check the column's unit (e.g. "
+                f"{channels[j]}[{'m/s2' if kinds[j] == 'acc' else 'rad/s'}]) or the data")
+    values *= np.asarray(factors)[None, :]
+    converted = sorted({units[c] for c in channels} - set(CANONICAL_UNITS.values()))
+    if converted:
+        repairs.append("converted " + ", ".join(converted) + " to g and deg/s")
     signal, valid = _to_grid(t, values, fs, max_gap_s, max_fill_s, repairs)
     if start_time is not None:
         start_time = _shift_iso(start_time, 0.0)
@@ -457,7 +459,7 @@ def _time_cell(frame: pd.DataFrame, tcol: str, r: int) -> str:
 
 def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[str],
                    units: dict[str, str], factors: list[float], stated: dict[str, str | None],
-                   where: str, notes: list[str], found: dict) -> None:
+                   where: str, notes: list[str], found: dict, block: int = 32) -> None:
     """At rest |acc| is 1 g: convert a triad whose assumed unit is wrong (with a note), refuse one
     whose stated unit is (see :mod:`labeler.gravity`). Changes ``units`` and ``factors``."""
     assumed_units = set()
@@ -466,7 +468,7 @@ def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[st
             continue
         cols = list(idx)
         mag = np.sqrt(sum((values[:, j] * factors[j]) ** 2 for j in cols))
-        level = rest_level(mag)
+        level = rest_level(mag, block)
         if level is None:
             continue
         unit = units[channels[cols[0]]]
@@ -498,9 +500,11 @@ def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[st
                              f"stated unit {unit} but {verdict.fitted_level_g:.3g} g in "
                              f"{verdict.unit}; the values are in {verdict.unit}: {fix}")
         else:
+            keep = ("" if level > ABSURD_AT_REST_G else
+                    ", or state the unit with --acc-unit to keep the values")
             raise InputError(f"{where}: columns {names}: at rest |acc| is {level:.3g} g, far from "
                              "1 g in g, m/s2 or mg; check the sensor's scale (raw counts?) and the "
-                             "column mapping, or state the unit with --acc-unit to keep the values")
+                             f"column mapping{keep}")
     if len(assumed_units) == 1 and assumed_units != {CANONICAL_UNITS["acc"]}:
         found["acc_unit"] = assumed_units.pop()
 

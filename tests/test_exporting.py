@@ -268,7 +268,8 @@ def test_cli_export_and_class_management(tmp_path, files):
         "--overwrite")
     r = run("export", proj, tmp_path / "o2", "--min-confidence", "2")
     assert r.exit_code == 2 and first_line(r) == (
-        "Error: minimum confidence 2.0 is outside 0-1; give e.g. 0.8")
+        "Error: Invalid value for '--min-confidence': 2.0 is not in the range 0.0<=x<=1.0; usage: "
+        "cli export [OPTIONS] PROJECT FOLDER; see `cli export --help`")
     r = run("export", proj, tmp_path / "o3", "--confirmed-only", "--class", "stand",
             "--format", "parquet")
     assert r.exit_code == 0

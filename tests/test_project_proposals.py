@@ -167,4 +167,4 @@ def test_cli_commands(project, sims):
     r = run("propose", path, "--alpha", "1.5")
     assert r.exit_code == 2 and "alpha" in r.output
     r = run("queue", path, "-n", "0")
-    assert r.exit_code == 2 and "queue length" in r.output
+    assert r.exit_code == 2 and "Invalid value for '-n'" in r.output

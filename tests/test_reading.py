@@ -226,30 +226,55 @@ def test_rest_level_of_a_still_sensor_is_its_gravity():
 
 
 def test_metres_per_second_squared_without_a_unit_are_converted_with_a_note(write_csv):
-    frame = sensor_frame(600, sites=("wrist",))
+    # still for the first half (|acc| = 1 g exactly: 0.6 and 0.8 g on two axes), moving after
+    frame = sensor_frame(1000, sites=("wrist",))
+    still = frame.index < 500
+    frame.loc[still, ["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]] = [0.0, 0.6, 0.8]
     truth = frame["wrist_acc_z"].to_numpy()
     frame[["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]] *= STANDARD_GRAVITY
     path = write_csv(frame)
     rec = read_recording(path)
     assert rec.units["wrist_acc_z"] == "m/s2" and rec.found == {"acc_unit": "m/s2"}
     np.testing.assert_allclose(rec.signal[:, rec.channels.index("wrist_acc_z")], truth, rtol=1e-5)
-    assert len(rec.notes) == 1 and rec.notes[0].startswith(
-        "read wrist_acc_x/wrist_acc_y/wrist_acc_z as m/s2: at rest |acc| is ")
-    assert rec.notes[0].endswith("; say so with --acc-unit m/s2 to silence this")
-    msg = refusal(path, acc_unit="g")
-    assert msg.startswith(f"{path}: columns wrist_acc_x/wrist_acc_y/wrist_acc_z: at rest |acc| is ")
-    assert msg.endswith("g in m/s2; the values are in m/s2: give --acc-unit m/s2")
+    assert rec.notes == ["read wrist_acc_x/wrist_acc_y/wrist_acc_z as m/s2: at rest |acc| is 9.81 g "
+                         "if read as g, 1 g as m/s2; say so with --acc-unit m/s2 to silence this"]
+    assert refusal(path, acc_unit="g") == (
+        f"{path}: columns wrist_acc_x/wrist_acc_y/wrist_acc_z: at rest |acc| is 9.81 g in the "
+        "stated unit g but 1 g in m/s2; the values are in m/s2: give --acc-unit m/s2")
+    assert read_recording(path, acc_unit="m/s2").notes == []
 
 
 def test_milli_g_in_columns_named_g_is_refused(write_csv):
-    frame = sensor_frame(600, sites=("hip",))
+    frame = sensor_frame(1000, sites=("hip",))
+    frame.loc[frame.index < 500, ["hip_acc_x", "hip_acc_y", "hip_acc_z"]] = [0.8, 0.0, -0.6]
     frame[["hip_acc_x", "hip_acc_y", "hip_acc_z"]] *= 1000.0
-    frame = frame.rename(columns={c: c + "[g]" for c in ("hip_acc_x", "hip_acc_y", "hip_acc_z")})
-    msg = refusal(write_csv(frame))
-    assert "the values are in mg: name the columns hip_acc_x[mg] ..." in msg
-    frame = frame.rename(columns={c: c.replace("[g]", "[mg]") for c in frame.columns})
+    named = frame.rename(columns={c: c + "[g]" for c in ("hip_acc_x", "hip_acc_y", "hip_acc_z")})
+    path = write_csv(named)
+    assert refusal(path) == (
+        f"{path}: columns hip_acc_x[g]/hip_acc_y[g]/hip_acc_z[g]: at rest |acc| is 1e+03 g in the "
+        "stated unit g but 1 g in mg; the values are in mg: name the columns hip_acc_x[mg] ...")
+    frame = frame.rename(columns={c: c + "[mg]" for c in ("hip_acc_x", "hip_acc_y", "hip_acc_z")})
     rec = read_recording(write_csv(frame, "mg.csv"))
     assert rec.units["hip_acc_x"] == "mg" and rec.notes == []
+
+
+def test_a_level_no_unit_explains_is_refused_unless_stated(write_csv):
+    frame = sensor_frame(1000, sites=("wrist",))
+    frame.loc[frame.index < 500, ["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]] = [0.0, 0.0, 1.0]
+    frame[["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]] *= 4096.0  # raw counts of a +-8 g sensor
+    path = write_csv(frame)
+    assert refusal(path) == (
+        f"{path}: columns wrist_acc_x/wrist_acc_y/wrist_acc_z: at rest |acc| is 4.1e+03 g, far from "
+        "1 g in g, m/s2 or mg; check the sensor's scale (raw counts?) and the column mapping")
+    frame[["wrist_acc_x", "wrist_acc_y", "wrist_acc_z"]] *= 2.5 / 4096.0  # a scale error: 2.5 g
+    path = write_csv(frame, "scaled.csv")
+    assert refusal(path) == (
+        f"{path}: columns wrist_acc_x/wrist_acc_y/wrist_acc_z: at rest |acc| is 2.5 g, far from "
+        "1 g in g, m/s2 or mg; check the sensor's scale (raw counts?) and the column mapping, or "
+        "state the unit with --acc-unit to keep the values")
+    rec = read_recording(path, acc_unit="g")  # stated: kept, with a note
+    assert rec.notes == ["wrist_acc_x/wrist_acc_y/wrist_acc_z: at rest |acc| is 2.5 g, not 1 g; "
+                         "kept in the stated unit g"]
 
 
 def test_gravity_removed_is_noted_not_refused(write_csv):

@@ -267,8 +267,12 @@ def build(dest: Path) -> list[dict]:
         why="milli-g in columns whose names say g")
     counts = good.copy()
     counts[acc_cols] = np.round(counts[acc_cols] * 4096.0 * 3.1)
-    add("recording", "raw_counts.csv", csv_text(counts), mentions=["far from 1 g", "--acc-unit"],
+    add("recording", "raw_counts.csv", csv_text(counts), mentions=["far from 1 g", "raw counts"],
         why="raw sensor counts, no unit fits")
+    scaled = good.copy()
+    scaled[acc_cols] = scaled[acc_cols] * 2.5
+    add("recording", "scale_off.csv", csv_text(scaled), mentions=["far from 1 g", "--acc-unit"],
+        why="2.5 g at rest: a scale error, no unit fits; stating the unit keeps it")
     device = good.rename(columns={"wrist_acc_x": "accel_x", "wrist_acc_y": "accel_y",
                                   "wrist_acc_z": "accel_z"})
     add("recording", "mapped_columns.csv", csv_text(device), expect="repaired", mentions=[],
