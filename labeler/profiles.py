@@ -159,13 +159,14 @@ def check_zone(name: str, where: str):
     """The zone for an IANA name (``Europe/Vienna``, ``UTC``); InputError naming ``where``."""
     from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+    unknown = InputError(f"{where}: unknown time zone {name!r}; use an IANA zone name like "
+                         "Europe/Vienna, America/Chicago or UTC")
+    if not isinstance(name, str) or not name or name.startswith(("/", ".")) or ".." in name:
+        raise unknown
     try:
-        if not isinstance(name, str) or not name or name.startswith(("/", ".")) or ".." in name:
-            raise ValueError(name)
         return ZoneInfo(name)
     except (ZoneInfoNotFoundError, ValueError, OSError):
-        raise InputError(f"{where}: unknown time zone {name!r}; use an IANA zone name like "
-                         "Europe/Vienna, America/Chicago or UTC") from None
+        raise unknown from None
 
 
 def load_profile(path: str | os.PathLike) -> ReadOptions:
