@@ -2,6 +2,7 @@
 
 Set-up (not timed as ingest): simulated recordings of the invented harvest crew (people 1..N, one
 shift each), written as CSV files. Then
+0. the CPU time of one recording prepared and written in this process (independent of load);
 1. `Project.add_many` of every file on a Dask LocalCluster of 1 worker and of 2 workers, each
    into a fresh project (wall time includes starting the cluster); the speed-up and the cost per
    recording (and per recording-hour) on this machine;
@@ -24,6 +25,7 @@ import numpy as np
 
 from labeler.project import Project
 from labeler.study.apply import apply_to_study, train_from_project
+from labeler.study.ingest import prepare_file
 from labeler.synthetic import simulate_recording, window_truth
 
 
@@ -74,6 +76,17 @@ def main() -> None:
         print(f"set-up: {args.recordings} + {args.study} simulated recordings of {args.hours:g} h "
               f"({mb:.0f} MB of CSV for the ingest) in {time.perf_counter() - t0:.1f} s")
 
+        first = sorted((tmp / "crew").iterdir())[0]
+        with Project.create(tmp / "cpu.labeler", annotator="bench") as p:
+            c0 = time.process_time()
+            prepared = prepare_file(str(first), {}, p.window_length_s, p.window_step_s, "bench")
+            c1 = time.process_time()
+            p.add_prepared([prepared])
+            c2 = time.process_time()
+        print(f"CPU time of one {args.hours:g}-h recording in this process: {c1 - c0:.1f} s to "
+              f"read, check, window and compute features (a worker's share), {c2 - c1:.1f} s to "
+              "write (the single writer's share); unlike wall times, this does not grow with "
+              "the machine's load")
         t1, rep1 = _ingest(tmp / "crew", tmp / "one.labeler", 1, args.backend)
         print(f"ingest, 1 worker:  {t1:.1f} s  ({rep1.runner}; {len(rep1.added)} recordings, "
               f"{rep1.n_windows} windows)")
