@@ -20,7 +20,7 @@ import warnings
 
 import numpy as np
 
-from labeler.errors import InputError
+from labeler.errors import InputError, ValueInputError
 
 BLOCK_S = 300.0          # common practice, no source: bouts of daily activity last minutes
 MIN_RECORDING_GROUPS = 3
@@ -74,7 +74,7 @@ def train_window_model(X: np.ndarray, y: np.ndarray, groups: np.ndarray, *, grou
     y = np.asarray(y).astype(str)
     groups = np.asarray(groups)
     if X.ndim != 2 or X.shape[0] != y.size or groups.size != y.size:
-        raise ValueError("X, y and groups must have one row per labeled window")
+        raise ValueInputError("X, y and groups must have one row per labeled window")
     classes, counts = np.unique(y, return_counts=True)
     if classes.size < 2:
         raise InputError("training needs labeled windows of at least two classes; confirm "
