@@ -11,7 +11,7 @@ import sys
 
 import click
 
-from labeler.commands import labels, proposals, setup  # noqa: F401  (they register their commands)
+from labeler.commands import labels, proposals, setup, study  # noqa: F401  (they register their commands)
 from labeler.commands.base import EXIT_BAD_INPUT, UserError, cli
 
 __all__ = ["cli", "main", "UserError", "EXIT_BAD_INPUT"]

@@ -16,6 +16,7 @@ import pandas as pd
 import labeler
 from labeler import features as _features
 from labeler.errors import ProjectError
+from labeler.preparing import PreparedRecording
 from labeler.recordings import Recording
 from labeler.results import (AccuracyReport, ExportReport, ImportReport, LabelBatch, MapRun,
                              ProjectStatus, ProposalRun, RemovedRecording)
@@ -140,6 +141,52 @@ class Project:
         if not dry_run:  # a project with a map keeps every window on it
             self._maps.place_new([a.id for a in added])
         return added
+
+    def add_prepared(self, prepared: Sequence[PreparedRecording], *,
+                     place_in_map: bool = True) -> list[AddedRecording]:
+        """Store recordings prepared elsewhere (:func:`labeler.preparing.prepare_recording`, e.g.
+        on workers) in one transaction: all of them or none. ``place_in_map=False`` leaves placing
+        their windows into the map to :meth:`place_new_windows` (once after many single adds)."""
+        added = self._catalog.add_prepared(prepared)
+        if place_in_map:
+            self.place_new_windows([a.id for a in added])
+        return added
+
+    def place_new_windows(self, recording_ids: Sequence[int] = ()) -> None:
+        """Place windows missing from the latest map into it (after adds without placing)."""
+        self._maps.place_new([int(r) for r in recording_ids])
+
+    def refuse_own_file(self, path: str | os.PathLike) -> None:
+        """InputError when ``path`` is this project's own file (or its -wal/-shm)."""
+        self._ctx.refuse_own_file(path)
+
+    def add_many(self, sources: Sequence[str | os.PathLike], *, workers: int | None = None,
+                 scheduler: str | None = None, backend: str = "auto", all_or_none: bool = False,
+                 progress: Progress | None = None, **read_options):
+        """Add the recording files of ``sources`` (files, globs, folders) with one task per file
+        on workers (a Dask LocalCluster, the cluster at ``scheduler``, or local processes), one
+        transaction per file; refused files are reported and the rest go on unless
+        ``all_or_none``. Returns a :class:`labeler.study.ingest.IngestReport`."""
+        from labeler.study.ingest import ingest
+
+        return ingest(self, sources, read_options=read_options, all_or_none=all_or_none,
+                      progress=progress, workers=workers, scheduler=scheduler, backend=backend)
+
+    def apply_to_study(self, sources: Sequence[str | os.PathLike], out: str | os.PathLike, *,
+                       workers: int | None = None, scheduler: str | None = None,
+                       backend: str = "auto", include_proposed: bool = False,
+                       min_confidence: float = 0.9, fmt: str = "csv", overwrite: bool = False,
+                       random_state: int = 0, progress: Progress | None = None, **read_options):
+        """Train a calibrated model on this project's labeled windows and label every recording
+        of ``sources`` the project lacks, writing windows, segments and a manifest to ``out``.
+        Returns a :class:`labeler.study.apply.StudyReport`."""
+        from labeler.study.apply import apply_to_study
+
+        return apply_to_study(self, sources, out, include_proposed=include_proposed,
+                              min_confidence=min_confidence, read_options=read_options, fmt=fmt,
+                              overwrite=overwrite, random_state=random_state, progress=progress,
+                              workers=workers, scheduler=scheduler, backend=backend)
+
 
     def recordings(self, include_removed: bool = False) -> pd.DataFrame:
         """The recordings: id, name, source_path, content_hash, rate, channels, units, n_samples,

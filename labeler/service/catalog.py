@@ -18,13 +18,13 @@ import pandas as pd
 
 from labeler import features as _features
 from labeler.errors import InputError, ProjectError
+from labeler.preparing import CHUNK_SECONDS, PreparedRecording, prepare_recording  # noqa: F401
 from labeler.recordings import Recording, conform_channels, read_recording
 from labeler.results import RemovedRecording
 from labeler.service.context import Context, Progress
-from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, window_samples
 from storage import StoreError
 
-CHUNK_SECONDS = 60.0
 RECORDING_COLUMNS = ["id", "name", "source_path", "content_hash", "rate", "channels", "units",
                      "n_samples", "start_time", "added_at", "added_by", "repairs", "window_length",
                      "window_step", "person", "removed_at", "removed_by"]
@@ -84,31 +84,12 @@ class Catalog:
         them and write nothing; ``person``: who wore the sensors, for grouped splits)."""
         if person is not None:
             person = check_person(person)
-        store = self.ctx.store
-        live = store.recordings()
-        existing = {r["content_hash"]: r["name"] for r in live}
-        names = {r["name"] for r in live}
-        removed = {r["name"] for r in store.recordings(include_removed=True)} - names
         # one channel set per project: features of different channels cannot be compared
+        live = self.ctx.store.recordings()
         channels = list(live[0]["channels"]) if live else (
             list(recordings[0].channels) if recordings else [])
         recordings = [conform_channels(rec, channels) for rec in recordings]
-        seen: dict[str, str] = {}
-        for rec in recordings:
-            if rec.name in removed:
-                raise InputError(f"{rec.source_path}: a recording named {rec.name!r} was removed "
-                                 "from the project; rename the file to add it again; nothing added")
-            if rec.content_hash in existing:
-                raise InputError(f"{rec.source_path}: already in the project as recording "
-                                 f"{existing[rec.content_hash]!r} (same content); nothing added")
-            if rec.content_hash in seen:
-                raise InputError(f"{rec.source_path}: same content as {seen[rec.content_hash]}; "
-                                 "give each recording once; nothing added")
-            seen[rec.content_hash] = rec.source_path
-            if rec.name in names:
-                raise InputError(f"{rec.source_path}: a recording named {rec.name!r} is already in "
-                                 "the project; rename the file; nothing added")
-            names.add(rec.name)
+        self.check_new([(r.name, r.source_path, r.content_hash) for r in recordings])
         prepared = []
         for i, rec in enumerate(recordings):
             if progress:
@@ -116,53 +97,75 @@ class Catalog:
                          f"features of {rec.name}")
             prepared.append(self._prepare(rec))
         if dry_run:
-            return [AddedRecording(-1, rec.name, rec.n_samples, rec.rate, len(wins["seq"]),
+            return [AddedRecording(-1, rec.name, rec.n_samples, rec.rate, p.n_windows,
                                    rec.duration_s, rec.repairs, rec.notes, rec)
-                    for rec, (_row, _chunks, wins, _feats) in zip(recordings, prepared)]
-        added = []
-        try:
-            with store.atomic():
-                for rec, (row, chunks, wins, feats) in zip(recordings, prepared):
-                    rid = store.add_recording(dict(row, person=person), chunks, wins, feats)
-                    added.append(AddedRecording(rid, rec.name, rec.n_samples, rec.rate,
-                                                len(wins["seq"]), rec.duration_s, rec.repairs,
-                                                rec.notes, rec))
-        except StoreError as exc:
-            raise InputError(str(exc)) from None
-        self.ctx.invalidate()
+                    for rec, p in zip(recordings, prepared)]
+        added = self.add_prepared(prepared, person=person, sources=recordings)
         if progress:
             progress(1.0, "done")
         return added
 
-    def _prepare(self, rec: Recording):
-        length, step = window_samples(rec.rate, self.window_length_s, self.window_step_s)
-        starts = cut_windows(rec.valid, length, step)
-        if starts.size == 0:
-            raise InputError(
-                f"{rec.source_path}: {rec.duration_s:.2f} s of usable signal holds no window of "
-                f"{self.window_length_s:g} s; give a longer recording or a project with shorter windows")
-        X, names = _features.window_features(rec.signal, starts, length, rec.rate, rec.channels)
-        X = np.ascontiguousarray(X, dtype=np.float32)
-        if not np.isfinite(X).all():
-            bad = names[int(np.flatnonzero(~np.isfinite(X).all(axis=0))[0])]
-            raise InputError(f"{rec.source_path}: feature {bad} is not finite; check the recording "
-                             "for constant or broken channels")
-        row = {"name": rec.name, "source_path": rec.source_path, "content_hash": rec.content_hash,
-               "rate": rec.rate, "channels": rec.channels, "units": rec.units,
-               "n_samples": rec.n_samples, "start_time": rec.start_time,
-               "added_by": self.ctx.annotator, "repairs": rec.repairs + rec.notes,
-               "window_length": length,
-               "window_step": step}
-        chunk = max(1, int(CHUNK_SECONDS * rec.rate))
-        sig = np.ascontiguousarray(rec.signal, dtype=np.float32)
-        chunks = [(a, min(chunk, rec.n_samples - a), sig.shape[1], sig[a:a + chunk].tobytes())
-                  for a in range(0, rec.n_samples, chunk)]
-        wins = {"seq": np.arange(starts.size), "start_sample": starts,
-                "stop_sample": starts + length, "start_s": starts / rec.rate,
-                "stop_s": (starts + length) / rec.rate}
-        feats = {"version": _features.FEATURE_SET_VERSION, "names": names,
-                 "n_windows": int(X.shape[0]), "n_features": int(X.shape[1]), "data": X.tobytes()}
-        return row, chunks, wins, feats
+    def check_new(self, items: Sequence[tuple[str, str, str]]) -> None:
+        """Refuse (name, source path, content hash) triples already in the project or repeated,
+        and names of recordings removed from it."""
+        rows = self.ctx.store.recordings()
+        existing = {r["content_hash"]: r["name"] for r in rows}
+        names = {r["name"] for r in rows}
+        removed = {r["name"] for r in self.ctx.store.recordings(include_removed=True)} - names
+        seen: dict[str, str] = {}
+        for name, source, digest in items:
+            if name in removed:
+                raise InputError(f"{source}: a recording named {name!r} was removed from the "
+                                 "project; rename the file to add it again; nothing added")
+            if digest in existing:
+                raise InputError(f"{source}: already in the project as recording "
+                                 f"{existing[digest]!r} (same content); nothing added")
+            if digest in seen:
+                raise InputError(f"{source}: same content as {seen[digest]}; "
+                                 "give each recording once; nothing added")
+            seen[digest] = source
+            if name in names:
+                raise InputError(f"{source}: a recording named {name!r} is already in "
+                                 "the project; rename the file; nothing added")
+            names.add(name)
+
+    def add_prepared(self, prepared: Sequence[PreparedRecording], *, person: str | None = None,
+                     sources: Sequence[Recording] | None = None) -> list[AddedRecording]:
+        """Store recordings prepared elsewhere (:func:`labeler.preparing.prepare_recording`, e.g.
+        on workers) in one transaction: all of them or none. ``sources``: the recordings they were
+        prepared from, when at hand (their notes go into the report)."""
+        self.check_new([(p.name, p.source_path, p.content_hash) for p in prepared])
+        live = self.ctx.store.recordings()
+        channels = list(live[0]["channels"]) if live else (
+            list(prepared[0].row["channels"]) if prepared else [])
+        for p in prepared:
+            length, step = window_samples(p.rate, self.window_length_s, self.window_step_s)
+            if (int(p.row["window_length"]), int(p.row["window_step"])) != (length, step):
+                raise InputError(f"{p.source_path}: prepared with other window settings than "
+                                 "the project's; prepare it again")
+            if list(p.row["channels"]) != channels:
+                raise InputError(f"{p.source_path}: its channels differ from the project's "
+                                 f"({', '.join(channels[:6])} ...); map its columns to them with "
+                                 "--column, or add it to a project of its own")
+        store = self.ctx.store
+        added = []
+        try:
+            with store.atomic():
+                for i, p in enumerate(prepared):
+                    rid = store.add_recording(dict(p.row, person=person), p.chunks, p.windows,
+                                              p.features)
+                    rec = sources[i] if sources is not None else None
+                    added.append(AddedRecording(rid, p.name, p.n_samples, p.rate, p.n_windows,
+                                                p.duration_s, list(rec.repairs if rec is not None
+                                                                   else p.row["repairs"]),
+                                                list(rec.notes) if rec is not None else [], rec))
+        except StoreError as exc:
+            raise InputError(str(exc)) from None
+        self.ctx.invalidate()
+        return added
+
+    def _prepare(self, rec: Recording) -> PreparedRecording:
+        return prepare_recording(rec, self.window_length_s, self.window_step_s, self.ctx.annotator)
 
     # ------------------------------------------------------------------ recordings
     def recordings(self, include_removed: bool = False) -> pd.DataFrame:

@@ -1,0 +1,173 @@
+"""Where per-recording tasks run: a Dask cluster, or a local process pool when Dask is absent.
+
+:func:`open_runner` gives a context manager with ``submit(fn, *args)``, ``share(obj)`` and
+``as_completed(handles)``. The Dask runner starts a ``LocalCluster`` of ``workers`` processes (one
+thread each, no dashboard, listening on 127.0.0.1 only) unless a scheduler address is given; then it
+connects to that cluster and starts nothing. The process runner uses
+:class:`concurrent.futures.ProcessPoolExecutor` with fresh (spawned) processes, so no worker shares
+the parent's open project file.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import multiprocessing
+import os
+from typing import Any, Callable, Iterable, Iterator
+
+from labeler.errors import InputError
+
+BACKENDS = ("auto", "dask", "processes")
+
+
+def dask_available() -> bool:
+    try:
+        import dask  # noqa: F401
+        import distributed  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def default_workers() -> int:
+    return max(1, os.cpu_count() or 1)
+
+
+class TaskFailed(Exception):
+    """A task ended without a result (its worker died, or it raised past the task's own checks)."""
+
+
+class ProcessRunner:
+    """A local pool of spawned processes."""
+
+    kind = "processes"
+
+    def __init__(self, workers: int):
+        self.workers = int(workers)
+        self._pool: cf.ProcessPoolExecutor | None = None
+
+    @property
+    def description(self) -> str:
+        return f"a local process pool of {self.workers} worker(s)"
+
+    def __enter__(self) -> "ProcessRunner":
+        self._pool = cf.ProcessPoolExecutor(max_workers=self.workers,
+                                            mp_context=multiprocessing.get_context("spawn"))
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+
+    def share(self, obj: Any) -> Any:
+        return obj
+
+    def submit(self, fn: Callable, *args) -> cf.Future:
+        return self._pool.submit(fn, *args)
+
+    def as_completed(self, handles: Iterable[cf.Future]) -> Iterator[tuple[cf.Future, Any]]:
+        """(handle, result) as tasks finish; the result is a :class:`TaskFailed` when the task
+        ended without one."""
+        for fut in cf.as_completed(list(handles)):
+            try:
+                result = fut.result()
+            except cf.process.BrokenProcessPool:
+                result = TaskFailed("a worker process ended abruptly: out of memory, or a script "
+                                    "that starts workers outside `if __name__ == '__main__':`")
+            except Exception as exc:  # an unforeseen error: report, go on
+                result = TaskFailed(f"{type(exc).__name__}: {exc}")
+            yield fut, result
+
+
+class DaskRunner:
+    """A Dask LocalCluster (default) or an existing cluster's scheduler."""
+
+    kind = "dask"
+
+    def __init__(self, workers: int, scheduler: str | None = None):
+        self.workers = int(workers)
+        self.scheduler = scheduler
+        self._client = None
+        self._cluster = None
+
+    @property
+    def description(self) -> str:
+        if self.scheduler:
+            n = len(self._client.scheduler_info().get("workers", {})) if self._client else "?"
+            return f"the Dask scheduler at {self.scheduler} ({n} worker(s))"
+        return f"a Dask LocalCluster of {self.workers} worker(s)"
+
+    def __enter__(self) -> "DaskRunner":
+        import logging
+
+        from distributed import Client, LocalCluster
+
+        try:
+            if self.scheduler:
+                self._client = Client(self.scheduler, timeout="20s", set_as_default=False)
+            else:
+                self._cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1,
+                                             processes=True, host="127.0.0.1",
+                                             dashboard_address="127.0.0.1:0",
+                                             scheduler_kwargs={"dashboard": False},
+                                             silence_logs=logging.ERROR)
+                self._client = Client(self._cluster, set_as_default=False)
+        except (OSError, TimeoutError) as exc:
+            self.__exit__()
+            where = self.scheduler or "a local cluster"
+            raise InputError(f"cannot reach {where} ({exc}); check the address (e.g. "
+                             "tcp://host:8786) or leave --scheduler out for a local cluster") from None
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._client is not None:
+            self._client.close()
+            self._client = None
+        if self._cluster is not None:
+            self._cluster.close()
+            self._cluster = None
+
+    def share(self, obj: Any) -> Any:
+        """Send an object to every worker once; tasks take the returned handle in its place."""
+        return self._client.scatter(obj, broadcast=True, hash=False)
+
+    def submit(self, fn: Callable, *args):
+        return self._client.submit(fn, *args, pure=False)
+
+    def as_completed(self, handles: Iterable) -> Iterator[tuple[Any, Any]]:
+        from distributed import as_completed
+
+        handles = list(handles)
+        if not handles:
+            return
+        for fut in as_completed(handles, loop=self._client.loop):
+            try:
+                result = fut.result()
+            except Exception as exc:  # a killed worker or an unforeseen error: report, go on
+                result = TaskFailed(f"{type(exc).__name__}: {exc}")
+            fut.release()
+            yield fut, result
+
+
+def open_runner(workers: int | None = None, scheduler: str | None = None,
+                backend: str = "auto"):
+    """A runner for per-recording tasks (use it as a context manager).
+
+    ``backend``: "dask" (needs the ``scale`` extra), "processes" (a local process pool), or "auto":
+    Dask when it is installed, else processes. A ``scheduler`` address needs Dask.
+    """
+    if backend not in BACKENDS:
+        raise InputError(f"unknown backend {backend!r}; use one of {', '.join(BACKENDS)}")
+    if workers is not None and (int(workers) != workers or workers < 1):
+        raise InputError(f"--workers {workers}: give a whole number of at least 1")
+    n = int(workers) if workers is not None else default_workers()
+    have_dask = dask_available()
+    if backend == "dask" or scheduler:
+        if not have_dask:
+            raise InputError("Dask is not installed; install it with `pip install "
+                             "'labeler[scale]'` or leave out --scheduler to use local processes")
+        return DaskRunner(n, scheduler)
+    if backend == "auto" and have_dask:
+        return DaskRunner(n)
+    return ProcessRunner(n)
