@@ -46,7 +46,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
 
 from labeler.channels import parse_channel, triads
@@ -159,6 +158,8 @@ class _Workspace:
 
 def _spectral(ws: _Workspace, plan: _Plan) -> dict[str, np.ndarray]:
     """Spectral and autocorrelation features of the centred windows in ``ws.padded``."""
+    import scipy.fft  # imported where used: commands that compute no features start faster
+
     lead = ws.padded.shape[:-1]
     spec = scipy.fft.rfft(ws.padded, axis=-1)  # (..., L + 1) complex64
     v = spec.view(np.float32)

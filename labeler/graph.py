@@ -28,7 +28,6 @@ from pathlib import Path
 
 import numpy as np
 from scipy import sparse
-from sklearn.neighbors import NearestNeighbors
 
 from labeler.errors import InputError
 from labeler.reduction import check_features, fit_reduction
@@ -100,6 +99,8 @@ def nearest_neighbors(Z: np.ndarray, n_neighbors: int, *, method: str = "auto",
         raise GraphInputError(f"n_neighbors must be >= 1, got {n_neighbors}")
     if method not in ("auto", "exact", "approximate"):
         raise GraphInputError(f"unknown neighbour method {method!r}; use 'auto', 'exact' or 'approximate'")
+    from sklearn.neighbors import NearestNeighbors  # here: importing scikit-learn takes a while
+
     exact = None
     if method == "auto":
         method, exact = choose_method(Z, k, random_state=random_state)
@@ -128,6 +129,8 @@ def choose_method(Z: np.ndarray, k: int, *, random_state: int = 0):
     when this process has not compiled it yet. When exact wins, the index, the sampled rows and
     their neighbours (distances, indices) come back so that nothing is searched twice.
     """
+    from sklearn.neighbors import NearestNeighbors
+
     n = Z.shape[0]
     if n <= APPROXIMATE_ABOVE:
         return "exact", None

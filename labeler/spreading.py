@@ -28,13 +28,13 @@ Proposed labels are suggestions: a qualified person reviews them before they are
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
 
 import numpy as np
 from scipy import sparse
 from sklearn.base import BaseEstimator
 
 from labeler.errors import InputError
+from labeler.outputs import WindowOutputs  # noqa: F401  (a result of this module)
 
 #: Default clamping factor, tuned on scikit-learn's digits, BasicMotions and the demo simulator
 #: (benchmarks/bench_proposals.py --part tune): with random confirmations accuracy is flat for alpha in
@@ -355,29 +355,6 @@ class LabelSpreader(BaseEstimator):
             reference = self.reference_mass()
         return _outputs(self.graph_, self.label_mass_, _check_y(y), self.classes_, reference,
                         float(self.alpha), self.class_balance)
-
-
-@dataclass
-class WindowOutputs:
-    """What spreading says about each window (arrays of length n_windows unless noted).
-
-    label: proposed class code (the confirmed one for confirmed windows).
-    distribution: (n_windows, n_classes) normalized scores, columns in ``classes`` order.
-    confidence: probability of ``label`` in ``distribution`` (0 where nothing reached the window).
-    margin: top probability minus the second one.
-    support: label mass received relative to :func:`reference_mass`, in [0, 1]; low means no
-        confirmed window nearby.
-    conflict: for confirmed windows, the weighted share of graph neighbours whose distribution
-        does not back the confirmed label (0..1); 0 for unconfirmed windows.
-    """
-
-    classes: np.ndarray
-    label: np.ndarray
-    distribution: np.ndarray
-    confidence: np.ndarray
-    margin: np.ndarray
-    support: np.ndarray
-    conflict: np.ndarray
 
 
 def _distributions(F, y, classes, class_balance):
