@@ -42,8 +42,9 @@ APPROXIMATE_ABOVE = 100_000
 
 #: CPU seconds assumed for compiling the approximate index in a new process until one compilation
 #: has been measured on this machine (then the measurement, kept in the user's cache folder, is
-#: used). The lower end of what was measured here, so that "auto" errs towards trying it.
-DEFAULT_COMPILE_S = 30.0
+#: used). Measured here: 96 s of CPU in a first process, 60 s once numba's cache holds what it can
+#: keep (pynndescent's main search functions cannot be cached: they use dynamic globals).
+DEFAULT_COMPILE_S = 60.0
 #: CPU seconds per window assumed for the approximate search itself until measured (10.5 s per
 #: 100k windows, the slower of the measurements above).
 DEFAULT_APPROX_S_PER_ROW = 10.5e-5
