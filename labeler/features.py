@@ -46,7 +46,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
 
 from labeler.channels import parse_channel, triads
@@ -159,6 +158,8 @@ class _Workspace:
 
 def _spectral(ws: _Workspace, plan: _Plan) -> dict[str, np.ndarray]:
     """Spectral and autocorrelation features of the centred windows in ``ws.padded``."""
+    import scipy.fft  # imported where used: commands that compute no features start faster
+
     lead = ws.padded.shape[:-1]
     spec = scipy.fft.rfft(ws.padded, axis=-1)  # (..., L + 1) complex64
     v = spec.view(np.float32)
@@ -334,22 +335,19 @@ def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: f
     plan = _Plan(length, rate, channels)
     rows_per_window = (len(channels) + len(plan.triads)) * length
     step = max(1, min(int(chunk_size), _MAX_CHUNK_ELEMENTS // max(1, rows_per_window)))
-    sig_t = signal.T  # (n_channels, n_samples) view
-    offsets = np.arange(length, dtype=np.int64)
+    sig_t = signal.T  # (n_channels, n_samples) view; contiguous rows for a column-major signal
+    every = sliding_window_view(sig_t, length, axis=1)  # (n_channels, n_starts, length) view
     C = len(channels)
     ws = None
     for a in range(0, starts.size, step):
-        idx = starts[a:a + step, None] + offsets[None, :]
-        if ws is None or ws.n_windows != idx.shape[0]:
-            ws = _Workspace(plan, idx.shape[0])
         chunk = starts[a:a + step]
+        if ws is None or ws.n_windows != chunk.size:
+            ws = _Workspace(plan, chunk.size)
         gaps = np.diff(chunk)
         if chunk.size > 1 and gaps[0] > 0 and (gaps == gaps[0]).all():
             # evenly spaced windows (the usual case): a strided view of one block, no gather
-            lo = int(chunk[0])
-            block = sig_t[:, lo:int(chunk[-1]) + length]
-            ws.raw[:C] = sliding_window_view(block, length, axis=1)[:, ::int(gaps[0])]
+            ws.raw[:C] = every[:, int(chunk[0]):int(chunk[-1]) + 1:int(gaps[0])]
         else:
-            ws.raw[:C] = sig_t[:, idx]
+            ws.raw[:C] = every[:, chunk]  # whole windows gathered, not sample by sample
         X[a:a + step] = _chunk_features(ws, plan)
     return X, names

@@ -21,25 +21,35 @@ entries; where both kinds of edge join two windows their weights add.
 
 from __future__ import annotations
 
+import json
+import os
+import time
+from pathlib import Path
+
 import numpy as np
 from scipy import sparse
-from sklearn.neighbors import NearestNeighbors
 
 from labeler.errors import InputError
 from labeler.reduction import check_features, fit_reduction
 from labeler.reduction import standardize as _standardize
 
-#: Number of windows above which the approximate neighbour index (pynndescent) is used.
-#: Measured on this 2-core machine with 20-dimensional clustered data (benchmarks/bench_proposals.py
-#: repeats the measurement): exact search (scikit-learn, kd-tree) took 2.3 s at 20k windows and
-#: 43 s at 100k windows in 20 dimensions; pynndescent took 1.3 s at 20k and 10.5 s at 100k once
-#: compiled, with a recall of 0.94 / 0.87 of the true 10 neighbours, but its just-in-time
-#: compilation costs about 60 s in every new process (also with a numba cache). Exact time grows
-#: about with n**2 (43 s * (n / 100k)**2), approximate about linearly plus the compilation
-#: (10.5 s * n / 100k + 60 s). On the simulator's features (PCA to 30) at 112k windows exact
-#: took 46.6 s, pynndescent 1.2 s plus 31.6 s of compilation, recall 0.971. Both measurements put
-#: the crossing near 100k windows, so "auto" switches there.
+#: Up to this many windows the exact search is used without asking what it would cost.
+#: Measured on a 2-core machine (benchmarks/bench_neighbours.py repeats it): exact search
+#: (scikit-learn, kd-tree) took 2.3 s at 20k windows and 43-47 s at 100k-112k in 20-30 dimensions;
+#: pynndescent took 1.2-10.5 s at 100k once compiled, with a recall of 0.87-0.97 of the true 10
+#: neighbours, but compiling it costs 30-80 s of CPU in every new process.
 APPROXIMATE_ABOVE = 100_000
+
+#: CPU seconds assumed for compiling the approximate index in a new process until one compilation
+#: has been measured on this machine (then the measurement, kept in the user's cache folder, is
+#: used). Measured here: 96 s of CPU in a first process, 60 s once numba's cache holds what it can
+#: keep (pynndescent's main search functions cannot be cached: they use dynamic globals).
+DEFAULT_COMPILE_S = 60.0
+#: CPU seconds per window assumed for the approximate search itself until measured (10.5 s per
+#: 100k windows, the slower of the measurements above).
+DEFAULT_APPROX_S_PER_ROW = 10.5e-5
+#: Rows whose exact neighbours are searched to project the cost of the whole exact search.
+COST_SAMPLE = 2000
 
 #: K of local scaling: sigma_i is the distance to the K-th neighbour (Zelnik-Manor & Perona 2004).
 LOCAL_SCALE_K = 7
@@ -76,29 +86,122 @@ def nearest_neighbors(Z: np.ndarray, n_neighbors: int, *, method: str = "auto",
                       random_state: int = 0) -> tuple[np.ndarray, np.ndarray]:
     """Indices and distances of each row's ``n_neighbors`` nearest other rows, nearest first.
 
-    ``method`` is "exact" (scikit-learn), "approximate" (pynndescent) or "auto" (exact up to
-    :data:`APPROXIMATE_ABOVE` rows). Both arrays have shape (n, k) with k = min(n_neighbors, n - 1);
-    a row is never its own neighbour. Ties are broken by index, so the result is deterministic.
+    ``method`` is "exact" (scikit-learn), "approximate" (pynndescent) or "auto": exact up to
+    :data:`APPROXIMATE_ABOVE` rows; above, whichever is expected to cost less CPU time, the exact
+    search projected from searching :data:`COST_SAMPLE` sampled rows, the approximate one from
+    its measured cost per row plus, in a process that has not compiled it yet, its measured
+    compilation (see :func:`choose_method`). Both arrays have shape (n, k) with
+    k = min(n_neighbors, n - 1); a row is never its own neighbour. Ties are broken by index, so
+    the result is deterministic.
     """
     n = Z.shape[0]
     k = min(int(n_neighbors), n - 1)
     if k < 1:
         raise GraphInputError(f"n_neighbors must be >= 1, got {n_neighbors}")
-    if method == "auto":
-        method = "approximate" if n > APPROXIMATE_ABOVE else "exact"
-    if method == "exact":
-        nn = NearestNeighbors(n_neighbors=k + 1, n_jobs=None).fit(Z)
-        dist, ind = nn.kneighbors(Z)
-    elif method == "approximate":
-        import pynndescent  # imported here: compiling it takes about a minute
-
-        index = pynndescent.NNDescent(Z, n_neighbors=k + 1, random_state=random_state)
-        ind, dist = index.neighbor_graph
-        ind = ind.astype(np.int64)
-        dist = dist.astype(np.float64)
-    else:
+    if method not in ("auto", "exact", "approximate"):
         raise GraphInputError(f"unknown neighbour method {method!r}; use 'auto', 'exact' or 'approximate'")
+    from sklearn.neighbors import NearestNeighbors  # here: importing scikit-learn takes a while
+
+    exact = None
+    if method == "auto":
+        method, exact = choose_method(Z, k, random_state=random_state)
+    if method == "exact":
+        if exact is None:
+            dist, ind = NearestNeighbors(n_neighbors=k + 1, n_jobs=None).fit(Z).kneighbors(Z)
+        else:  # the rows searched while measuring are not searched again
+            index, sample, (dist_s, ind_s) = exact
+            rest = np.ones(n, dtype=bool)
+            rest[sample] = False
+            dist = np.empty((n, k + 1))
+            ind = np.empty((n, k + 1), dtype=np.int64)
+            dist[sample], ind[sample] = dist_s, ind_s
+            dist[rest], ind[rest] = index.kneighbors(Z[rest])
+    else:
+        ind, dist = _approximate(Z, k + 1, random_state)
     return _drop_self(ind, dist, k)
+
+
+def choose_method(Z: np.ndarray, k: int, *, random_state: int = 0):
+    """("exact" or "approximate", what was measured or None) for k neighbours of each row.
+
+    Above :data:`APPROXIMATE_ABOVE` rows the exact index is built (a fraction of the exact
+    search's cost), :data:`COST_SAMPLE` random rows are searched and the CPU time projected to all
+    rows; it is compared with the approximate search's expected CPU time, compilation included
+    when this process has not compiled it yet. When exact wins, the index, the sampled rows and
+    their neighbours (distances, indices) come back so that nothing is searched twice.
+    """
+    from sklearn.neighbors import NearestNeighbors
+
+    n = Z.shape[0]
+    if n <= APPROXIMATE_ABOVE:
+        return "exact", None
+    t0 = time.process_time()
+    index = NearestNeighbors(n_neighbors=k + 1, n_jobs=None).fit(Z)
+    build = time.process_time() - t0
+    sample = np.random.default_rng(random_state).choice(n, size=min(COST_SAMPLE, n), replace=False)
+    t0 = time.process_time()
+    found = index.kneighbors(Z[sample])
+    exact_cost = build + (time.process_time() - t0) * n / sample.size
+    costs = _approximate_costs()
+    approx_cost = costs["s_per_row"] * n + (0.0 if _APPROX["compiled"] else costs["compile_s"])
+    if exact_cost <= approx_cost:
+        return "exact", (index, sample, found)
+    return "approximate", None
+
+
+# the approximate index in this process: compiled yet? Costs measured here and kept in the user's
+# cache folder (a small JSON file: CPU seconds of one compilation and per row), so that a new
+# process knows them before paying them
+_APPROX = {"compiled": False}
+
+
+def _cost_file() -> Path:
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return Path(base) / "labeler" / "neighbour-costs.json"
+
+
+def _approximate_costs() -> dict:
+    costs = {"compile_s": DEFAULT_COMPILE_S, "s_per_row": DEFAULT_APPROX_S_PER_ROW}
+    try:
+        stored = json.loads(_cost_file().read_text())
+        for key in costs:
+            if isinstance(stored.get(key), (int, float)) and stored[key] >= 0:
+                costs[key] = float(stored[key])
+    except (OSError, ValueError, AttributeError):
+        pass
+    return costs
+
+
+def _remember_costs(**measured: float) -> None:
+    costs = _approximate_costs()
+    costs.update(measured)
+    path = _cost_file()
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(f"{path.name}.{os.getpid()}.tmp")
+        tmp.write_text(json.dumps(costs))
+        os.replace(tmp, path)
+    except OSError:
+        pass  # a read-only home only costs the measurement next time
+
+
+def _approximate(Z: np.ndarray, n_neighbors: int, random_state: int) -> tuple[np.ndarray, np.ndarray]:
+    """pynndescent's neighbour graph (self included), compiling it first in a new process."""
+    if not _APPROX["compiled"]:
+        t0 = time.process_time()
+        import pynndescent  # compiled here, on first use: 30-80 s of CPU
+
+        tiny = np.random.default_rng(0).normal(size=(300, 4)).astype(np.float32)
+        pynndescent.NNDescent(tiny, n_neighbors=5, random_state=0).neighbor_graph
+        _APPROX["compiled"] = True
+        _remember_costs(compile_s=time.process_time() - t0)
+    import pynndescent
+
+    t0 = time.process_time()
+    index = pynndescent.NNDescent(Z, n_neighbors=n_neighbors, random_state=random_state)
+    ind, dist = index.neighbor_graph
+    _remember_costs(s_per_row=(time.process_time() - t0) / max(1, Z.shape[0]))
+    return ind.astype(np.int64), dist.astype(np.float64)
 
 
 def _drop_self(ind: np.ndarray, dist: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:

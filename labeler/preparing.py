@@ -91,7 +91,7 @@ def prepare_recording(rec: Recording, length_s: float, step_s: float,
            "added_by": added_by, "repairs": rec.repairs + list(getattr(rec, "notes", [])), "window_length": length,
            "window_step": step}
     chunk = max(1, int(CHUNK_SECONDS * rec.rate))
-    sig = np.ascontiguousarray(rec.signal, dtype=np.float32)
+    sig = np.asarray(rec.signal, dtype=np.float32)  # any memory order: tobytes() writes rows
     chunks = [(a, min(chunk, rec.n_samples - a), sig.shape[1], sig[a:a + chunk].tobytes())
               for a in range(0, rec.n_samples, chunk)]
     wins = {"seq": np.arange(starts.size), "start_sample": starts,

@@ -31,7 +31,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.stats import norm
 
 from labeler.errors import InputError
 
@@ -88,6 +87,8 @@ def wilson_interval(k: int, n: int, level: float = 0.95) -> tuple[float, float]:
         raise QualityInputError(f"k must be a whole number in [0, n={n}], got {k}")
     if not 0 < level < 1:
         raise QualityInputError(f"level must lie strictly between 0 and 1, got {level}")
+    from scipy.stats import norm  # imported here: scipy.stats alone slows every command's start
+
     z = float(norm.ppf(0.5 + level / 2))
     p = k / n
     denom = 1 + z * z / n

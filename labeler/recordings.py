@@ -358,8 +358,8 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     if len(frame) == 0:
         raise InputError(f"{where}: header only, no samples; export the recording again")
 
-    # ---- values
-    values = np.empty((len(frame), len(channels)), dtype=np.float64)
+    # ---- values, column-major: every check and repair runs channel by channel
+    values = np.empty((len(channels), len(frame)), dtype=np.float64).T
     for j, c in enumerate(sensor_cols):
         values[:, j] = _numeric_column(frame[c], where, c, first_row)
     for j, c in enumerate(channels):
@@ -446,7 +446,7 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     if start_time is not None:
         start_time = _shift_iso(start_time, 0.0)
     return Recording(name=name, source_path=where, content_hash=content_hash, rate=float(fs),
-                     channels=channels, units=units, signal=signal.astype(np.float32),
+                     channels=channels, units=units, signal=signal.astype(np.float32, copy=False),
                      valid=valid, start_time=start_time, repairs=repairs, notes=notes,
                      sources=sources, time_read=time_read,
                      found={k: v for k, v in found.items() if v is not None})
@@ -533,26 +533,30 @@ def _tidy_rate(fs: float) -> float:
 
 def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max_fill_s: float,
              repairs: list[str]) -> tuple[np.ndarray, np.ndarray]:
-    """Resample onto the uniform grid t0 + k/fs; short missing runs filled, long ones and gaps kept."""
+    """Resample onto the uniform grid t0 + k/fs; short missing runs filled, long ones and gaps kept.
+
+    Returns the signal as float32 (NaN where not valid) and the valid mask. ``values`` (float64) is
+    changed in place (short runs filled); each channel is handled on its own, so a column-major
+    ``values`` (one contiguous run of memory per channel) is fastest, and the signal returned is
+    column-major too. Linear in the number of samples: every step touches each sample a fixed
+    number of times, whatever the number of missing runs or gaps.
+    """
     n, c = values.shape
-    # 1. short runs of missing values: interpolate in time (per channel)
-    missing = np.isnan(values)
-    filled = 0
-    if missing.any():
+    nan = np.empty((c, n), dtype=bool)
+    for j in range(c):
+        np.isnan(values[:, j], out=nan[j])
+    # 1. short runs of missing values: interpolate in time between the run's two neighbours
+    if nan.any():
         max_fill = max(1, int(round(max_fill_s * fs)))
+        filled = 0
         for j in range(c):  # loop over channels
-            m = missing[:, j]
-            if not m.any():
-                continue
-            runs = _runs(m)
-            ok = ~m
-            for a, b in runs:
-                if b - a <= max_fill and a > 0 and b < n:
-                    values[a:b, j] = np.interp(t[a:b], t[ok], values[ok, j])
-                    filled += b - a
+            if nan[j].any():
+                filled += _fill_short_runs(t, values[:, j], max_fill)
+                np.isnan(values[:, j], out=nan[j])
         if filled:
             repairs.append(f"filled {filled} missing values (runs up to {max_fill_s:g} s)")
-    row_ok = ~np.isnan(values).any(axis=1)
+    row_ok = ~nan.any(axis=0)
+    del nan
     # 2. uniform grid
     dt = np.diff(t)
     nominal = 1.0 / fs
@@ -560,18 +564,37 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
     jitter = bool(regular.size) and float(np.max(np.abs(regular - nominal))) > 1e-6 * nominal
     n_grid = int(math.floor((t[-1] - t[0]) * fs + 1e-6)) + 1
     grid = t[0] + np.arange(n_grid) / fs
+    out = np.empty((c, n_grid), dtype=np.float32)  # one row per channel; returned transposed
     if not jitter and n_grid == n:
-        out = values
+        for j in range(c):
+            out[j] = values[:, j]
         valid = row_ok.copy()
     else:
-        out = np.empty((n_grid, c), dtype=np.float64)
-        good = row_ok
-        for j in range(c):
-            out[:, j] = np.interp(grid, t[good], values[good, j]) if good.any() else np.nan
+        # Linear interpolation in time, one channel at a time, with the positions on the grid
+        # found once for all channels. A grid point is valid when it falls on a complete row or
+        # between two consecutive complete rows; interpolating over all rows therefore gives, at
+        # every valid point, what interpolating over the complete rows alone gives (the arithmetic
+        # of numpy.interp), except NaN where a point within rounding of a row is followed by a
+        # missing value: such a point takes its row.
         left = np.clip(np.searchsorted(t, grid, side="right") - 1, 0, n - 1)
-        right = np.clip(left + 1, 0, n - 1)
-        exact = np.isclose(t[left], grid, rtol=0, atol=1e-9 * max(1.0, abs(t[-1])))
+        right = np.minimum(left + 1, n - 1)
+        exact = np.abs(t[left] - grid) <= 1e-9 * max(1.0, abs(t[-1]))
         valid = row_ok[left] & (exact | row_ok[right])
+        lo = np.minimum(left, n - 2)
+        hi = lo + 1
+        span = t[hi] - t[lo]
+        offset = grid - t[lo]
+        for j in range(c):  # loop over channels
+            y = values[:, j]
+            y_lo = y[lo]
+            v = y[hi] - y_lo
+            v /= span
+            v *= offset
+            v += y_lo
+            # a point within rounding of a complete row that a missing value follows
+            on_row = np.flatnonzero(np.isnan(v) & valid)
+            v[on_row] = y[left[on_row]]
+            out[j] = v
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
         short = int(np.count_nonzero((dt > 1.5 * nominal) & (dt <= max(max_gap_s, 1.5 * nominal))))
@@ -580,21 +603,51 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
     # 3. pauses in time longer than max_gap_s are gaps; so are runs of missing values left over
     if dt.size:
         long = np.flatnonzero(dt > max(max_gap_s, 1.5 * nominal))
-        n_gaps = 0
-        for k in long:  # loop over gaps
-            inside = (grid > t[k] + 1e-9) & (grid < t[k + 1] - 1e-9)
-            valid[inside] = False
-            n_gaps += 1
-        if n_gaps:
-            repairs.append(f"kept {n_gaps} pause(s) longer than {max_gap_s:g} s as gaps")
+        if long.size:
+            # grid points strictly inside (t[k], t[k + 1]) for each long pause k
+            lo = np.searchsorted(grid, t[long] + 1e-9, side="right")
+            hi = np.searchsorted(grid, t[long + 1] - 1e-9, side="left")
+            marks = np.zeros(n_grid + 1, dtype=np.int64)
+            keep = hi > lo
+            np.add.at(marks, lo[keep], 1)
+            np.add.at(marks, hi[keep], -1)
+            valid &= np.cumsum(marks[:-1]) == 0
+            repairs.append(f"kept {long.size} pause(s) longer than {max_gap_s:g} s as gaps")
     invalid = ~valid
     if invalid.any():
-        out = out.copy() if out is values else out
-        out[invalid] = np.nan
+        out[:, invalid] = np.nan
         kept = len(_runs(invalid))
         if not any("gaps" in r for r in repairs):
             repairs.append(f"kept {kept} run(s) of missing values as gaps")
-    return out, valid
+    return out.T, valid
+
+
+def _fill_short_runs(t: np.ndarray, column: np.ndarray, max_fill: int) -> int:
+    """Fill runs of NaN of at most ``max_fill`` samples that have a value on both sides, in place.
+
+    Each filled value is the linear interpolation in time between the run's two neighbours (what
+    ``numpy.interp`` over the column's values gives, in the same arithmetic). Returns how many
+    values were filled.
+    """
+    missing = np.isnan(column)
+    if not missing.any():
+        return 0
+    padded = np.concatenate([[False], missing, [False]])
+    edges = np.flatnonzero(padded[1:] != padded[:-1])
+    a, b = edges[0::2], edges[1::2]
+    keep = (b - a <= max_fill) & (a > 0) & (b < column.size)
+    a, b = a[keep], b[keep]
+    if not a.size:
+        return 0
+    lengths = b - a
+    # every sample of every kept run, with the index of its run
+    run = np.repeat(np.arange(a.size), lengths)
+    idx = np.arange(int(lengths.sum())) - np.repeat(np.cumsum(lengths) - lengths, lengths) + a[run]
+    x0, x1 = t[a - 1], t[b]
+    y0, y1 = column[a - 1], column[b]
+    slope = (y1 - y0) / (x1 - x0)
+    column[idx] = slope[run] * (t[idx] - x0[run]) + y0[run]
+    return int(idx.size)
 
 
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:

@@ -28,13 +28,13 @@ Proposed labels are suggestions: a qualified person reviews them before they are
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
 
 import numpy as np
 from scipy import sparse
 from sklearn.base import BaseEstimator
 
 from labeler.errors import InputError
+from labeler.outputs import WindowOutputs  # noqa: F401  (a result of this module)
 
 #: Default clamping factor, tuned on scikit-learn's digits, BasicMotions and the demo simulator
 #: (benchmarks/bench_proposals.py --part tune): with random confirmations accuracy is flat for alpha in
@@ -103,8 +103,12 @@ def _check_y(y) -> np.ndarray:
     return y.astype(np.int64)
 
 
-def _solve(S, B, F0, alpha, tol, max_iter, solver):
-    """Solve (I - alpha S) F = B column by column from F0; returns F and the iterations used."""
+def _solve(S, B, F0, alpha, tol, max_iter, solver, solved=None):
+    """Solve (I - alpha S) F = B column by column from F0; returns F and the iterations used.
+
+    ``solved`` (one bool per column, conjugate gradients only) marks columns known to meet the
+    tolerance already (F0 there is the solution of the same system): they are not touched.
+    """
     F = F0.copy()
     thresh = tol * (1.0 - alpha)  # ||r|| <= thresh  =>  ||F - F*|| <= tol (smallest eigenvalue 1-alpha)
     if solver == "iterate":
@@ -121,29 +125,43 @@ def _solve(S, B, F0, alpha, tol, max_iter, solver):
             if not active.any():
                 return F, it, True
         return F, it, False
-    # conjugate gradients, columns in parallel, each with its own step sizes
-    R = B - (F - alpha * (S @ F))
-    rs = (R * R).sum(axis=0)
-    active = np.sqrt(rs) > thresh
-    P = R.copy()
+    # conjugate gradients, columns in parallel, each with its own step sizes; the columns still
+    # iterating are kept side by side in their own arrays (no strided column updates), and a
+    # column leaves them as soon as its residual is small enough
+    cols = np.arange(F.shape[1]) if solved is None else np.flatnonzero(~np.asarray(solved))
+    if not cols.size:
+        return F, 0, True
+    Fa = F[:, cols]
+    Ra = B[:, cols] - (Fa - alpha * _times(S, Fa))
+    rs = (Ra * Ra).sum(axis=0)
+    Pa = Ra.copy()
     it = 0
-    while active.any():
+    while True:
+        done = np.sqrt(rs) <= thresh
+        if done.any():
+            F[:, cols[done]] = Fa[:, done]
+            keep = ~done
+            cols, Fa, Ra, Pa, rs = cols[keep], Fa[:, keep], Ra[:, keep], Pa[:, keep], rs[keep]
+        if not cols.size:
+            return F, it, True
         if it >= max_iter:
+            F[:, cols] = Fa
             return F, it, False
         it += 1
-        cols = np.flatnonzero(active)
-        Pc = P[:, cols]
-        AP = Pc - alpha * (S @ Pc)
-        pap = (Pc * AP).sum(axis=0)
-        a = rs[cols] / pap
-        F[:, cols] += a * Pc
-        Rc = R[:, cols] - a * AP
-        R[:, cols] = Rc
-        rs_new = (Rc * Rc).sum(axis=0)
-        P[:, cols] = Rc + (rs_new / rs[cols]) * Pc
-        rs[cols] = rs_new
-        active[cols[np.sqrt(rs_new) <= thresh]] = False
-    return F, it, True
+        AP = Pa - alpha * _times(S, Pa)
+        a = rs / (Pa * AP).sum(axis=0)
+        Fa += a * Pa
+        Ra -= a * AP
+        rs_new = (Ra * Ra).sum(axis=0)
+        Pa = Ra + (rs_new / rs) * Pa
+        rs = rs_new
+
+
+def _times(S, M):
+    """S @ M for a dense M of one or more columns (one column as a vector: scipy's faster path)."""
+    if M.shape[1] == 1:
+        return (S @ M[:, 0])[:, None]
+    return S @ M
 
 
 def reference_mass(W, alpha: float = DEFAULT_ALPHA, *, tol: float = 1e-6, max_iter: int = 2000,
@@ -239,7 +257,11 @@ class LabelSpreader(BaseEstimator):
         """
         self._check_params()
         y = _check_y(y)
-        if self.kernel == "precomputed":
+        if self.kernel == "precomputed" and sparse.issparse(X) \
+                and getattr(self, "_graph_in", None) is X \
+                and getattr(self, "graph_", None) is not None and self.graph_.shape[0] == y.size:
+            W = self.graph_  # the same graph object as the last fit: checked then
+        elif self.kernel == "precomputed":
             W = check_graph(X, y.size)
         else:
             if sparse.issparse(X):
@@ -273,8 +295,11 @@ class LabelSpreader(BaseEstimator):
             self.__dict__.pop("_reference", None)
 
         F0 = self._start(n, classes, init, init_classes, Y)
+        solved = self._unchanged_columns(y, classes, S, init)
         F, it, ok = _solve(S, (1.0 - self.alpha) * Y, F0, float(self.alpha), float(self.tol),
-                           int(self.max_iter), self.solver)
+                           int(self.max_iter), self.solver, solved)
+        self._last = {"S": S, "y": y.copy(), "ok": ok,
+                      "settings": (float(self.alpha), float(self.tol), self.solver)}
         if not ok:
             from sklearn.exceptions import ConvergenceWarning
 
@@ -287,6 +312,19 @@ class LabelSpreader(BaseEstimator):
         self.transduction_ = classes[np.argmax(self.label_distributions_, axis=1)]
         self.n_iter_ = it
         return self
+
+    def _unchanged_columns(self, y, classes, S, init):
+        """Per class: True when a warm start begins from the last fit's solution for it, on the
+        same graph and settings, that fit converged, and the class's confirmed windows are the
+        same; such a column is solved already (one confirmation leaves all but one so)."""
+        last = getattr(self, "_last", None)
+        if (init is not None or not self.warm_start or last is None or last["S"] is not S
+                or not last["ok"] or last["y"].shape != y.shape
+                or last["settings"] != (float(self.alpha), float(self.tol), self.solver)):
+            return None
+        before = set(self.classes_.tolist())
+        return np.array([int(k) in before and bool(np.array_equal(y == k, last["y"] == k))
+                         for k in classes])
 
     def _start(self, n, classes, init, init_classes, Y):
         if init is None and self.warm_start and getattr(self, "label_mass_", None) is not None \
@@ -315,31 +353,8 @@ class LabelSpreader(BaseEstimator):
         """:func:`window_outputs` of the last fit."""
         if reference is None:
             reference = self.reference_mass()
-        return window_outputs(self.graph_, self.label_mass_, y, classes=self.classes_,
-                              reference=reference, class_balance=self.class_balance)
-
-
-@dataclass
-class WindowOutputs:
-    """What spreading says about each window (arrays of length n_windows unless noted).
-
-    label: proposed class code (the confirmed one for confirmed windows).
-    distribution: (n_windows, n_classes) normalized scores, columns in ``classes`` order.
-    confidence: probability of ``label`` in ``distribution`` (0 where nothing reached the window).
-    margin: top probability minus the second one.
-    support: label mass received relative to :func:`reference_mass`, in [0, 1]; low means no
-        confirmed window nearby.
-    conflict: for confirmed windows, the weighted share of graph neighbours whose distribution
-        does not back the confirmed label (0..1); 0 for unconfirmed windows.
-    """
-
-    classes: np.ndarray
-    label: np.ndarray
-    distribution: np.ndarray
-    confidence: np.ndarray
-    margin: np.ndarray
-    support: np.ndarray
-    conflict: np.ndarray
+        return _outputs(self.graph_, self.label_mass_, _check_y(y), self.classes_, reference,
+                        float(self.alpha), self.class_balance)
 
 
 def _distributions(F, y, classes, class_balance):
@@ -360,7 +375,11 @@ def window_outputs(graph, F, y, *, classes=None, reference=None, alpha: float = 
     ``reference`` is :func:`reference_mass` of the graph (computed with ``alpha`` when not given).
     """
     y = _check_y(y)
-    W = check_graph(graph, y.size)
+    return _outputs(check_graph(graph, y.size), F, y, classes, reference, alpha, class_balance)
+
+
+def _outputs(W, F, y, classes, reference, alpha, class_balance) -> WindowOutputs:
+    """:func:`window_outputs` of a checked graph ``W`` and checked labels ``y``."""
     F = np.asarray(F, dtype=np.float64)
     labeled = y >= 0
     if classes is None:

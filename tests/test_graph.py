@@ -1,5 +1,6 @@
 """Tests of the window graph (labeler.graph)."""
 
+import json
 import math
 
 import numpy as np
@@ -124,3 +125,42 @@ def test_bad_parameters():
         build_graph(X, recording=np.zeros(10))
     with pytest.raises(ValueError, match="9 windows"):
         build_graph(X, recording=np.zeros(9), seq=np.arange(9))
+
+
+def test_auto_weighs_the_exact_search_against_compiling_the_approximate_one(monkeypatch, tmp_path):
+    import labeler.graph as graph
+
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path))
+    monkeypatch.setattr(graph, "APPROXIMATE_ABOVE", 50)
+    monkeypatch.setattr(graph, "_APPROX", {"compiled": False})
+    monkeypatch.setattr(graph, "COST_SAMPLE", 100)
+    Z = np.random.default_rng(1).normal(size=(400, 3))
+    # a new process with a compilation measured at an hour: the exact search is cheaper, and its
+    # index and the rows searched to measure it come back ready to use
+    graph._remember_costs(compile_s=3600.0, s_per_row=1e-4)
+    method, measured = graph.choose_method(Z, 5)
+    assert method == "exact" and measured[1].size == graph.COST_SAMPLE
+    assert json.loads((tmp_path / "labeler" / "neighbour-costs.json").read_text())["compile_s"] == 3600
+    # the same costs in a process that has compiled it already: only the search counts
+    graph._remember_costs(s_per_row=0.0)
+    monkeypatch.setattr(graph, "_APPROX", {"compiled": True})
+    assert graph.choose_method(Z, 5)[0] == "approximate"
+    # at or below the threshold the exact search is used without measuring
+    assert graph.choose_method(Z[:50], 5) == ("exact", None)
+    # "auto" through the exact branch gives the exact neighbours
+    monkeypatch.setattr(graph, "_APPROX", {"compiled": False})
+    graph._remember_costs(compile_s=3600.0, s_per_row=1.0)
+    ind, _ = nearest_neighbors(Z, 5)
+    D = np.linalg.norm(Z[:, None] - Z[None], axis=2)
+    np.fill_diagonal(D, np.inf)
+    np.testing.assert_array_equal(ind, np.argsort(D, axis=1)[:, :5])
+
+
+def test_unreadable_cost_file_falls_back_to_the_defaults(monkeypatch, tmp_path):
+    import labeler.graph as graph
+
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path))
+    (tmp_path / "labeler").mkdir()
+    (tmp_path / "labeler" / "neighbour-costs.json").write_text("{not json")
+    assert graph._approximate_costs() == {"compile_s": graph.DEFAULT_COMPILE_S,
+                                          "s_per_row": graph.DEFAULT_APPROX_S_PER_ROW}

@@ -6,7 +6,7 @@ import pytest
 
 from labeler.channels import STANDARD_GRAVITY, parse_channel, triads
 from labeler.errors import InputError
-from labeler.recordings import read_recording
+from labeler.recordings import read_recording, recording_from_frame
 from conftest import sensor_frame
 
 
@@ -137,3 +137,60 @@ def test_empty_and_binary(tmp_path):
     (tmp_path / "h.csv").write_text("time,wrist_acc_x\n")
     with pytest.raises(InputError, match="header only"):
         read_recording(tmp_path / "h.csv")
+
+
+def _reference_grid(t, values, rate, max_fill):
+    """Short-run filling and resampling done the plain way, with numpy.interp per run and channel
+    (the reference: numpy's piecewise-linear interpolation)."""
+    values = values.copy()
+    n = len(t)
+    for j in range(values.shape[1]):
+        miss = np.isnan(values[:, j])
+        edges = np.flatnonzero(np.diff(np.concatenate([[0], miss.astype(int), [0]])))
+        for a, b in zip(edges[0::2], edges[1::2]):
+            if b - a <= max_fill and a > 0 and b < n:
+                values[a:b, j] = np.interp(t[a:b], t[~miss], values[~miss, j])
+    ok = ~np.isnan(values).any(axis=1)
+    grid = t[0] + np.arange(int(math.floor((t[-1] - t[0]) * rate + 1e-6)) + 1) / rate
+    return grid, np.column_stack([np.interp(grid, t[ok], values[ok, j])
+                                  for j in range(values.shape[1])])
+
+
+def test_many_short_dropouts_filled_as_numpy_interp_does():
+    rng = np.random.default_rng(3)
+    frame = sensor_frame(6000, jitter=0.3, seed=3)
+    cols = [c for c in frame.columns if c != "time"]
+    values = frame[cols].to_numpy().copy()
+    for _ in range(400):  # short runs of one to twelve samples, anywhere, in any channel
+        a, m, j = rng.integers(1, 5900), rng.integers(1, 13), rng.integers(0, len(cols))
+        values[a:a + m, j] = np.nan
+    values[3000:3040, 2] = np.nan  # 0.8 s: too long to fill, kept as a gap
+    frame[cols] = values
+    frame = frame.drop(index=range(4500, 4700)).reset_index(drop=True)  # a 4 s pause
+    rec = recording_from_frame(frame, where="f.csv", content_hash="h", name="r")
+    t = frame["time"].to_numpy()
+    grid, expected = _reference_grid(t, frame[cols].to_numpy(), 50.0, max_fill=12)
+    assert rec.n_samples == grid.size
+    assert not rec.valid[int(3005 - t[0] * 50):int(3035 - t[0] * 50)].any()
+    assert not rec.valid[(grid > t[4499] + 1e-9) & (grid < t[4500] - 1e-9)].any()
+    assert rec.valid.mean() > 0.9
+    assert np.isnan(rec.signal[~rec.valid]).all()
+    np.testing.assert_allclose(rec.signal[rec.valid], expected[rec.valid].astype(np.float32),
+                               rtol=0, atol=1e-6)
+
+
+def test_clock_within_rounding_of_the_grid_keeps_every_valid_sample_finite():
+    # times that differ from the grid by rounding only, rows missing (a pause) and a run of
+    # missing values too long to fill: every sample kept valid is a number
+    rng = np.random.default_rng(5)
+    frame = sensor_frame(3000)
+    frame["time"] = np.arange(3000) / 50.0 + rng.uniform(-1e-11, 1e-11, 3000)
+    frame.loc[0, "time"] = 0.0
+    frame.loc[999, "time"] = 999 / 50.0 - 1e-11  # just before its grid point, a missing value next
+    frame.loc[1000:1100, "hip_acc_x"] = np.nan
+    frame = frame.drop(index=range(2000, 2200)).reset_index(drop=True)
+    rec = recording_from_frame(frame, where="f.csv", content_hash="h", name="r")
+    assert rec.n_samples == 3000
+    assert np.isfinite(rec.signal[rec.valid]).all()
+    assert rec.valid[999] and not rec.valid[1000:1101].any() and rec.valid[1101]
+    assert not rec.valid[2000:2200].any() and rec.valid[2200:].all()

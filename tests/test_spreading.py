@@ -248,3 +248,25 @@ def test_property_results_do_not_depend_on_window_order(case):
     np.testing.assert_allclose(op.distribution, o.distribution[perm], atol=1e-8)
     np.testing.assert_allclose(op.support, o.support[perm], atol=1e-8)
     np.testing.assert_allclose(op.conflict, o.conflict[perm], atol=1e-8)
+
+
+def test_warm_refreshes_match_scikit_learn_after_every_kind_of_change(digits_graph):
+    # A run of warm refreshes on one graph object (one more confirmation, a relabel, a withdrawal,
+    # a class seen for the first time) against scikit-learn's LabelSpreading (Pedregosa et al.,
+    # "Scikit-learn: Machine learning in Python", 2011) fitted from scratch each time.
+    X, t, W, y = digits_graph
+    warm = LabelSpreader(alpha=0.5, tol=1e-10, warm_start=True, max_iter=100000).fit(W, y)
+    y = y.copy()
+    y[np.flatnonzero(y == 4)] = -1  # class 4 not confirmed yet
+    unl = np.flatnonzero(y < 0)
+    steps = [(unl[0], t[unl[0]]), (unl[1], t[unl[1]]), (np.flatnonzero(y >= 0)[0], -1),
+             (unl[2], 4), (np.flatnonzero(y >= 0)[1], (t[np.flatnonzero(y >= 0)[1]] + 1) % 10)]
+    for i, label in steps:
+        y[i] = label
+        warm.fit(W, y)
+        ref = LabelSpreading(kernel=lambda A, B: W, alpha=0.5, tol=1e-13, max_iter=100000).fit(X, y)
+        np.testing.assert_array_equal(warm.classes_, ref.classes_)
+        np.testing.assert_allclose(warm.label_distributions_, ref.label_distributions_, atol=1e-6)
+        out = warm.outputs(y)
+        np.testing.assert_allclose(out.distribution, window_outputs(W, warm.label_mass_, y,
+                                                                    classes=warm.classes_).distribution)

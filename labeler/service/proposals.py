@@ -16,7 +16,6 @@ import time
 
 import numpy as np
 import pandas as pd
-from scipy import sparse
 
 from labeler.errors import InputError
 from labeler.results import ProposalRun
@@ -57,6 +56,8 @@ class Proposals:
             return cached[0], key, False
         got = self.ctx.store.get_blob(GRAPH_BLOB)
         if got is not None and got[1].get("key") == key:
+            from scipy import sparse
+
             W = sparse.load_npz(io.BytesIO(got[0])).tocsr()
             self.ctx.cache["graph"] = (W, key)
             return W, key, False
@@ -72,6 +73,8 @@ class Proposals:
                         temporal_weight=params["temporal_weight"],
                         pca_components=pca if pca and pca < X.shape[1] else None)
         buf = io.BytesIO()
+        from scipy import sparse
+
         sparse.save_npz(buf, W)
         self.ctx.store.put_blob(GRAPH_BLOB, buf.getvalue(), {"key": key, **params})
         self.ctx.cache["graph"] = (W, key)
@@ -195,7 +198,7 @@ class Proposals:
         any confirmation it spreads its picks over the graph. ``exclude``: window ids left out
         (drawn into an open audit)."""
         from labeler.review import review_queue as _queue
-        from labeler.spreading import WindowOutputs
+        from labeler.outputs import WindowOutputs
 
         if int(n) != n or n < 1:
             raise InputError(f"queue length {n} must be a whole number >= 1")

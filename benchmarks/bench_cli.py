@@ -1,0 +1,103 @@
+"""Start-up of the everyday commands on a large project: `labeler status`, `queue`, `history`.
+
+Builds a project of simulated recordings (the demo scenario, several pickers: 5 x 8 h is about
+112k windows), confirms 20 windows of each activity from the simulator's truth in a few batches,
+proposes once (so that the graph and the proposals are stored, as in daily use), and then runs
+each command as a new process (`python -m labeler.cli ...`), best of ``--repeats``. Beside each
+time it prints the bare start of Python with numpy imported (the floor no command goes below) and
+how much of the command is spent importing modules (from ``python -X importtime``).
+Goal: each command under 0.5 s.
+
+Run: python benchmarks/bench_cli.py [--recordings 5] [--hours 8] [--repeats 3] [--keep FILE]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+GOAL = 0.5
+COMMANDS = (["status"], ["queue"], ["history"])
+
+
+def build(path: Path, recordings: int, hours: float) -> int:
+    from labeler.project import Project
+    from labeler.recordings import recording_from_frame
+    from labeler.synthetic import simulate_recording, window_truth
+
+    project = Project.create(path, annotator="bench")
+    try:
+        truths = {}
+        for k in range(recordings):
+            sim = simulate_recording(hours * 3600, seed=10 + k, person=k, name=f"picker{k + 1}")
+            rec = recording_from_frame(sim.frame, where=f"picker{k + 1}.csv",
+                                       content_hash=f"bench-{k}", name=f"picker{k + 1}")
+            project.add_recording_data([rec])
+            truths[rec.name] = sim.truth
+        w = project.windows()
+        rng = np.random.default_rng(0)
+        for name, truth in truths.items():
+            sub = w[w["recording"] == name]
+            labels = window_truth(truth, sub["start_s"].to_numpy(), sub["stop_s"].to_numpy())
+            for activity in sorted({str(a) for a in labels if a is not None}):
+                ids = sub["id"].to_numpy()[labels == activity]
+                pick = rng.choice(ids, size=min(4, ids.size), replace=False)
+                project.confirm(pick.tolist(), activity, source="cli", create_class=True)
+        project.refresh_proposals()
+        return len(w)
+    finally:
+        project.close()
+
+
+def run(args: list[str], env: dict) -> float:
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, *args], env=env, check=True, stdout=subprocess.DEVNULL,
+                   stderr=subprocess.DEVNULL)
+    return time.perf_counter() - t0
+
+
+def import_seconds(args: list[str], env: dict) -> float:
+    """Seconds a command spends importing modules (the self times of ``-X importtime`` add up)."""
+    res = subprocess.run([sys.executable, "-X", "importtime", *args], env=env, check=True,
+                         stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    return sum(int(m.group(1)) for m in re.finditer(r"import time:\s+(\d+) \|", res.stderr)) / 1e6
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--recordings", type=int, default=5)
+    ap.add_argument("--hours", type=float, default=8.0)
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--keep", type=Path, help="build the project here (or reuse it when it exists)")
+    args = ap.parse_args()
+    env = dict(os.environ, LABELER_ANNOTATOR="bench")
+    with tempfile.TemporaryDirectory() as tmp:
+        path = args.keep or Path(tmp) / "bench.labeler"
+        if not path.exists():
+            t0 = time.perf_counter()
+            n = build(path, args.recordings, args.hours)
+            print(f"project: {n} windows ({args.recordings} simulated recordings of {args.hours:g} h), "
+                  f"built in {time.perf_counter() - t0:.0f} s")
+        else:
+            print(f"project: {path} (reused)")
+        floor = min(run(["-c", "import numpy"], env) for _ in range(args.repeats))
+        print(f"python -c 'import numpy' (the floor): {floor:.2f} s")
+        for cmd in COMMANDS:
+            argv = ["-m", "labeler.cli", *cmd, str(path)]
+            best = min(run(argv, env) for _ in range(args.repeats))
+            imp = import_seconds(argv, env)
+            print(f"labeler {' '.join(cmd):<8} {best:5.2f} s  (imports {imp:.2f} s; "
+                  f"{best / floor:.1f}x the floor; goal < {GOAL} s: "
+                  f"{'met' if best < GOAL else 'MISSED'})")
+
+
+if __name__ == "__main__":
+    main()
