@@ -1,6 +1,10 @@
 """Benchmark of the proposals: a simulated annotator, refresh speed, graph build time.
 
-Run:  python benchmarks/bench_proposals.py [--part annotator|speed|tune|all] [--quick]
+Run:  python benchmarks/bench_proposals.py [--part confirmations|annotator|speed|tune|all] [--quick]
+
+confirmations: the table of confirmations to 90 / 95 % for the review queue and random order on
+    the 8-hour recording, the crew of six (labeler.crew), BasicMotions and digits, per proposal
+    method (before: spreading alone; after: the proposals Project makes now).
 
 annotator: an oracle answers from ground truth. From zero confirmations it confirms the top
     unconfirmed windows of an ordering (batch of 5 per round), proposals refresh (warm start), and
@@ -97,6 +101,37 @@ def basic_motions():
     X, _ = window_features(signal, np.arange(n) * L, L, 10.0, channels)
     _, t = np.unique(np.concatenate([ya, yb]), return_inverse=True)
     return X, t, None, None
+
+
+def _windows_of(sims, hash_prefix: str):
+    """Features, truth, recording and sequence of simulated recordings (one recording each)."""
+    from labeler.features import window_features
+    from labeler.recordings import recording_from_frame
+    from labeler.synthetic import window_truth
+    from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+
+    Xs, truths, recs, seqs = [], [], [], []
+    for k, sim in enumerate(sims):
+        rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{hash_prefix}-{k}",
+                                   name=sim.name)
+        length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
+        starts = cut_windows(rec.valid, length, step)
+        X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
+        Xs.append(X)
+        truths.append(window_truth(sim.truth, starts / rec.rate,
+                                   (starts + length) / rec.rate).astype(str))
+        recs.append(np.full(len(starts), k, dtype=np.int64))
+        seqs.append(np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))]))
+    _, t = np.unique(np.concatenate(truths), return_inverse=True)
+    return np.vstack(Xs), t, np.concatenate(recs), np.concatenate(seqs)
+
+
+def crew_of_six(hours: float = 1.0, seed: int = 21):
+    """Six simulated crew members with strong person differences (labeler.crew), one recording
+    each: sensor turned on the wrist and around the waist, cadence, amplitude, noise."""
+    from labeler.crew import simulate_crew
+
+    return _windows_of(simulate_crew(6, hours * 3600, seed=seed), f"crew{seed}")
 
 
 def digits():
@@ -202,6 +237,120 @@ def part_annotator(quick: bool):
         print(f"  random needs {r95}: ratio {r95 / q95:.2f}x ({'met' if r95 >= 2 * q95 else 'MISSED'})")
     else:
         print(f"  random reaches 95 % at {r95} (None = not within the budget)")
+
+
+# ---------------------------------------------------------------- confirmations to 90 / 95 %
+
+class SpreadOnly:
+    """Proposals as label spreading alone on the graph Project builds (the method before)."""
+
+    name = "spreading"
+
+    def __init__(self, X, rec, seq):
+        self.graph = build_graph(X, recording=rec, seq=seq,
+                                 pca_components=PCA if X.shape[1] > PCA else None)
+        self.spreader = LabelSpreader(warm_start=True)
+
+    def __call__(self, y):
+        self.spreader.fit(self.graph, y)
+        return self.spreader.outputs(y)
+
+
+def run_order(method, t, rec, seq, order: str, budget: int, seed: int = 0, batch: int = BATCH):
+    """Confirmations so far and accuracy of (confirmed + proposed) after each round of ``batch``
+    oracle answers, the windows picked by the review queue or in random order."""
+    n = t.size
+    y = np.full(n, -1)
+    random_order = np.random.default_rng(seed).permutation(n)
+    outputs = None
+    counts, accs = [0], [0.0]
+    while (y >= 0).sum() < budget:
+        labeled = y >= 0
+        if order == "queue":
+            pick = review_queue(method.graph, outputs, labeled, rec, seq, n=batch,
+                                exclude=labeled).index
+        else:
+            pick = [i for i in random_order if not labeled[i]][:batch]
+        if len(pick) == 0:
+            break
+        pick = np.asarray(pick)
+        y[pick] = t[pick]
+        outputs = method(y)
+        counts.append(int((y >= 0).sum()))
+        accs.append(float((outputs.label == t).mean()))
+    return np.array(counts), np.array(accs)
+
+
+def carry_over(X, t, rec):
+    """Share of the graph's edge weight inside one recording, and how often the nearest
+    neighbour from another recording (resp. the same recording) has the same truth."""
+    Z = reduce(standardize(X), PCA if X.shape[1] > PCA else None)
+    W = build_graph(X, pca_components=PCA if X.shape[1] > PCA else None).tocoo()
+    inside = float(W.data[rec[W.row] == rec[W.col]].sum() / W.data.sum())
+    from sklearn.neighbors import NearestNeighbors
+
+    other, same = [], []
+    rng = np.random.default_rng(0)
+    for r in np.unique(rec):
+        mine = np.flatnonzero(rec == r)
+        rest = np.flatnonzero(rec != r)
+        q = rng.choice(mine, min(400, mine.size), replace=False)
+        _, j = NearestNeighbors(n_neighbors=1).fit(Z[rest]).kneighbors(Z[q])
+        other.append(t[rest[j[:, 0]]] == t[q])
+        _, j = NearestNeighbors(n_neighbors=6).fit(Z[mine]).kneighbors(Z[q])
+        # skip self and the windows overlapping it in time (a window step either side)
+        pos = np.searchsorted(mine, q)
+        far = np.array([next((m for m in row if abs(int(m) - p) > 1), row[-1])
+                        for row, p in zip(j, pos)])
+        same.append(t[mine[far]] == t[q])
+    return inside, float(np.mean(np.concatenate(other))), float(np.mean(np.concatenate(same)))
+
+
+def confirmation_sets(quick: bool):
+    return [("8-hour recording", lambda: synthetic(2.0 if quick else 8.0), 150 if quick else 400),
+            ("crew of six", lambda: crew_of_six(0.25 if quick else 1.0), 250 if quick else 500),
+            ("BasicMotions", basic_motions, 60),
+            ("digits", digits, 300)]
+
+
+def confirmation_methods():
+    return {"before": SpreadOnly}
+
+
+def part_confirmations(quick: bool, methods=None):
+    """Confirmations to 90 / 95 % for the review queue and random order, per data set and method."""
+    methods = confirmation_methods() if methods is None else methods
+    print(f"== confirmations to 90 / 95 % window accuracy (oracle answers, {BATCH} per round) ==")
+    head = (f"{'data set':18s} {'windows':>7s} {'method':8s} {'queue 90':>8s} {'queue 95':>8s} "
+            f"{'random 90':>9s} {'random 95':>9s} {'q95 / n':>7s} {'r95 / q95':>9s}")
+    rows = []
+    for name, load, budget in confirmation_sets(quick):
+        X, t, rec, seq = load()
+        if rec is not None and np.unique(rec).size > 1:
+            inside, other, same = carry_over(X, t, rec)
+            print(f"{name}: {inside:.0%} of the edge weight inside one recording; nearest window "
+                  f"of another recording right {other:.1%}, of the same recording {same:.1%}")
+        for mname, make in methods.items():
+            t0 = time.perf_counter()
+            m = make(X, rec, seq)
+            res = {}
+            for order in ("queue", "random"):
+                counts, accs = run_order(m, t, rec, seq, order, budget)
+                res[order] = (needed(counts, accs, 0.90), needed(counts, accs, 0.95))
+            q95, r95 = res["queue"][1], res["random"][1]
+            share = f"{q95 / t.size:.1%}" if q95 is not None else "-"
+            ratio = (f"{r95 / q95:.1f}x" if r95 is not None and q95 else
+                     f">{budget / q95:.1f}x" if q95 else "-")
+            rows.append(f"{name:18s} {t.size:7d} {mname:8s} {fmt(res['queue'][0], budget):>8s} "
+                        f"{fmt(q95, budget):>8s} {fmt(res['random'][0], budget):>9s} "
+                        f"{fmt(r95, budget):>9s} {share:>7s} {ratio:>9s}")
+            print(f"  {rows[-1]}   ({time.perf_counter() - t0:.0f} s)", flush=True)
+    print()
+    print(head)
+    for r in rows:
+        print(r)
+    print("goals: queue to 95 % with <= 1 % of the windows on the 8-hour recording, <= 2 % on the "
+          "crew; random order needs >= 2x the queue's confirmations")
 
 
 # ---------------------------------------------------------------- speed
@@ -318,10 +467,12 @@ def part_tune(quick: bool):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--part", choices=["annotator", "speed", "tune", "all"], default="all")
+    ap.add_argument("--part", choices=["confirmations", "annotator", "speed", "tune", "all"],
+                    default="all")
     ap.add_argument("--quick", action="store_true", help="smaller data, for a smoke run")
     a = ap.parse_args(argv)
-    for part, fn in (("tune", part_tune), ("annotator", part_annotator), ("speed", part_speed)):
+    for part, fn in (("confirmations", part_confirmations), ("tune", part_tune),
+                     ("annotator", part_annotator), ("speed", part_speed)):
         if a.part in (part, "all"):
             fn(a.quick)
             print(flush=True)
