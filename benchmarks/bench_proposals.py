@@ -256,6 +256,28 @@ class SpreadOnly:
         return self.spreader.outputs(y)
 
 
+class Combined:
+    """Proposals as Project makes them now (labeler.proposing.Proposer): spreading and a
+    classifier on the confirmed windows, smoothed along time."""
+
+    name = "combined"
+
+    def __init__(self, X, rec, seq, temporal_weight=None, **kw):
+        from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
+        from labeler.proposing import Proposer
+
+        pca = PCA if X.shape[1] > PCA else None
+        tw = DEFAULT_TEMPORAL_WEIGHT if temporal_weight is None else temporal_weight
+        self.graph = build_graph(X, recording=rec, seq=seq, pca_components=pca, temporal_weight=tw)
+        self.features = reduce(standardize(X), pca)
+        self.rec, self.seq = rec, seq
+        self.proposer = Proposer(**kw)
+
+    def __call__(self, y):
+        self.proposer.fit(self.graph, y, features=self.features, recording=self.rec, seq=self.seq)
+        return self.proposer.outputs(y)
+
+
 def run_order(method, t, rec, seq, order: str, budget: int, seed: int = 0, batch: int = BATCH):
     """Confirmations so far and accuracy of (confirmed + proposed) after each round of ``batch``
     oracle answers, the windows picked by the review queue or in random order."""
@@ -308,13 +330,13 @@ def carry_over(X, t, rec):
 
 def confirmation_sets(quick: bool):
     return [("8-hour recording", lambda: synthetic(2.0 if quick else 8.0), 150 if quick else 400),
-            ("crew of six", lambda: crew_of_six(0.25 if quick else 1.0), 250 if quick else 500),
+            ("crew of six", lambda: crew_of_six(1 / 6 if quick else 1 / 3), 250 if quick else 400),
             ("BasicMotions", basic_motions, 60),
             ("digits", digits, 300)]
 
 
 def confirmation_methods():
-    return {"before": SpreadOnly}
+    return {"before": SpreadOnly, "after": Combined}
 
 
 def part_confirmations(quick: bool, methods=None):
@@ -351,6 +373,30 @@ def part_confirmations(quick: bool, methods=None):
         print(r)
     print("goals: queue to 95 % with <= 1 % of the windows on the 8-hour recording, <= 2 % on the "
           "crew; random order needs >= 2x the queue's confirmations")
+
+
+def part_tune_proposals(quick: bool):
+    """Queue and random confirmations to 95 % for variants of the combined proposals."""
+    from functools import partial
+
+    print("== tuning the combined proposals: confirmations to 95 % (queue / random) ==")
+    grid = [dict(classifier_weight=w, stay=s, temporal_weight=tw)
+            for w in (0.0, 0.3, 0.5) for s in (0.0, 0.9, 0.97) for tw in (0.5, 2.0)]
+    for name, load, budget in confirmation_sets(quick):
+        X, t, rec, seq = load()
+        seen = set()
+        for kw in grid:
+            if rec is None:
+                kw = dict(kw, stay=0.0, temporal_weight=0.0)
+            key = tuple(sorted(kw.items()))
+            if key in seen:
+                continue
+            seen.add(key)
+            m = partial(Combined, **kw)(X, rec, seq)
+            got = [needed(*run_order(m, t, rec, seq, order, budget), 0.95)
+                   for order in ("queue", "random")]
+            print(f"  {name:18s} " + " ".join(f"{k}={v:g}" for k, v in kw.items())
+                  + f"  queue {fmt(got[0], budget)} random {fmt(got[1], budget)}", flush=True)
 
 
 # ---------------------------------------------------------------- speed
@@ -467,13 +513,15 @@ def part_tune(quick: bool):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--part", choices=["confirmations", "annotator", "speed", "tune", "all"],
-                    default="all")
+    ap.add_argument("--part", default="all", choices=["confirmations", "tune-proposals",
+                                                      "annotator", "speed", "tune", "all"],
+                    help="all runs every part but tune-proposals (a long grid)")
     ap.add_argument("--quick", action="store_true", help="smaller data, for a smoke run")
     a = ap.parse_args(argv)
-    for part, fn in (("confirmations", part_confirmations), ("tune", part_tune),
+    for part, fn in (("confirmations", part_confirmations), ("tune-proposals", part_tune_proposals),
+                     ("tune", part_tune),
                      ("annotator", part_annotator), ("speed", part_speed)):
-        if a.part in (part, "all"):
+        if a.part == part or (a.part == "all" and part != "tune-proposals"):
             fn(a.quick)
             print(flush=True)
 

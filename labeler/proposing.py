@@ -1,0 +1,274 @@
+"""Proposals from three sources: the graph, a classifier, and time.
+
+Pure numerics, no storage, no display.
+
+:class:`Proposer` makes a proposed label for every window from the confirmed ones:
+
+1. graph spreading (:class:`labeler.spreading.LabelSpreader`): label mass flows along the edges of
+   the window graph, so a confirmation teaches the windows that look like it;
+2. a classifier trained on the confirmed windows (multinomial logistic regression, scikit-learn):
+   it draws class boundaries across the whole feature space, so it also reaches windows that are
+   far from every confirmation in the graph (for instance another person's windows, whose graph
+   neighbours are mostly their own windows);
+3. time: activities persist, so the combined distribution is smoothed along each recording by a
+   forward-backward pass of a hidden Markov model whose hidden state is the activity. A window
+   keeps its activity to the next one with probability ``stay`` and switches to each other class
+   with equal probability; a gap in the recording (sequence numbers not consecutive) forgets the
+   past. The window's combined distribution is the emission; a confirmed window emits its label.
+
+The graph and the classifier are combined as a product of experts:
+``p(c) ∝ p_graph(c)**(1 - w) * p_classifier(c)**w`` with ``w = classifier_weight``; windows the
+graph has not reached (no label mass) take the classifier alone. The forward-backward pass is the
+textbook one (Rabiner, "A tutorial on hidden Markov models and selected applications in speech
+recognition", 1989), with scaling per step.
+
+Defaults were measured with ``benchmarks/bench_proposals.py --part confirmations`` on the demo's
+8-hour recording, the crew of six (``labeler.crew``), BasicMotions and scikit-learn's digits.
+
+Proposed labels are suggestions: a qualified person reviews them before they are used.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+from sklearn.base import BaseEstimator
+
+from labeler.errors import InputError
+from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _check_y
+
+#: Weight of the classifier against the graph (0 = graph alone, 1 = classifier alone).
+DEFAULT_CLASSIFIER_WEIGHT = 0.5
+#: Probability that a window's activity goes on in the next window (0 = no smoothing).
+DEFAULT_STAY = 0.9
+#: Inverse regularization of the logistic regression.
+DEFAULT_C = 1.0
+#: Power of the emissions in the smoothing (windows overlapping by half share their samples).
+DEFAULT_TEMPER = 0.5
+_EPS = 1e-6
+
+
+class ProposingInputError(InputError, ValueError):
+    """Bad input to the proposer (also a ValueError, as scikit-learn conventions expect)."""
+
+
+def classifier_probabilities(Z, y, classes, *, C: float = DEFAULT_C) -> np.ndarray:
+    """Class probabilities of every row of ``Z`` from a logistic regression trained on the rows
+    with ``y >= 0``; columns in ``classes`` order. Uniform when fewer than two classes are
+    confirmed."""
+    from sklearn.linear_model import LogisticRegression
+
+    Z = np.asarray(Z, dtype=np.float64)
+    classes = np.asarray(classes)
+    n = Z.shape[0]
+    lab = y >= 0
+    if classes.size < 2:
+        return np.ones((n, max(classes.size, 1)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # convergence warnings on a handful of examples
+        clf = LogisticRegression(C=C, max_iter=300).fit(Z[lab], y[lab])
+    P = np.zeros((n, classes.size))
+    P[:, np.searchsorted(classes, clf.classes_)] = clf.predict_proba(Z)
+    return P
+
+
+def combine(P_graph: np.ndarray, P_clf: np.ndarray, weight: float) -> np.ndarray:
+    """Product of experts ``P_graph**(1 - weight) * P_clf**weight``, rows normalized; a row the
+    graph left at zero takes ``P_clf`` alone."""
+    reached = P_graph.sum(axis=1) > 0
+    lg = np.log(np.maximum(P_graph, _EPS))
+    lc = np.log(np.maximum(P_clf, _EPS))
+    L = np.where(reached[:, None], (1.0 - weight) * lg + weight * lc, lc)
+    L -= L.max(axis=1, keepdims=True)
+    P = np.exp(L)
+    return P / P.sum(axis=1, keepdims=True)
+
+
+def _chains(recording, seq, n):
+    """Windows in time order and, per position, whether it continues the previous window."""
+    if recording is None or seq is None:
+        return None
+    recording = np.asarray(recording)
+    seq = np.asarray(seq).astype(np.int64)
+    if recording.shape != (n,) or seq.shape != (n,):
+        raise ProposingInputError(f"recording and seq must have one entry per window ({n}), got "
+                                  f"shapes {recording.shape} and {seq.shape}")
+    _, rec = np.unique(recording, return_inverse=True)
+    order = np.lexsort((seq, rec))
+    cont = np.zeros(n, dtype=bool)
+    cont[1:] = (rec[order[1:]] == rec[order[:-1]]) & (seq[order[1:]] - seq[order[:-1]] == 1)
+    return order, cont
+
+
+def _blocked_products(A: np.ndarray) -> np.ndarray:
+    """Running products ``A[:, j] @ ... @ A[:, 0]`` along axis 1 of (blocks, length, k, k), each
+    scaled by its largest entry (only directions matter)."""
+    nb, L, k, _ = A.shape
+    out = np.empty_like(A)
+    cur = np.broadcast_to(np.eye(k), (nb, k, k)).copy()
+    for j in range(L):  # loop over positions in a block; all blocks at once
+        cur = A[:, j] @ cur
+        cur /= cur.max(axis=(1, 2), keepdims=True)
+        out[:, j] = cur
+    return out
+
+
+def _margin(P: np.ndarray) -> np.ndarray:
+    """Top probability minus the second one, per row."""
+    k = P.shape[1]
+    if k < 2:
+        return P[:, 0].copy() if k else np.zeros(P.shape[0])
+    part = np.partition(P, k - 2, axis=1)
+    return part[:, -1] - part[:, -2]
+
+
+def _normalize(v: np.ndarray) -> np.ndarray:
+    return v / v.sum(axis=-1, keepdims=True)
+
+
+def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: float = 1.0
+                       ) -> np.ndarray:
+    """Posterior class distribution of each window given the emissions ``P`` (rows) of its whole
+    recording, by forward-backward with a "stay or switch uniformly" transition (see the module
+    docstring). ``stay`` in (0, 1); at or below 1/k (k classes) nothing is smoothed. ``temper``
+    in (0, 1] raises the emissions to that power: overlapping windows share samples, so their
+    evidence is not independent, and counting it in full makes the posterior overconfident.
+
+    The chain is cut into about sqrt(n) blocks that are processed side by side: each block's
+    transfer matrix, then the messages at the block borders one block after the other, then every
+    window's message from its block's border (the same numbers as one pass, in O(sqrt(n)) steps
+    of numpy instead of O(n)).
+    """
+    P = np.asarray(P, dtype=np.float64)
+    n, k = P.shape
+    if not (0 < stay < 1):
+        raise ProposingInputError(f"stay must lie strictly between 0 and 1, got {stay}")
+    chains = _chains(recording, seq, n)
+    if chains is None or k < 2 or stay <= 1.0 / k or n < 2:
+        return P.copy()
+    order, cont = chains
+    switch = (1.0 - stay) / (k - 1)
+    M = np.full((k, k), switch) + np.eye(k) * (stay - switch)  # stay or switch uniformly
+    U = np.full((k, k), 1.0 / k)  # a new chain (a gap, another recording) forgets the past
+    L = int(np.ceil(np.sqrt(n)))
+    nb = int(np.ceil(n / L))
+    E = np.ones((nb * L, k))
+    E[:n] = np.maximum(P[order], 1e-12) ** temper
+    step = np.zeros(nb * L, dtype=bool)
+    step[:n] = cont
+    # A_i = diag(E_i) T_i: forward message f_i ∝ A_i f_(i-1); backward beta_(i-1) = A_i^T beta_i
+    A = E[:, :, None] * np.where(step[:, None, None], M, U)
+    A = A.reshape(nb, L, k, k)
+    fwd = _blocked_products(A)
+    g = np.empty((nb, k))
+    g[0] = 1.0 / k
+    for b in range(1, nb):  # messages at block borders, one block after the other
+        g[b] = _normalize(fwd[b - 1, -1] @ g[b - 1])
+    f = _normalize(np.einsum("bjkl,bl->bjk", fwd, g))
+    # backward: products of A^T from the block's end towards its start
+    At = np.swapaxes(A, 2, 3)
+    shifted = np.concatenate([At[:, 1:], np.broadcast_to(np.eye(k), (nb, 1, k, k))], axis=1)
+    bwd = _blocked_products(shifted[:, ::-1])[:, ::-1]  # bwd[b, j] = A_(j+1)^T ... A_(L-1)^T
+    h = np.empty((nb, k))
+    h[-1] = 1.0
+    for b in range(nb - 2, -1, -1):
+        h[b] = _normalize(At[b + 1, 0] @ (bwd[b + 1, 0] @ h[b + 1]))
+    beta = np.einsum("bjkl,bl->bjk", bwd, h)
+    post = _normalize((f * beta).reshape(nb * L, k)[:n])
+    out = np.empty_like(post)
+    out[order] = post
+    return out
+
+
+class Proposer(BaseEstimator):
+    """Graph spreading, a classifier on the confirmed windows, and smoothing along time.
+
+    Parameters
+    ----------
+    alpha : clamping factor of the spreading (:class:`labeler.spreading.LabelSpreader`).
+    classifier_weight : float in [0, 1]; 0 = graph alone, 1 = classifier alone.
+    stay : probability that an activity goes on to the next window; 0 turns smoothing off.
+    C : inverse regularization of the logistic regression.
+    warm_start : spreading starts from the previous fit's label mass.
+
+    Attributes
+    ----------
+    spreader_ : the fitted LabelSpreader.
+    classes_ : confirmed class codes, sorted.
+    label_distributions_ : (n_windows, n_classes) combined and smoothed distributions.
+    transduction_ : proposed class per window (a confirmed window keeps its label).
+    """
+
+    def __init__(self, alpha: float = DEFAULT_ALPHA, *, classifier_weight: float =
+                 DEFAULT_CLASSIFIER_WEIGHT, stay: float = DEFAULT_STAY,
+                 temper: float = DEFAULT_TEMPER, uncertainty: str = "both", C: float = DEFAULT_C,
+                 warm_start: bool = True):
+        self.alpha = alpha
+        self.classifier_weight = classifier_weight
+        self.stay = stay
+        self.temper = temper
+        self.uncertainty = uncertainty
+        self.C = C
+        self.warm_start = warm_start
+
+    def fit(self, graph, y, *, features=None, recording=None, seq=None, init=None,
+            init_classes=None):
+        """Propose labels for every window: ``graph`` the window graph, ``y`` class codes with -1
+        for unconfirmed, ``features`` (n_windows x d, e.g. standardized and PCA-reduced) for the
+        classifier (None: no classifier), ``recording``/``seq`` for smoothing along time (None:
+        none)."""
+        if not (0.0 <= self.classifier_weight <= 1.0):
+            raise ProposingInputError(f"classifier_weight must lie in [0, 1], got "
+                                      f"{self.classifier_weight!r}")
+        if not (0.0 <= self.stay < 1.0):
+            raise ProposingInputError(f"stay must lie in [0, 1), got {self.stay!r}")
+        if not (0.0 < self.temper <= 1.0):
+            raise ProposingInputError(f"temper must lie in (0, 1], got {self.temper!r}")
+        if self.uncertainty not in ("both", "smoothed"):
+            raise ProposingInputError(f"uncertainty must be 'both' or 'smoothed', got "
+                                      f"{self.uncertainty!r}")
+        if not (self.C > 0):
+            raise ProposingInputError(f"C must be > 0, got {self.C!r}")
+        y = _check_y(y)
+        sp = getattr(self, "spreader_", None)
+        if sp is None or not self.warm_start or sp.alpha != self.alpha:
+            sp = LabelSpreader(alpha=self.alpha, warm_start=self.warm_start)
+        sp.fit(graph, y, init=init, init_classes=init_classes)
+        classes = sp.classes_
+        P = sp.label_distributions_
+        if features is not None and self.classifier_weight > 0 and classes.size > 1:
+            Z = np.asarray(features)
+            if Z.ndim != 2 or Z.shape[0] != y.size:
+                raise ProposingInputError(f"features must have one row per window ({y.size}), "
+                                          f"got shape {Z.shape}")
+            P = combine(P, classifier_probabilities(Z, y, classes, C=self.C),
+                        float(self.classifier_weight))
+        lab = y >= 0
+        # a confirmed window emits its own label
+        P = np.where(lab[:, None], 0.0, P)
+        P[np.flatnonzero(lab), np.searchsorted(classes, y[lab])] = 1.0
+        self.local_distributions_ = P
+        if self.stay > 0 and recording is not None and seq is not None:
+            P = temporal_smoothing(P, recording, seq, float(self.stay), float(self.temper))
+        self.spreader_ = sp
+        self.classes_ = classes
+        self.label_distributions_ = P
+        self.transduction_ = np.where(lab, y, classes[np.argmax(P, axis=1)])
+        return self
+
+    def outputs(self, y, reference=None) -> WindowOutputs:
+        """Per-window outputs: label, distribution, confidence and margin from the combined
+        distribution; support and conflict from the graph spreading."""
+        y = _check_y(y)
+        base = self.spreader_.outputs(y, reference=reference)
+        P = self.label_distributions_
+        n, k = P.shape
+        label = self.transduction_
+        confidence = P[np.arange(n), np.searchsorted(self.classes_, label)]
+        margin = _margin(P)
+        if self.uncertainty == "both":
+            # a window is uncertain when its own evidence or its time context is unsure
+            margin = np.minimum(margin, _margin(self.local_distributions_))
+        return WindowOutputs(self.classes_, label, P, confidence, margin, base.support,
+                             base.conflict)

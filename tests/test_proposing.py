@@ -1,0 +1,128 @@
+"""Proposals from the graph, a classifier and time (labeler.proposing)."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+from sklearn.linear_model import LogisticRegression
+
+from labeler.graph import build_graph
+from labeler.proposing import (Proposer, ProposingInputError, classifier_probabilities, combine,
+                               temporal_smoothing)
+from labeler.spreading import LabelSpreader
+
+
+def _posterior_by_enumeration(P, stay, cont):
+    """Smoothed posteriors by summing over every state path (the definition of the forward-
+    backward posterior: Rabiner, "A tutorial on hidden Markov models and selected applications in
+    speech recognition", 1989, eq. 27), uniform start, uniform restart where ``cont`` is False."""
+    n, k = P.shape
+    switch = (1 - stay) / (k - 1)
+    M = np.full((k, k), switch) + np.eye(k) * (stay - switch)
+    post = np.zeros((n, k))
+    for path in itertools.product(range(k), repeat=n):
+        p = P[0, path[0]] / k
+        for i in range(1, n):
+            p *= (M[path[i - 1], path[i]] if cont[i] else 1 / k) * P[i, path[i]]
+        for i in range(n):
+            post[i, path[i]] += p
+    return post / post.sum(axis=1, keepdims=True)
+
+
+@pytest.mark.parametrize("n, gap", [(2, None), (6, None), (7, 3)])
+def test_smoothing_equals_the_sum_over_state_paths(n, gap):
+    rng = np.random.default_rng(n)
+    P = rng.dirichlet(np.ones(3), n)
+    seq = np.arange(n)
+    if gap is not None:
+        seq[gap:] += 1  # a gap in the recording: the chain starts afresh
+    cont = np.r_[False, np.diff(seq) == 1]
+    got = temporal_smoothing(P, np.zeros(n, int), seq, 0.8, temper=1.0)
+    np.testing.assert_allclose(got, _posterior_by_enumeration(P, 0.8, cont), atol=1e-12)
+
+
+def test_smoothing_of_several_recordings_in_any_order_is_per_recording():
+    rng = np.random.default_rng(1)
+    P = rng.dirichlet(np.ones(4), 300)
+    rec = np.repeat([5, 2, 9], 100)
+    seq = np.tile(np.arange(100), 3)
+    perm = rng.permutation(300)
+    mixed = temporal_smoothing(P[perm], rec[perm], seq[perm], 0.9, temper=0.5)
+    alone = np.vstack([temporal_smoothing(P[rec == r], rec[rec == r], seq[rec == r], 0.9,
+                                          temper=0.5) for r in (5, 2, 9)])
+    np.testing.assert_allclose(mixed[np.argsort(perm)], alone, atol=1e-10)
+
+
+def test_tempered_smoothing_is_smoothing_of_the_powered_emissions():
+    rng = np.random.default_rng(2)
+    P = rng.dirichlet(np.ones(3), 6)
+    Q = P ** 0.5 / (P ** 0.5).sum(axis=1, keepdims=True)
+    rec, seq = np.zeros(6, int), np.arange(6)
+    np.testing.assert_allclose(temporal_smoothing(P, rec, seq, 0.8, temper=0.5),
+                               _posterior_by_enumeration(Q, 0.8, np.r_[False, [True] * 5]),
+                               atol=1e-12)
+
+
+def test_smoothing_at_uniform_stay_changes_nothing():
+    P = np.random.default_rng(3).dirichlet(np.ones(4), 50)
+    np.testing.assert_allclose(temporal_smoothing(P, np.zeros(50, int), np.arange(50), 0.25), P)
+
+
+def test_classifier_probabilities_are_scikit_learns():
+    rng = np.random.default_rng(4)
+    Z = rng.normal(size=(200, 5))
+    y = np.full(200, -1)
+    y[:40] = np.repeat([3, 7, 8, 3], 10)
+    P = classifier_probabilities(Z, y, np.array([3, 7, 8]), C=0.5)
+    ref = LogisticRegression(C=0.5, max_iter=300).fit(Z[:40], y[:40]).predict_proba(Z)
+    np.testing.assert_allclose(P, ref, atol=1e-6)
+
+
+def test_combine_is_a_normalized_product_and_unreached_windows_take_the_classifier():
+    Pg = np.array([[0.8, 0.2], [0.0, 0.0]])
+    Pc = np.array([[0.5, 0.5], [0.3, 0.7]])
+    got = combine(Pg, Pc, 0.5)
+    w = np.sqrt(Pg[0] * Pc[0])
+    np.testing.assert_allclose(got[0], w / w.sum())
+    np.testing.assert_allclose(got[1], Pc[1])
+
+
+def test_without_classifier_and_time_it_is_label_spreading():
+    from sklearn.datasets import load_digits
+
+    X, t = load_digits(return_X_y=True)
+    W = build_graph(X)
+    y = np.full(t.size, -1)
+    y[::40] = t[::40]
+    p = Proposer(classifier_weight=0.0, stay=0.0).fit(W, y, features=X)
+    s = LabelSpreader().fit(W, y)
+    np.testing.assert_array_equal(p.transduction_, np.where(y >= 0, y, s.transduction_))
+
+
+def test_confirmed_windows_keep_their_label_and_outputs_are_consistent():
+    from sklearn.datasets import load_digits
+
+    X, t = load_digits(return_X_y=True)
+    W = build_graph(X)
+    y = np.full(t.size, -1)
+    y[::30] = t[::30]
+    rec, seq = np.zeros(t.size, int), np.arange(t.size)
+    p = Proposer().fit(W, y, features=X, recording=rec, seq=seq)
+    out = p.outputs(y)
+    lab = y >= 0
+    np.testing.assert_array_equal(out.label[lab], y[lab])
+    np.testing.assert_allclose(out.distribution.sum(axis=1), 1.0)
+    assert ((out.margin >= 0) & (out.margin <= 1)).all()
+    assert ((out.support >= 0) & (out.support <= 1)).all()
+
+
+@pytest.mark.parametrize("kw, word", [({"classifier_weight": 1.5}, "classifier_weight"),
+                                      ({"stay": 1.0}, "stay"), ({"temper": 0.0}, "temper"),
+                                      ({"C": 0}, "C must"), ({"uncertainty": "x"}, "uncertainty")])
+def test_bad_parameters_are_refused_with_their_name(kw, word):
+    W = build_graph(np.random.default_rng(0).normal(size=(20, 3)))
+    y = np.r_[0, 1, [-1] * 18]
+    with pytest.raises(ProposingInputError, match=word):
+        Proposer(**kw).fit(W, y)
