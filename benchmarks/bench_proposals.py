@@ -4,7 +4,9 @@ Run:  python benchmarks/bench_proposals.py [--part confirmations|annotator|speed
 
 confirmations: the table of confirmations to 90 / 95 % for the review queue and random order on
     the 8-hour recording, the crew of six (labeler.crew), BasicMotions and digits, per proposal
-    method (before: spreading alone; after: the proposals Project makes now).
+    method (before: spreading with temporal weight 0.5; after: the proposals Project makes now).
+tune-proposals: the same for variants of labeler.proposing.Proposer (classifier weight, smoothing
+    along time, temporal weight); not part of "all" (a long grid).
 
 annotator: an oracle answers from ground truth. From zero confirmations it confirms the top
     unconfirmed windows of an ordering (batch of 5 per round), proposals refresh (warm start), and
@@ -242,12 +244,13 @@ def part_annotator(quick: bool):
 # ---------------------------------------------------------------- confirmations to 90 / 95 %
 
 class SpreadOnly:
-    """Proposals as label spreading alone on the graph Project builds (the method before)."""
+    """Proposals as label spreading alone on the window graph (temporal edges of weight 0.5, the
+    default before, unless told)."""
 
     name = "spreading"
 
-    def __init__(self, X, rec, seq):
-        self.graph = build_graph(X, recording=rec, seq=seq,
+    def __init__(self, X, rec, seq, temporal_weight=0.5):
+        self.graph = build_graph(X, recording=rec, seq=seq, temporal_weight=temporal_weight,
                                  pca_components=PCA if X.shape[1] > PCA else None)
         self.spreader = LabelSpreader(warm_start=True)
 
@@ -336,7 +339,14 @@ def confirmation_sets(quick: bool):
 
 
 def confirmation_methods():
-    return {"before": SpreadOnly, "after": Combined}
+    """before: spreading on the graph with temporal weight 0.5; after: the proposals Project makes
+    now (spreading on the graph with labeler.graph.DEFAULT_TEMPORAL_WEIGHT)."""
+    from functools import partial
+
+    from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
+
+    return {"before": SpreadOnly,
+            "after": partial(SpreadOnly, temporal_weight=DEFAULT_TEMPORAL_WEIGHT)}
 
 
 def part_confirmations(quick: bool, methods=None):

@@ -54,11 +54,12 @@ COST_SAMPLE = 2000
 #: K of local scaling: sigma_i is the distance to the K-th neighbour (Zelnik-Manor & Perona 2004).
 LOCAL_SCALE_K = 7
 
-#: Default weight of an edge between consecutive windows. Measured on the demo simulator with
-#: random confirmations (benchmarks/bench_proposals.py --part tune): accuracy 0.902 / 0.943 at
-#: 50 / 150 confirmations without temporal edges, 0.888 / 0.940 with weight 0.5, so they neither
-#: help nor hurt much there; the annotator benchmark (queue-picked confirmations) runs with 0.5.
-DEFAULT_TEMPORAL_WEIGHT = 0.5
+#: Default weight of an edge between consecutive windows. Measured with the review queue and an
+#: oracle (benchmarks/bench_proposals.py --part confirmations --quick, confirmations to 95 %):
+#: on 2 h of the demo simulator 45 with weight 2 against 70 with 0.5 (random order 85 with both);
+#: on the crew of six (labeler.crew, 6 x 10 min) 70 with either. Data without time (BasicMotions,
+#: digits) have no such edges. Weight 2 also helped on real recordings of ten people.
+DEFAULT_TEMPORAL_WEIGHT = 2.0
 
 
 class GraphInputError(InputError, ValueError):

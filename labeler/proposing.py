@@ -22,8 +22,10 @@ graph has not reached (no label mass) take the classifier alone. The forward-bac
 textbook one (Rabiner, "A tutorial on hidden Markov models and selected applications in speech
 recognition", 1989), with scaling per step.
 
-Defaults were measured with ``benchmarks/bench_proposals.py --part confirmations`` on the demo's
-8-hour recording, the crew of six (``labeler.crew``), BasicMotions and scikit-learn's digits.
+Defaults were measured with ``benchmarks/bench_proposals.py --part tune-proposals`` on the demo
+simulator, the crew of six (``labeler.crew``), BasicMotions and scikit-learn's digits: neither
+the classifier nor the smoothing won on all of them, so both are off by default (the proposer is
+then label spreading alone) and Project does not use them yet.
 
 Proposed labels are suggestions: a qualified person reviews them before they are used.
 """
@@ -38,10 +40,16 @@ from sklearn.base import BaseEstimator
 from labeler.errors import InputError
 from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _check_y
 
-#: Weight of the classifier against the graph (0 = graph alone, 1 = classifier alone).
-DEFAULT_CLASSIFIER_WEIGHT = 0.5
-#: Probability that a window's activity goes on in the next window (0 = no smoothing).
-DEFAULT_STAY = 0.9
+#: Weight of the classifier against the graph (0 = graph alone, 1 = classifier alone). Off by
+#: default: measured with the review queue (``--part tune-proposals --quick``, confirmations to
+#: 95 %), weight 0.3 gave 45 on 2 h of the simulator (45 without), 100 on the crew of six (70
+#: without), 45 on digits with weight 0.2 (45 without); 0.5 gave 50 on digits (45 without).
+DEFAULT_CLASSIFIER_WEIGHT = 0.0
+#: Probability that a window's activity goes on in the next window (0 = no smoothing). Off by
+#: default: with smoothing (stay 0.9 or 0.97) the review queue did not reach 95 % within 150
+#: confirmations on 2 h of the simulator (70 without; random order 65 against 85): the smoothed
+#: distributions are sure of whole bouts, so the queue's margins stop pointing at the errors.
+DEFAULT_STAY = 0.0
 #: Inverse regularization of the logistic regression.
 DEFAULT_C = 1.0
 #: Power of the emissions in the smoothing (windows overlapping by half share their samples).

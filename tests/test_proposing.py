@@ -109,7 +109,7 @@ def test_confirmed_windows_keep_their_label_and_outputs_are_consistent():
     y = np.full(t.size, -1)
     y[::30] = t[::30]
     rec, seq = np.zeros(t.size, int), np.arange(t.size)
-    p = Proposer().fit(W, y, features=X, recording=rec, seq=seq)
+    p = Proposer(classifier_weight=0.5, stay=0.9).fit(W, y, features=X, recording=rec, seq=seq)
     out = p.outputs(y)
     lab = y >= 0
     np.testing.assert_array_equal(out.label[lab], y[lab])
