@@ -304,6 +304,17 @@ class Project:
         return self._ledger.confirm(window_ids, class_name, source=source, note=note,
                                     create_class=create_class)
 
+    def answer(self, window_ids: Iterable[int], answer: str, *, source: str = "api",
+               note: str | None = None) -> LabelBatch:
+        """Answer windows "mixed" (they span activities) or "unsure" (cannot tell): one batch
+        of events, undone like any other. Such windows leave the review queue, proposals do not
+        learn from them and the training set leaves them out (see :mod:`labeler.answers`)."""
+        return self._ledger.answer(window_ids, answer, source=source, note=note)
+
+    def answered(self) -> np.ndarray:
+        """Ids of the windows whose current label is an answer (mixed, not sure)."""
+        return self._ledger.answered()
+
     def withdraw(self, window_ids: Iterable[int], *, source: str = "api",
                  note: str | None = None) -> LabelBatch:
         """Withdraw this annotator's labels of the windows (one batch)."""
@@ -371,16 +382,18 @@ class Project:
     def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
                min_confidence: float | None = None, classes: Sequence[str] | None = None,
                overwrite: bool = False, features: bool = False,
-               signal: bool = False) -> ExportReport:
+               signal: bool = False, include_answers: bool = False) -> ExportReport:
         """Write the training set to ``folder``: ``windows.<fmt>``, ``segments.<fmt>`` and
         ``manifest.json`` (see :mod:`labeler.exporting`), each file atomically, the manifest last.
         Window rows carry person, bout and recording_file for grouped splits; ``features`` adds
         one named column per feature, ``signal`` writes the window signals to ``signals.npz``.
         :func:`labeler.training.read_training_set` reads such a folder as (X, y, groups).
+        Windows answered "mixed" or "not sure" are left out unless ``include_answers``.
         """
         return self._exporter.export(folder, fmt=fmt, confirmed_only=confirmed_only,
                                      min_confidence=min_confidence, classes=classes,
-                                     overwrite=overwrite, features=features, signal=signal)
+                                     overwrite=overwrite, features=features, signal=signal,
+                                     include_answers=include_answers)
 
     # ------------------------------------------------------------------ proposals
     def refresh_proposals(self, *, alpha: float | None = None, n_neighbors: int = 10,

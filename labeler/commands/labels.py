@@ -45,24 +45,52 @@ def _parse_ids(text: str) -> list[int]:
 @annotator_option
 def confirm_cmd(project, class_name, window_ids, span, new_class, note, annotator):
     """Confirm windows as CLASS (one batch in the history)."""
-    if (window_ids is None) == (span is None):
-        raise UserError("give either --windows IDS or --span RECORDING START END")
+    _check_selection(window_ids, span)
     with _open(project, annotator) as p:
-        if span is not None:
-            rec, a, b = span
-            try:
-                start, end = float(a), float(b)
-            except ValueError:
-                raise UserError(f"--span: start {a!r} and end {b!r} must be seconds") from None
-            ids = p.window_ids_in_span(rec, start, end)
-            if len(ids) == 0:
-                raise UserError(f"--span: no window of {rec} lies mostly between {start:g} and "
-                                f"{end:g} s; widen the span")
-        else:
-            ids = _parse_ids(window_ids)
+        ids = _selected_ids(p, window_ids, span)
         batch = p.confirm(ids, class_name, source="cli", note=note, create_class=new_class)
         click.echo(f"confirmed {batch.n_windows} window(s) as {class_name} "
                    f"(batch {batch.batch_id[:8]})")
+
+
+def _check_selection(window_ids, span) -> None:
+    if (window_ids is None) == (span is None):
+        raise UserError("give either --windows IDS or --span RECORDING START END")
+
+
+def _selected_ids(p, window_ids, span) -> list[int]:
+    """Window ids from --windows or --span."""
+    if span is None:
+        return _parse_ids(window_ids)
+    rec, a, b = span
+    try:
+        start, end = float(a), float(b)
+    except ValueError:
+        raise UserError(f"--span: start {a!r} and end {b!r} must be seconds") from None
+    ids = p.window_ids_in_span(rec, start, end)
+    if len(ids) == 0:
+        raise UserError(f"--span: no window of {rec} lies mostly between {start:g} and "
+                        f"{end:g} s; widen the span")
+    return ids
+
+
+@cli.command("answer")
+@project_argument
+@click.argument("answer", type=click.Choice(["mixed", "unsure"]))
+@click.option("--windows", "window_ids", default=None, metavar="IDS",
+              help="Window ids: 12,13,20-25.")
+@click.option("--span", nargs=3, default=None, metavar="RECORDING START END",
+              help="All windows of a recording whose larger part lies between START and END s.")
+@click.option("--note", default=None, help="A note kept with the batch.")
+@annotator_option
+def answer_cmd(project, answer, window_ids, span, note, annotator):
+    """Answer windows that are not one activity: mixed (they span activities) or unsure (cannot
+    tell). One batch in the history, undone like any other; such windows leave the review queue,
+    proposals do not learn from them and the training set leaves them out."""
+    _check_selection(window_ids, span)
+    with _open(project, annotator) as p:
+        batch = p.answer(_selected_ids(p, window_ids, span), answer, source="cli", note=note)
+    click.echo(f"answered {batch.n_windows} window(s) {answer} (batch {batch.batch_id[:8]})")
 
 
 @cli.command("undo")

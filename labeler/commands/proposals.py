@@ -22,9 +22,11 @@ from labeler.commands.base import _open, _progress_bar, annotator_option, cli, p
               help="Add each window's features (one named column each) to the window rows.")
 @click.option("--signal", is_flag=True,
               help="Write the window signals to signals.npz (one sampling rate needed).")
+@click.option("--keep-answers", is_flag=True,
+              help="Keep windows answered mixed or not sure (left out by default).")
 @annotator_option
 def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, overwrite, features,
-               signal, annotator):
+               signal, keep_answers, annotator):
     """Write the training set to FOLDER: windows, merged segments and a manifest (JSON).
 
     Window rows carry person, recording and bout: split by them (e.g. GroupKFold), since
@@ -32,7 +34,8 @@ def export_cmd(project, folder, fmt, confirmed_only, min_confidence, classes, ov
     with _open(project, annotator) as p:
         out = p.export(folder, fmt=fmt, confirmed_only=confirmed_only,
                        min_confidence=min_confidence, classes=list(classes) or None,
-                       overwrite=overwrite, features=features, signal=signal)
+                       overwrite=overwrite, features=features, signal=signal,
+                       include_answers=keep_answers)
     m = out.manifest
     by = m["counts"]["by_status"]
     click.echo(f"wrote {out.windows} window(s) ({by['confirmed']} confirmed, {by['proposed']} "

@@ -12,6 +12,7 @@ import os
 import numpy as np
 import pandas as pd
 
+from labeler.answers import ANSWERS
 from labeler.errors import InputError
 from labeler.results import AccuracyReport
 from labeler.service.catalog import Catalog
@@ -83,7 +84,8 @@ class Audits:
         df["answer_class_id"] = df["window_id"].map(cur)
         df["proposed"] = df["proposed_class_id"].map(names)
         df["answer"] = df["answer_class_id"].map(names)
-        df["correct"] = np.where(df["answer_class_id"].isna(), None,
+        df["correct"] = np.where(df["answer_class_id"].isna() | (df["answer"] == ANSWERS["unsure"]),
+                                 None,
                                  df["answer_class_id"] == df["proposed_class_id"])
         return df[["window_id", "run_id", "position", "proposed", "confidence", "answer", "correct"]]
 
@@ -101,7 +103,9 @@ class Audits:
         if run is None:
             raise InputError(f"{self.ctx.path}: no proposals yet; run `labeler propose` first")
         a = self.status()
-        done = a[a["answer"].notna()]
+        # "not sure" says nothing about the proposal; "mixed" counts against it (the proposal
+        # gave one activity to a window that spans two)
+        done = a[a["answer"].notna() & (a["answer"] != ANSWERS["unsure"])]
         audit = audit_accuracy(done["proposed"].to_numpy(object), done["answer"].to_numpy(object),
                                done["confidence"].to_numpy(np.float64) if len(done) else None) \
             if len(done) else None

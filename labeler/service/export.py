@@ -8,6 +8,7 @@ from typing import Sequence
 
 import labeler
 from labeler import exporting
+from labeler.answers import is_answer
 from labeler.errors import ProjectError
 from labeler.results import ExportReport
 from labeler.service.audits import Audits
@@ -31,10 +32,12 @@ class Exporter:
     def export(self, folder: str | os.PathLike, *, fmt: str = "csv", confirmed_only: bool = False,
                min_confidence: float | None = None, classes: Sequence[str] | None = None,
                overwrite: bool = False, features: bool = False,
-               signal: bool = False) -> ExportReport:
+               signal: bool = False, include_answers: bool = False) -> ExportReport:
         """Write ``windows.<fmt>``, ``segments.<fmt>`` and ``manifest.json`` to ``folder``, each file
         atomically, the manifest last (see :mod:`labeler.exporting`); with ``features`` the window
-        rows carry their features, with ``signal`` the window signals go to ``signals.npz``."""
+        rows carry their features, with ``signal`` the window signals go to ``signals.npz``.
+        Windows answered "mixed" or "not sure" are left out unless ``include_answers`` (then they
+        carry the answer as label)."""
         from dataclasses import replace
 
         from storage.store import utc_now
@@ -42,7 +45,7 @@ class Exporter:
         targets, classes = exporting.check_request(
             folder, fmt=fmt, min_confidence=min_confidence, classes=classes,
             known_classes=self.ledger.classes()["name"], overwrite=overwrite, signal=signal)
-        inputs = self.snapshot()
+        inputs = self.snapshot(include_answers=include_answers)
         if features:
             inputs = replace(inputs, features=self.catalog.features())
         if signal:
@@ -52,7 +55,8 @@ class Exporter:
             min_confidence=min_confidence, classes=classes, tool_version=labeler.__version__,
             created_at=utc_now(), created_by=self.ctx.annotator, where=str(self.ctx.path))
 
-    def snapshot(self, attempts: int = 5) -> exporting.ExportInputs:
+    def snapshot(self, attempts: int = 5, *, include_answers: bool = True
+                 ) -> exporting.ExportInputs:
         """Labels, proposals and accuracy estimate that belong together: read again when another
         process changed the history while they were being read."""
         store = self.ctx.store
@@ -60,6 +64,12 @@ class Exporter:
             before = store.last_event_id()
             windows, labels = self.catalog.windows(), self.ledger.labels()
             proposals, params, accuracy, absent = self._proposals()
+            if not include_answers:  # answered windows are not one activity: not for training
+                answered = labels["class"].map(is_answer).astype(bool)
+                if proposals is not None:
+                    proposals = proposals[~proposals["window_id"].isin(
+                        labels.loc[answered, "window_id"])].reset_index(drop=True)
+                labels = labels[~answered].reset_index(drop=True)
             if store.last_event_id() == before:
                 meta = store.meta()
                 project = {"file": Path(self.ctx.path).name, "project_id": meta.get("project_id"),

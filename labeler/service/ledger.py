@@ -14,6 +14,7 @@ from typing import Iterable
 import numpy as np
 import pandas as pd
 
+from labeler.answers import ANSWER_COLOUR, answer_class, is_answer, is_reserved
 from labeler.errors import InputError
 from labeler.results import ImportReport, ImportRow, LabelBatch, label_batch
 from labeler.service.catalog import Catalog
@@ -37,6 +38,9 @@ def check_class_name(name: str) -> str:
     name = str(name).strip()
     if not _CLASS_NAME.match(name):
         raise InputError(f"class name {name!r} must be 1-60 printable characters")
+    if is_reserved(name):
+        raise InputError(f"class name {name!r}: names in parentheses are kept for the answers "
+                         "(mixed) and (not sure); choose a name without them")
     return name
 
 
@@ -57,7 +61,9 @@ class Ledger:
         return dict(zip(cls["id"], cls["name"]))
 
     def active_classes(self) -> list[str]:
-        return list(self.classes(include_retired=False)["name"])
+        """Names of the classes that take confirmations (answers that are not an activity, such
+        as "(mixed)", are not among them)."""
+        return [n for n in self.classes(include_retired=False)["name"] if not is_answer(n)]
 
     def add_class(self, name: str, colour: str | None = None) -> int:
         name = check_class_name(name)
@@ -89,6 +95,7 @@ class Ledger:
         return str(self.class_names()[int(class_id)])
 
     def rename_class(self, old: str, new: str) -> None:
+        _not_an_answer(old, "renamed")
         cid = self.class_id(old, allow_retired=True)
         new = check_class_name(new)
         try:
@@ -97,6 +104,7 @@ class Ledger:
             raise InputError(str(exc)) from None
 
     def retire_class(self, name: str) -> None:
+        _not_an_answer(name, "retired")
         self.ctx.store.retire_class(self.class_id(name), self.ctx.annotator)
 
     def merge_classes(self, source: str, target: str) -> LabelBatch:
@@ -106,6 +114,8 @@ class Ledger:
         window carried the class: ``batch_id`` None).
         """
         store = self.ctx.store
+        _not_an_answer(source, "merged")
+        _not_an_answer(target, "merged")
         src = self.class_id(source)
         dst = self.class_id(target)
         if src == dst:
@@ -125,6 +135,9 @@ class Ledger:
     def confirm(self, window_ids: Iterable[int], class_name: str, *, source: str = "api",
                 note: str | None = None, create_class: bool = False) -> LabelBatch:
         """Confirm windows as one class: one batch of events."""
+        if is_reserved(str(class_name).strip()):
+            raise InputError(f"{class_name!r} is an answer, not a class; give it with "
+                             "`labeler answer` (Project.answer): mixed or unsure")
         ids = self.check_window_ids(window_ids)
         if source not in SOURCES:
             raise InputError(f"unknown source {source!r}; use one of {', '.join(SOURCES)}")
@@ -133,6 +146,30 @@ class Ledger:
         batch = self.ctx.store.apply_batch(self.ctx.annotator, "confirm", source, changes,
                                            note=note)
         return label_batch(batch, "confirm", changes)
+
+    def answer(self, window_ids: Iterable[int], answer: str, *, source: str = "api",
+               note: str | None = None) -> LabelBatch:
+        """Answer windows with "mixed" (the window spans activities) or "unsure" (cannot tell):
+        one batch of events, like a confirmation (see :mod:`labeler.answers`). The answer is
+        kept out of proposals and of the training set, and the windows leave the review queue."""
+        name = answer_class(answer)
+        ids = self.check_window_ids(window_ids)
+        if source not in SOURCES:
+            raise InputError(f"unknown source {source!r}; use one of {', '.join(SOURCES)}")
+        store = self.ctx.store
+        with store.atomic():
+            row = store.class_by_name(name)
+            cid = store.add_class(name, ANSWER_COLOUR, self.ctx.annotator) if row is None \
+                else int(row["id"])
+            changes = [(int(w), cid) for w in ids]
+            batch = store.apply_batch(self.ctx.annotator, "answer", source, changes, note=note)
+        return label_batch(batch, "answer", changes)
+
+    def answered(self) -> np.ndarray:
+        """Ids of windows whose current label is an answer (mixed, not sure), sorted."""
+        lab = self.labels()
+        return np.sort(lab.loc[lab["class"].map(is_answer).astype(bool), "window_id"]
+                       .to_numpy(np.int64))
 
     def withdraw(self, window_ids: Iterable[int], *, source: str = "api",
                  note: str | None = None) -> LabelBatch:
@@ -213,10 +250,11 @@ class Ledger:
 
     def label_vector(self) -> tuple[np.ndarray, list[str]]:
         """(y, class names): y[i] is the index into class names of window i's current label, -1 when
-        unlabeled; rows in window-id order. Class names are the active classes plus any retired class
-        that still carries labels."""
+        unlabeled or answered (mixed, not sure: not an activity); rows in window-id order. Class
+        names are the active classes plus any retired class that still carries labels."""
         w = self.catalog.windows()
         lab = self.labels()
+        lab = lab[~lab["class"].map(is_answer).astype(bool)]
         names = self.active_classes()
         for c in lab["class"].unique():
             if c not in names:
@@ -356,3 +394,9 @@ class Ledger:
         from labeler.agreement import agreement_report
 
         return agreement_report(self.annotations())
+
+
+def _not_an_answer(name: str, what: str) -> None:
+    if is_answer(str(name).strip()):
+        raise InputError(f"{name!r} is an answer (mixed, not sure), not a class; it cannot be "
+                         f"{what}")
