@@ -16,6 +16,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from labeler.answers import is_answer
 from labeler.errors import InputError, LabelerError
 from labeler.reduction import principal_components
 from labeler.results import AccuracyReport, LabelBatch
@@ -189,7 +190,9 @@ class SessionState:
         self.class_ids = [int(i) for i in c["id"]]
         self.class_names = [str(s) for s in c["name"]]
         self.class_colours = [str(s) for s in c["colour"]]
-        self.class_active = [r is None or r != r for r in c["retired_at"]]
+        # answers (mixed, not sure) are drawn in their colour but get no class button
+        self.class_active = [(r is None or r != r) and not is_answer(n)
+                             for r, n in zip(c["retired_at"], c["name"])]
         self.class_code = {name: k for k, name in enumerate(self.class_names)}
         self._code_of_id = {cid: k for k, cid in enumerate(self.class_ids)}
 
