@@ -4,7 +4,7 @@ Run:  python benchmarks/bench_proposals.py [--part confirmations|annotator|speed
 
 confirmations: the table of confirmations to 90 / 95 % for the review queue and random order on
     the 8-hour recording, the crew of six (labeler.crew), BasicMotions and digits, per proposal
-    method (before: spreading with temporal weight 0.5; after: the proposals Project makes now).
+    method (spreading with temporal edges of weight 0.5, the default, and 2).
 tune-proposals: the same for variants of labeler.proposing.Proposer (classifier weight, smoothing
     along time, temporal weight); not part of "all" (a long grid).
 
@@ -244,8 +244,8 @@ def part_annotator(quick: bool):
 # ---------------------------------------------------------------- confirmations to 90 / 95 %
 
 class SpreadOnly:
-    """Proposals as label spreading alone on the window graph (temporal edges of weight 0.5, the
-    default before, unless told)."""
+    """Proposals as Project makes them: label spreading alone on the window graph (temporal edges
+    of weight 0.5 unless told)."""
 
     name = "spreading"
 
@@ -339,14 +339,11 @@ def confirmation_sets(quick: bool):
 
 
 def confirmation_methods():
-    """before: spreading on the graph with temporal weight 0.5; after: the proposals Project makes
-    now (spreading on the graph with labeler.graph.DEFAULT_TEMPORAL_WEIGHT)."""
+    """Spreading on the window graph with temporal edges of weight 0.5 (the default) and 2."""
     from functools import partial
 
-    from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
-
-    return {"before": SpreadOnly,
-            "after": partial(SpreadOnly, temporal_weight=DEFAULT_TEMPORAL_WEIGHT)}
+    return {"tw 0.5": partial(SpreadOnly, temporal_weight=0.5),
+            "tw 2": partial(SpreadOnly, temporal_weight=2.0)}
 
 
 def part_confirmations(quick: bool, methods=None):

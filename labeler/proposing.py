@@ -25,7 +25,9 @@ recognition", 1989), with scaling per step.
 Defaults were measured with ``benchmarks/bench_proposals.py --part tune-proposals`` on the demo
 simulator, the crew of six (``labeler.crew``), BasicMotions and scikit-learn's digits: neither
 the classifier nor the smoothing won on all of them, so both are off by default (the proposer is
-then label spreading alone) and Project does not use them yet.
+then label spreading alone) and Project does not use them yet. Each figure next to a default is
+one run with temporal edges of weight 2; single runs swing by tens of confirmations with small
+changes of the graph, so only the large differences (the smoothing) are clear.
 
 Proposed labels are suggestions: a qualified person reviews them before they are used.
 """
