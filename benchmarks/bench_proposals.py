@@ -1,6 +1,7 @@
 """Benchmark of the proposals: a simulated annotator, refresh speed, graph build time.
 
-Run:  python benchmarks/bench_proposals.py [--part confirmations|annotator|speed|tune|all] [--quick]
+Run:  python benchmarks/bench_proposals.py [--part confirmations|annotator|speed|tune|estimate|all]
+      [--quick]
 
 confirmations: the table of confirmations to 90 / 95 % for the review queue and random order on
     the 8-hour recording, the crew of six (labeler.crew), BasicMotions and digits, per proposal
@@ -20,6 +21,9 @@ annotator: an oracle answers from ground truth. From zero confirmations it confi
 speed: graph build time at 100k windows and where it goes; refresh time after one more
     confirmation with warm start; scikit-learn LabelSpreading.fit on the same data for comparison.
 tune: accuracy with random confirmations for alpha and the temporal weight on all three data sets.
+estimate: the accuracy estimate minus the truth at 25/50/100/200 confirmations, per data set and
+    order of confirmation (random, drawn review queue, bulk map picks), and how often its 95 %
+    interval held the truth (benchmarks/estimate_orderings.py).
 """
 
 from __future__ import annotations
@@ -518,16 +522,29 @@ def part_tune(quick: bool):
                 print(f"  {name:12s} temporal {tw:<4g} alpha {alpha:<5g} " + "  ".join(accs), flush=True)
 
 
+# ---------------------------------------------------------------- accuracy estimate
+
+def part_estimate(quick: bool):
+    import os
+
+    sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+    from estimate_orderings import DATASETS, ORDERS, table
+
+    table(list(DATASETS), list(ORDERS), repeats=3 if quick else 10, quick=quick)
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--part", default="all", choices=["confirmations", "tune-proposals",
-                                                      "annotator", "speed", "tune", "all"],
+                                                      "annotator", "speed", "tune", "estimate",
+                                                      "all"],
                     help="all runs every part but tune-proposals (a long grid)")
     ap.add_argument("--quick", action="store_true", help="smaller data, for a smoke run")
     a = ap.parse_args(argv)
     for part, fn in (("confirmations", part_confirmations), ("tune-proposals", part_tune_proposals),
                      ("tune", part_tune),
-                     ("annotator", part_annotator), ("speed", part_speed)):
+                     ("annotator", part_annotator), ("speed", part_speed),
+                     ("estimate", part_estimate)):
         if a.part == part or (a.part == "all" and part != "tune-proposals"):
             fn(a.quick)
             print(flush=True)

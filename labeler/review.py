@@ -25,6 +25,12 @@ deterministic for a given state.
 
 With no confirmation at all, every window is unexplored and density alone orders them: the queue
 then walks through the typical windows of different regions of the graph.
+
+Drawn rather than ranked (``sample_power`` given): each item is drawn at random among the live
+candidates with probability ``(1 - floor) * s**power / sum(s**power) + floor / n_live`` (``s`` the
+score), and that probability and ``n_live`` are returned with the item, so an accuracy estimate can
+weight the answer by how likely it was to be shown (:mod:`labeler.estimate`). A high power keeps
+the draw close to the ranking; the floor gives every candidate a chance.
 """
 
 from __future__ import annotations
@@ -50,6 +56,8 @@ class ReviewQueue:
     index: np.ndarray
     reason: np.ndarray
     score: np.ndarray
+    probability: np.ndarray | None = None  # of being drawn, when drawn (sample_power given)
+    pool: np.ndarray | None = None  # live candidates at each draw
 
     def __len__(self) -> int:
         return int(self.index.size)
@@ -103,13 +111,16 @@ def review_scores(graph, outputs=None, labeled_mask=None, *, w_uncertain: float 
 def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=None, n: int = 50, *,
                  disagreement=None, conflict_threshold: float = 0.5, w_uncertain: float = 1.0,
                  w_unexplored: float = 1.0, w_density: float = 0.5, bout_gap: int = 3,
-                 explore_hops: int = 2, suppress_neighbors: bool = True, exclude=None) -> ReviewQueue:
+                 explore_hops: int = 2, suppress_neighbors: bool = True, exclude=None,
+                 sample_power: float | None = None, sample_floor: float = 0.1,
+                 random_state=None) -> ReviewQueue:
     """Up to ``n`` windows to show next (see the module docstring).
 
     ``outputs`` is a :class:`labeler.spreading.WindowOutputs` (None before any confirmation);
     ``labeled_mask`` marks confirmed windows; ``recording``/``seq`` give bouts (optional);
     ``disagreement`` is a boolean mask of windows annotators disagree on; ``exclude`` a mask of
-    windows never to show (e.g. already in an audit). Within one queue, the unexplored part of a
+    windows never to show (e.g. already in an audit). ``sample_power`` draws instead of ranking
+    (module docstring). Within one queue, the unexplored part of a
     window's score is scaled by ``min(h, explore_hops) / explore_hops``, h its number of graph hops
     to the nearest window already taken, so one list covers several unexplored regions.
     """
@@ -121,6 +132,10 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
         raise ReviewInputError(f"n must be a whole number >= 0, got {n}")
     if int(explore_hops) != explore_hops or explore_hops < 1:
         raise ReviewInputError(f"explore_hops must be a whole number >= 1, got {explore_hops}")
+    if sample_power is not None and not (np.isfinite(sample_power) and sample_power > 0
+                                         and 0 < sample_floor <= 1):
+        raise ReviewInputError(f"sample_power must be > 0 and sample_floor in (0, 1], got "
+                               f"{sample_power} and {sample_floor}")
     labeled = np.zeros(N, bool) if labeled_mask is None else np.asarray(labeled_mask, dtype=bool)
     if labeled.shape != (N,):
         raise ReviewInputError(f"labeled_mask must have one entry per window ({N}), got shape {labeled.shape}")
@@ -157,6 +172,9 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
     available = candidate.copy()
     taken: list[int] = []
     scores: list[float] = []
+    probs: list[float] = []
+    pools: list[int] = []
+    rng = np.random.default_rng(random_state) if sample_power is not None else None
     while len(taken) < n:
         score = np.where(np.isfinite(first), first, unc + unexp * hop_factor)
         live = available & ~suppressed
@@ -164,8 +182,16 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
             live = available  # every unsuppressed candidate is taken: relax suppression
             if not live.any():
                 break
-        masked = np.where(live, score, -np.inf)
-        i = int(np.argmax(masked))  # first index among ties: deterministic
+        if rng is not None and not np.isfinite(first[live]).any():
+            i, q, m = _draw(score, live, sample_power, sample_floor, rng)
+            probs.append(q)
+            pools.append(m)
+        else:
+            masked = np.where(live, score, -np.inf)
+            i = int(np.argmax(masked))  # first index among ties: deterministic
+            if rng is not None:  # shown first by rule, not by chance
+                probs.append(1.0)
+                pools.append(1)
         taken.append(i)
         scores.append(float(score[i]))
         available[i] = False
@@ -184,4 +210,17 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
             suppressed[near_t[rec[near_t] == rec[i]]] = True
     idx = np.asarray(taken, dtype=np.int64)
     return ReviewQueue(idx, np.asarray(reason[idx], dtype=str) if idx.size else np.array([], dtype=str),
-                       np.asarray(scores))
+                       np.asarray(scores),
+                       None if rng is None else np.asarray(probs),
+                       None if rng is None else np.asarray(pools, dtype=np.int64))
+
+
+def _draw(score, live, power, floor, rng):
+    """One window drawn among ``live`` (see the module docstring): (index, probability, pool)."""
+    cand = np.flatnonzero(live)
+    s = np.maximum(score[cand], 0.0)
+    top = s.max()
+    p = (s / top) ** power if top > 0 else np.zeros(cand.size)
+    p = (1 - floor) * p / p.sum() + floor / cand.size if p.sum() > 0 else np.full(cand.size, 1 / cand.size)
+    j = int(rng.choice(cand.size, p=p / p.sum()))
+    return int(cand[j]), float(p[j]), int(cand.size)

@@ -1,0 +1,234 @@
+"""Does the accuracy estimate tell the truth, whatever order people confirm windows in?
+
+Used by ``benchmarks/bench_proposals.py --part estimate`` (and runnable alone):
+
+    python benchmarks/estimate_orderings.py [--quick] [--repeats R]
+
+A simulated annotator answers from ground truth in one of three orders, refreshing the proposals
+after every batch of 5:
+
+- ``random``: windows in random order;
+- ``queue``: the review queue, drawn (``sample_power``) so each shown window's probability is
+  known and weights the estimate;
+Classes are made as the annotator meets them (a class nobody has confirmed yet is unknown to the
+tool, and its windows count as wrong in the truth).
+
+- ``map``: bulk picks as on the map: an unconfirmed window in a part of the map with no
+  confirmation yet (drawn among the half farthest from any confirmed window) and its 9 nearest
+  unconfirmed neighbours on a 2-D PCA map, each confirmed with its true label (the person
+  corrects strays).
+
+Every batch is one user action; the estimate hides the windows of one action together.
+
+At 25, 50, 100 and 200 confirmations the estimate (:func:`labeler.estimate.proposal_accuracy`)
+is compared with the true accuracy of the proposals on the unconfirmed windows. Printed per data
+set and order: mean estimate minus truth, mean |estimate - truth|, and how often the 95 %
+interval held the truth. Goal: |error| <= 0.05 from 50 confirmations on, coverage >= 90 %.
+
+Data: the demo simulator (one recording; a crew of pickers with their own ways of moving),
+BasicMotions (Bagnall et al. 2018, shipped in aeon; each 10 s series cut into 5 overlapping
+windows, one recording per series) and scikit-learn's digits (no time order).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+
+import numpy as np
+
+from labeler.estimate import proposal_accuracy
+from labeler.graph import build_graph
+from labeler.review import review_queue
+from labeler.spreading import LabelSpreader
+
+CHECKPOINTS = (25, 50, 100, 200)
+ORDERS = ("random", "queue", "map")
+BATCH = 5
+PCA = 30
+QUEUE_POWER = 4.0
+
+
+def simulator(hours: float = 1.0, seed: int = 1, person: int = 0):
+    from labeler.features import window_features
+    from labeler.recordings import recording_from_frame
+    from labeler.synthetic import simulate_recording, window_truth
+    from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+
+    sim = simulate_recording(hours * 3600, seed=seed, person=person)
+    rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{seed}-{person}",
+                               name=sim.name)
+    length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
+    starts = cut_windows(rec.valid, length, step)
+    X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
+    truth = window_truth(sim.truth, starts / rec.rate, (starts + length) / rec.rate).astype(str)
+    seq = np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))])
+    return X, truth, np.zeros(truth.size, dtype=np.int64), seq
+
+
+def crew(people: int = 3, hours: float = 0.5, seed: int = 11):
+    parts = [simulator(hours, seed + k, k) for k in range(people)]
+    X = np.vstack([p[0] for p in parts])
+    truth = np.concatenate([p[1] for p in parts])
+    rec = np.concatenate([np.full(p[1].size, k) for k, p in enumerate(parts)])
+    seq = np.concatenate([p[3] for p in parts])
+    return X, truth, rec, seq
+
+
+def basic_motions(per_series: int = 5):
+    """BasicMotions (Bagnall et al. 2018; aeon): 80 series of 6 channels x 100 samples at 10 Hz,
+    cut into ``per_series`` windows of 30 samples (3 s); one recording per series."""
+    from aeon.datasets import load_basic_motions
+
+    from labeler.features import window_features
+
+    Xa, ya = load_basic_motions(split="train")
+    Xb, yb = load_basic_motions(split="test")
+    S = np.concatenate([Xa, Xb]).astype(np.float64)
+    S[:, :3] /= 9.80665  # m/s2 -> g
+    S[:, 3:] *= 180 / np.pi  # rad/s -> deg/s (see tests/test_basicmotions.py)
+    n, c, L = S.shape
+    length = 30
+    step = (L - length) // (per_series - 1)
+    signal = S.transpose(0, 2, 1).reshape(n * L, c)
+    starts = (np.arange(n)[:, None] * L + np.arange(per_series)[None, :] * step).ravel()
+    channels = ["dev_acc_x", "dev_acc_y", "dev_acc_z", "dev_gyr_x", "dev_gyr_y", "dev_gyr_z"]
+    X, _ = window_features(signal, starts, length, 10.0, channels)
+    y = np.repeat(np.concatenate([ya, yb]), per_series)
+    rec = np.repeat(np.arange(n), per_series)
+    seq = np.tile(np.arange(per_series), n)
+    return X, y.astype(str), rec, seq
+
+
+def digits():
+    from sklearn.datasets import load_digits
+
+    X, t = load_digits(return_X_y=True)
+    return X, t.astype(str), None, None
+
+
+DATASETS = {"simulator": simulator, "crew": crew, "BasicMotions": basic_motions, "digits": digits}
+
+
+def prepare(name: str, quick: bool = False):
+    X, truth, rec, seq = (simulator(0.5) if (quick and name == "simulator")
+                          else crew(3, 0.25) if (quick and name == "crew") else DATASETS[name]())
+    _, t = np.unique(truth, return_inverse=True)
+    W = build_graph(X, recording=rec, seq=seq, pca_components=PCA if X.shape[1] > PCA else None)
+    from sklearn.decomposition import PCA as _PCA
+    from sklearn.preprocessing import StandardScaler
+
+    Z = StandardScaler().fit_transform(np.nan_to_num(X.astype(np.float64)))
+    xy = _PCA(2, random_state=0).fit_transform(Z)
+    return {"W": W, "t": t, "rec": rec, "seq": seq, "xy": xy}
+
+
+def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float = 0.95):
+    """One simulated annotator; returns rows (confirmed, truth, estimate, low, high, basis)."""
+    W, t, rec, seq, xy = data["W"], data["t"], data["rec"], data["seq"], data["xy"]
+    n = t.size
+    rng = np.random.default_rng(seed)
+    y = np.full(n, -1)
+    weight = np.ones(n)
+    batch = np.full(n, -1)
+    sp = LabelSpreader(warm_start=True)
+    out = None
+    rows = []
+    cps = [c for c in checkpoints if c < n - 10]
+    while cps:
+        labeled = y >= 0
+        k = int(labeled.sum())
+        if k >= cps[0]:
+            cps.pop(0)
+            unconf = ~labeled
+            truth = float((out.label[unconf] == t[unconf]).mean())
+            est, _ = proposal_accuracy(W, y, sp.label_distributions_.max(axis=1), recording=rec,
+                                       seq=seq, weights=weight, spreader=LabelSpreader(),
+                                       init=sp.label_mass_, init_classes=sp.classes_,
+                                       proposed_label=sp.transduction_, batch=batch,
+                                       level=level, n_boot=200, random_state=seed)
+            rows.append((k, truth, est.value, est.low, est.high, est.basis))
+            continue
+        room = cps[0] - k
+        if order == "queue" and out is not None:
+            q = review_queue(W, out, labeled, rec, seq, n=min(BATCH, room), exclude=labeled,
+                             sample_power=QUEUE_POWER, random_state=rng)
+            pick = q.index
+            weight[pick] = 1.0 / (q.pool * q.probability)
+        elif order == "map":
+            free = np.flatnonzero(~labeled)
+            if labeled.any():
+                from scipy.spatial import cKDTree
+
+                far = cKDTree(xy[labeled]).query(xy[free])[0]
+                free_far = free[far >= np.median(far)]
+            else:
+                free_far = free
+            s = free_far[rng.integers(free_far.size)]
+            d = np.sum((xy[free] - xy[s]) ** 2, axis=1)
+            pick = free[np.argsort(d, kind="stable")[:min(2 * BATCH, room)]]
+        else:  # random (and the queue's first batch: nothing to rank yet but density)
+            free = np.flatnonzero(~labeled)
+            pick = rng.choice(free, size=min(BATCH, room, free.size), replace=False)
+        y[pick] = t[pick]
+        batch[pick] = k
+        sp.fit(W, y)
+        out = sp.outputs(y)
+    return rows
+
+
+def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out=print):
+    out("== accuracy estimate against the truth, per data set and order of confirmation ==")
+    out(f"   {repeats} repeat(s) each; cells: mean(estimate - truth) / mean |estimate - truth| / "
+        "share of 95 % intervals holding the truth")
+    head = f"  {'data':13s} {'order':7s}" + "".join(f"{c:>24d}" for c in checkpoints)
+    out(head)
+    summary = {}
+    for name in names:
+        t0 = time.perf_counter()
+        data = prepare(name, quick)
+        for order in orders:
+            per = {c: [] for c in checkpoints}
+            for r in range(repeats):
+                for k, truth, v, lo, hi, basis in run(data, order, seed=r, checkpoints=checkpoints):
+                    c = min(checkpoints, key=lambda c: abs(c - k))
+                    per[c].append((v - truth, lo <= truth <= hi) if basis != "none" else (np.nan, False))
+            cells = []
+            for c in checkpoints:
+                v = per[c]
+                if not v:
+                    cells.append(f"{'-':>24s}")
+                    continue
+                e = np.array([a for a, _ in v], dtype=float)
+                none = int(np.isnan(e).sum())
+                cov = np.mean([b for a, b in v if not np.isnan(a)]) if none < len(v) else np.nan
+                ee = e[~np.isnan(e)]
+                cell = (f"{ee.mean():+.3f}/{np.abs(ee).mean():.3f}/{cov:4.0%}" if ee.size
+                        else "no figure")
+                if none:
+                    cell += f" ({none} none)"
+                cells.append(f"{cell:>24s}")
+                summary[(name, order, c)] = (ee, cov, none)
+            out(f"  {name:13s} {order:7s}" + "".join(cells))
+        out(f"  ({name}: {data['t'].size} windows, {time.perf_counter() - t0:.0f} s)")
+    late = [v for (n, o, c), v in summary.items() if c >= 50]
+    errs = np.concatenate([v[0] for v in late]) if late else np.zeros(0)
+    covs = [v[1] for v in late if not np.isnan(v[1])]
+    out(f"  from 50 confirmations on: mean |error| {np.abs(errs).mean():.3f} (goal <= 0.05), "
+        f"worst cell coverage {min(covs):.0%}, mean coverage {np.mean(covs):.0%} (goal >= 90 %)")
+    return summary
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true")
+    ap.add_argument("--repeats", type=int, default=None)
+    ap.add_argument("--data", nargs="*", default=list(DATASETS))
+    ap.add_argument("--orders", nargs="*", default=list(ORDERS))
+    a = ap.parse_args(argv)
+    table(a.data, a.orders, a.repeats or (3 if a.quick else 10), a.quick)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
