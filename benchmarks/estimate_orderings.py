@@ -18,8 +18,6 @@ tool, and its windows count as wrong in the truth).
   unconfirmed neighbours on a 2-D PCA map, each confirmed with its true label (the person
   corrects strays).
 
-Every batch is one user action; the estimate hides the windows of one action together.
-
 At 25, 50, 100 and 200 confirmations the estimate (:func:`labeler.estimate.proposal_accuracy`)
 is compared with the true accuracy of the proposals on the unconfirmed windows. Printed per data
 set and order: mean estimate minus truth, mean |estimate - truth|, and how often the 95 %
@@ -124,14 +122,14 @@ def prepare(name: str, quick: bool = False):
     return {"W": W, "t": t, "rec": rec, "seq": seq, "xy": xy}
 
 
-def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float = 0.95):
+def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float = 0.95,
+        n_boot: int = 200):
     """One simulated annotator; returns rows (confirmed, truth, estimate, low, high, basis)."""
     W, t, rec, seq, xy = data["W"], data["t"], data["rec"], data["seq"], data["xy"]
     n = t.size
     rng = np.random.default_rng(seed)
     y = np.full(n, -1)
     weight = np.ones(n)
-    batch = np.full(n, -1)
     sp = LabelSpreader(warm_start=True)
     out = None
     rows = []
@@ -146,8 +144,8 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
             est, _ = proposal_accuracy(W, y, sp.label_distributions_.max(axis=1), recording=rec,
                                        seq=seq, weights=weight, spreader=LabelSpreader(),
                                        init=sp.label_mass_, init_classes=sp.classes_,
-                                       proposed_label=sp.transduction_, batch=batch,
-                                       level=level, n_boot=200, random_state=seed)
+                                       proposed_label=sp.transduction_,
+                                       level=level, n_boot=n_boot, random_state=seed)
             rows.append((k, truth, est.value, est.low, est.high, est.basis))
             continue
         room = cps[0] - k
@@ -172,7 +170,6 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
             free = np.flatnonzero(~labeled)
             pick = rng.choice(free, size=min(BATCH, room, free.size), replace=False)
         y[pick] = t[pick]
-        batch[pick] = k
         sp.fit(W, y)
         out = sp.outputs(y)
     return rows

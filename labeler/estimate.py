@@ -78,15 +78,12 @@ def _z(level: float) -> float:
 
 # --------------------------------------------------------------------------- folds
 
-def confirmed_stretches(y, recording=None, seq=None, *, gap: int = DEFAULT_GAP,
-                        batch=None) -> np.ndarray:
+def confirmed_stretches(y, recording=None, seq=None, *, gap: int = DEFAULT_GAP) -> np.ndarray:
     """Stretch id per window (-1 for unconfirmed windows).
 
     A stretch is a maximal run of confirmed windows of one recording with one label, each at most
     ``gap`` window steps after the previous. Without ``recording``/``seq`` (windows that are not
     parts of a longer recording, e.g. separate series) every confirmed window is its own stretch.
-    ``batch`` (one id per window, e.g. the user action that confirmed it) joins stretches that
-    share a batch: windows picked together on the map are alike, so they are hidden together.
     """
     y = _labels(y)
     n = y.size
@@ -103,20 +100,6 @@ def confirmed_stretches(y, recording=None, seq=None, *, gap: int = DEFAULT_GAP,
         a, b = order[:-1], order[1:]
         new[1:] = ~((rec[a] == rec[b]) & (sq[b] - sq[a] <= gap) & (y[a] == y[b]))
         out[order] = np.cumsum(new) - 1
-    if batch is not None and lab.size:
-        from scipy import sparse
-        from scipy.sparse.csgraph import connected_components
-
-        bt = np.asarray(batch)
-        if bt.shape != (n,):
-            raise QualityInputError(f"batch must have one entry per window ({n}), got shape {bt.shape}")
-        _, b_id = np.unique(bt[lab], return_inverse=True)
-        n_st = int(out[lab].max()) + 1
-        # stretches and batches as one bipartite graph; its components are the groups
-        G = sparse.coo_matrix((np.ones(lab.size), (out[lab], n_st + b_id)),
-                              shape=(n_st + b_id.max() + 1,) * 2)
-        _, comp = connected_components(G, directed=False)
-        _, out[lab] = np.unique(comp[out[lab]], return_inverse=True)
     return out
 
 
@@ -158,7 +141,7 @@ class FoldPlan:
 
 
 def blocked_folds(y, recording=None, seq=None, *, n_folds: int = DEFAULT_FOLDS,
-                  gap: int = DEFAULT_GAP, random_state=0, classes=None, batch=None) -> FoldPlan:
+                  gap: int = DEFAULT_GAP, random_state=0, classes=None) -> FoldPlan:
     """Deal whole stretches (:func:`confirmed_stretches`) into at most ``n_folds`` folds.
 
     Per class, its stretches in random order go each to the fold holding the fewest windows of
@@ -169,7 +152,7 @@ def blocked_folds(y, recording=None, seq=None, *, n_folds: int = DEFAULT_FOLDS,
     y = _labels(y)
     if int(n_folds) != n_folds or n_folds < 2:
         raise QualityInputError(f"n_folds must be a whole number >= 2, got {n_folds}")
-    st = confirmed_stretches(y, recording, seq, gap=gap, batch=batch)
+    st = confirmed_stretches(y, recording, seq, gap=gap)
     fold = np.full(y.size, -1, dtype=np.int64)
     lab = np.flatnonzero(y >= 0)
     if lab.size == 0:
@@ -470,14 +453,13 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
                       weights=None, spreader=None, init=None, init_classes=None,
                       n_folds: int = DEFAULT_FOLDS, gap: int = DEFAULT_GAP, level: float = 0.95,
                       n_boot: int = 300, random_state=0, class_names=None,
-                      proposed_mask=None, classes=None, proposed_label=None, batch=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
+                      proposed_mask=None, classes=None, proposed_label=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
     """Accuracy of the proposals for the unconfirmed windows of ``y`` (module docstring, 1-2).
 
     ``proposed_confidence`` is the current confidence of every window (the full fit's; computed
     here when None). ``weights`` are importance weights per window (used for confirmed windows;
     default 1). ``proposed_mask`` limits the windows whose accuracy is wanted (default: all
-    unconfirmed). ``batch``: the user action that confirmed each window (windows of one action
-    are hidden together). ``classes``: every class code the project has (a class never confirmed gives
+    unconfirmed). ``classes``: every class code the project has (a class never confirmed gives
     no figure). Returns the estimate and the calibrator (None when there is no figure).
     """
     from labeler.spreading import LabelSpreader
@@ -495,7 +477,7 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
     conf = np.asarray(proposed_confidence, dtype=np.float64)
     w_all = np.ones(y.size) if weights is None else np.asarray(weights, dtype=np.float64)
     plan = blocked_folds(y, recording, seq, n_folds=n_folds, gap=gap, random_state=random_state,
-                         classes=classes, batch=batch)
+                         classes=classes)
     n_conf = int((y >= 0).sum())
     never = {c for c, k in plan.short.items() if k == 0}
     unscored = np.zeros(y.size, dtype=bool)

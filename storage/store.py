@@ -208,7 +208,19 @@ def _m2_recording_person_and_removal(db: sqlite_utils.Database) -> None:
     db.execute("ALTER TABLE recordings ADD COLUMN removed_by TEXT")
 
 
-MIGRATIONS = [_m1_initial, _m2_recording_person_and_removal]
+def _m3_weighted_answers(db: sqlite_utils.Database) -> None:
+    """Audit draws remember their confidence band (stratum) and its size; windows the review
+    queue drew at random remember the probability of the draw, for weighted accuracy estimates."""
+    db["audits"].add_column("stratum", int)
+    db["audits"].add_column("stratum_size", int)
+    db["queue_draws"].create(
+        {"window_id": int, "run_id": int, "probability": float, "pool": int, "drawn_at": str,
+         "drawn_by": str},
+        pk="window_id",
+    )
+
+
+MIGRATIONS = [_m1_initial, _m2_recording_person_and_removal, _m3_weighted_answers]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 # The current label of a window: among the annotators' current labels of that window, the one set by
@@ -822,27 +834,52 @@ class Store:
 
     # ------------------------------------------------------------------ audits
     def add_audit(self, run_id: int, drawn_by: str,
-                  picks: Sequence[tuple[int, int, float]]) -> int:
+                  picks: Sequence[tuple]) -> int:
         """Append one audit draw in one transaction: ``picks`` are (window_id, proposed class id,
-        confidence) in the order they are shown. Positions continue after the last drawn window,
-        so two draws never share one. Returns the position of the first pick."""
+        confidence[, stratum, stratum size]) in the order they are shown. Positions continue after
+        the last drawn window, so two draws never share one. Returns the position of the first
+        pick."""
         now = utc_now()
         with self.atomic():
             start = self.conn.execute(
                 "SELECT coalesce(max(position), -1) + 1 FROM audits").fetchone()[0]
             self.conn.executemany(
                 "INSERT INTO audits (run_id, window_id, position, drawn_at, drawn_by, "
-                "proposed_class_id, confidence) VALUES (?, ?, ?, ?, ?, ?, ?)",
-                ((int(run_id), int(w), start + k, now, drawn_by, int(c), float(conf))
-                 for k, (w, c, conf) in enumerate(picks)))
+                "proposed_class_id, confidence, stratum, stratum_size) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                ((int(run_id), int(p[0]), start + k, now, drawn_by, int(p[1]), float(p[2]),
+                  None if len(p) < 4 else int(p[3]), None if len(p) < 5 else int(p[4]))
+                 for k, p in enumerate(picks)))
         return int(start)
 
     def audits(self) -> list[dict[str, Any]]:
         """Every audited window in the order drawn: id, run_id, window_id, position, drawn_at,
-        drawn_by, proposed_class_id, confidence."""
+        drawn_by, proposed_class_id, confidence, stratum, stratum_size (None for a draw made
+        without strata)."""
         return [dict(r) for r in self.db.query(
             "SELECT id, run_id, window_id, position, drawn_at, drawn_by, proposed_class_id, "
-            "confidence FROM audits ORDER BY position, id")]
+            "confidence, stratum, stratum_size FROM audits ORDER BY position, id")]
+
+    # ------------------------------------------------------------------ queue draws
+    def add_queue_draws(self, run_id: int | None, drawn_by: str,
+                        draws: Sequence[tuple[int, float, int]]) -> None:
+        """Remember, for windows the review queue drew at random, the probability of the draw and
+        the number of windows it was drawn from: ``draws`` are (window_id, probability, pool). A
+        window drawn again keeps its latest draw. One transaction."""
+        now = utc_now()
+        with self.atomic():
+            self.conn.executemany(
+                "INSERT OR REPLACE INTO queue_draws (window_id, run_id, probability, pool, "
+                "drawn_at, drawn_by) VALUES (?, ?, ?, ?, ?, ?)",
+                ((int(w), None if run_id is None else int(run_id), float(q), int(m), now, drawn_by)
+                 for w, q, m in draws))
+
+    def queue_draws(self) -> list[dict[str, Any]]:
+        """Every window's latest random draw by the review queue: window_id, run_id,
+        probability, pool, drawn_at, drawn_by."""
+        return [dict(r) for r in self.db.query(
+            "SELECT window_id, run_id, probability, pool, drawn_at, drawn_by FROM queue_draws "
+            "ORDER BY window_id")]
 
     def audited_window_ids(self) -> list[int]:
         """Ids of the windows drawn into any audit (each once, ascending)."""

@@ -239,3 +239,19 @@ def test_change_mark_moves_with_changes_made_through_another_connection(store):
         assert store.change_mark() == mark
     finally:
         other.close()
+
+
+def test_audit_strata_and_queue_draws_are_kept(store):
+    _add_recording(store)
+    c1 = store.add_class("walking", "#E69F00", "ann")
+    run = store.add_run("proposals", {}, {})
+    store.add_audit(run, "ann", [(5, c1, 0.9, 1, 40), (2, c1, 0.5)])
+    rows = store.audits()
+    assert [(r["stratum"], r["stratum_size"]) for r in rows] == [(1, 40), (None, None)]
+    store.add_queue_draws(run, "ann", [(3, 0.25, 8), (4, 0.5, 8)])
+    store.add_queue_draws(run, "bea", [(3, 0.125, 7)])  # drawn again: the latest draw stands
+    got = {r["window_id"]: (r["probability"], r["pool"], r["drawn_by"]) for r in store.queue_draws()}
+    assert got == {3: (0.125, 7, "bea"), 4: (0.5, 8, "ann")}
+    with pytest.raises(ValueError):
+        store.add_queue_draws(run, "ann", [(6, 0.5, 8), (7, "not a number", 8)])
+    assert 6 not in {r["window_id"] for r in store.queue_draws()}
