@@ -579,6 +579,22 @@ def importance_weighted_accuracy(correct, probability, pool_size, *, level: floa
                            "by 1/(pool x probability)")
 
 
+def importance_weights(window_ids, drawn_ids, probability, pool) -> np.ndarray:
+    """Weight per window of ``window_ids``: ``1 / (pool q)`` for windows drawn at random with
+    probability ``q`` among ``pool`` candidates (Kossen et al. 2021), 1 for the others (whose
+    selection is unknown)."""
+    ids = np.asarray(window_ids)
+    w = np.ones(ids.size)
+    q = np.asarray(probability, dtype=np.float64)
+    m = np.asarray(pool, dtype=np.float64)
+    if q.size and (np.any(~(q > 0)) or np.any(q > 1) or np.any(m < 1)):
+        raise QualityInputError("draw probabilities must lie in (0, 1] and pools be >= 1")
+    pos = np.searchsorted(ids, drawn_ids) if ids.size else np.zeros(0, np.int64)
+    hit = (pos < ids.size) & (ids[np.minimum(pos, max(ids.size - 1, 0))] == drawn_ids) if ids.size else pos.astype(bool)
+    w[pos[hit]] = 1.0 / (m[hit] * q[hit])
+    return w
+
+
 def draw_stratified_audit(candidate_mask, confidence, n: int, *, n_strata: int = 4,
                           random_state=None, min_per_stratum: int = 2):
     """Stratified random sample of ``n`` candidates, strata by confidence (Cochran 1977, ch. 5).

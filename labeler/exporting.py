@@ -13,9 +13,10 @@ timeline, queue, audit, import, cli, api, class-merge, undo). ``retired`` marks 
 were retired since (kept, never silently dropped).
 
 A confirmed window's confidence is 1 (a person decided it; how far people agree is what
-``labeler agreement`` reports) and its margin is empty. A proposed window's confidence is the share of
-the spread label mass that went to its label and its margin the gap to the runner-up, as the
-proposals engine computes them.
+``labeler agreement`` reports) and its margin is empty. A proposed window's confidence is the probability
+that its label is right, calibrated on the confirmed and audited windows (:mod:`labeler.estimate`),
+or, while the project has no accuracy figure, the share of the spread label mass that went to its
+label; its margin is the gap between the top two shares of label mass.
 
 **Segments**: consecutive windows of one recording with one label (no gap between them, no other
 label in between) become one interval. Overlapping windows share samples, so a segment's ``start``
@@ -35,8 +36,11 @@ random train/test split (:mod:`labeler.training`). On request the rows carry the
 
 **Manifest** (JSON): tool and feature-set versions, window settings, the proposal run's parameters,
 content hashes of the recordings, counts per class and status and confirmation source, the selection
-made, the accuracy estimate with its interval and what it rests on (or ``null`` with the reason), and
-the SHA-256 of each table written with it.
+made, the accuracy estimate of the proposals with its interval and what it rests on (or ``null`` with
+the reason: no proposals, or none in the export), and the SHA-256 of each table written with it. A
+proposed window's confidence is calibrated when the estimate has a calibration (the probability that
+its label is right, :mod:`labeler.estimate`); the manifest's ``accuracy_estimate.confidence_column``
+says which.
 
 Every file is written to a temporary name in its folder and renamed into place (:func:`write_atomic`),
 so a reader sees the previous file or the new one, never half of one.
@@ -324,6 +328,9 @@ def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt
         X, feature_names = inputs.features
         pos = pd.Index(inputs.windows["id"]).get_indexer(table["window_id"])
         table = pd.concat([table, pd.DataFrame(X[pos], columns=feature_names)], axis=1)
+    accuracy, absent = inputs.accuracy, inputs.accuracy_absent
+    if accuracy is not None and not (table["status"] == "proposed").any():
+        accuracy, absent = None, "no proposed window in this export (only confirmed ones)"
     Path(targets["windows"]).parent.mkdir(exist_ok=True)
     files = {}
     for kind, frame in (("windows", table), ("segments", segs)):
@@ -359,8 +366,8 @@ def write_training_set(inputs: ExportInputs, targets: Mapping[str, Path], *, fmt
         selection={"confirmed_only": bool(confirmed_only),
                    "min_confidence": None if min_confidence is None else float(min_confidence),
                    "classes": classes},
-        proposals=inputs.proposal_params, accuracy=inputs.accuracy,
-        accuracy_absent=inputs.accuracy_absent, table=table, files=files)
+        proposals=inputs.proposal_params, accuracy=accuracy,
+        accuracy_absent=absent, table=table, files=files)
     manifest["features"] = (None if feature_names is None else
                             {"columns": list(feature_names),
                              "set_version": inputs.feature_set_version})

@@ -410,24 +410,30 @@ class Project:
         confirmed (whether the window was confirmed at that run). Empty when none yet."""
         return self._proposals.table()
 
-    def review_queue(self, n: int = 50) -> pd.DataFrame:
+    def review_queue(self, n: int = 50, *, random_state=None) -> pd.DataFrame:
         """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
         unexplored), score, proposed, confidence, recording, start_s. Windows drawn into an open
-        audit are left out, so the audit stays blind."""
-        return self._proposals.review_queue(n, exclude=self._audits.open_windows())
+        audit are left out, so the audit stays blind. The windows are drawn at random, favouring
+        high scores, and each one's probability of being drawn is kept for the accuracy
+        estimate."""
+        return self._proposals.review_queue(n, exclude=self._audits.open_windows(),
+                                            random_state=random_state)
 
     def draw_audit(self, n: int = 30, *, random_state=None) -> pd.DataFrame:
-        """Draw a random sample of proposed, unconfirmed windows for a blind audit: window_id,
-        position, recording, start_s. Confirm them with source "audit"."""
+        """Draw a random sample of proposed, unconfirmed windows (within bands of confidence) for
+        a blind audit: window_id, position, recording, start_s. Confirm them with source
+        "audit"."""
         return self._audits.draw(n, random_state=random_state)
 
     def audit_status(self) -> pd.DataFrame:
         """Every audited window: window_id, run_id, position, proposed, confidence, answer, correct."""
         return self._audits.status()
 
-    def accuracy_estimate(self, *, cross_validate: bool = True) -> AccuracyReport:
-        """Accuracy of the proposals, with what it rests on (see :mod:`labeler.quality`)."""
-        return self._audits.accuracy_estimate(cross_validate=cross_validate)
+    def accuracy_estimate(self) -> AccuracyReport:
+        """Accuracy of the latest proposals, with its interval, what it rests on and the
+        calibration of the confidence (see :mod:`labeler.estimate`). Computed once per proposal
+        run and stored with it; later calls read it."""
+        return self._audits.accuracy_estimate()
 
     # ------------------------------------------------------------------ several annotators
     def annotations(self) -> pd.DataFrame:

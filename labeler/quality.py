@@ -1,10 +1,13 @@
-"""How good are the proposed labels? Estimates that say what they rest on.
+"""How good are the proposed labels? Building blocks of estimates that say what they rest on.
 
-Pure numerics, no storage, no display.
+Pure numerics, no storage, no display. The estimate the project reports is assembled in
+:mod:`labeler.estimate` (time-blocked cross-validation, calibration, weighted and stratified
+answers); this module keeps the estimate record, intervals, the calibration error and the plain
+estimators below.
 
 Two sources of evidence:
 
-- **Audit** (preferred): a uniformly random sample of proposed, unconfirmed windows
+- **Audit** (:func:`audit_accuracy`, for draws made without confidence bands): a uniformly random sample of proposed, unconfirmed windows
   (:func:`draw_audit`), which the annotator then labels. The share whose proposal matched is an
   unbiased estimate of the accuracy of the proposals at the time of the draw, with a Wilson score
   interval (Wilson, "Probable inference, the law of succession, and statistical inference", 1927).
@@ -14,8 +17,9 @@ Two sources of evidence:
   of the confirmed windows, spread the others, score the hidden fold. It costs the annotator
   nothing but is biased: confirmed windows are not a random sample. Windows picked from the review
   queue are the hard ones (uncertain, unexplored), which makes it pessimistic; windows picked where
-  the map looks clear, or next to each other in time, make it optimistic. It is reported as a rough
-  guide only, and the estimate says so.
+  the map looks clear, or next to each other in time, make it optimistic (random folds put
+  overlapping windows on both sides). Kept as the naive baseline the benchmark compares with; the
+  project reports :func:`labeler.estimate.proposal_accuracy` instead.
 
 Calibration of the confidence on audited windows: expected calibration error with equal-width bins
 (Naeini, Cooper & Hauskrecht, "Obtaining well calibrated probabilities using Bayesian binning", 2015;
@@ -33,9 +37,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from labeler.errors import InputError
-
-#: An audit of at least this many windows is preferred to cross-validation.
-MIN_AUDIT = 30
 
 CV_NOTE = ("cross-validation on confirmed windows: biased, since confirmed windows are not a random "
            "sample (queue picks are harder than average, windows picked on the map or next to "
@@ -204,23 +205,6 @@ def cross_validated_accuracy(graph, y, *, n_folds: int = 5, random_state=0, spre
     low, high = wilson_interval(hits, total, level)
     return Estimate(hits / total, low, high, "cross-validation", total, level=level, note=CV_NOTE,
                     details={"folds": k_folds})
-
-
-def accuracy_estimate(*, audit: Estimate | None = None, cv: Estimate | None = None,
-                      min_audit: int = MIN_AUDIT) -> Estimate:
-    """The estimate to report: the audit when it has at least ``min_audit`` windows, else
-    cross-validation when available, else the (small) audit, else an empty estimate."""
-    if audit is not None and audit.basis == "audit" and audit.n >= min_audit:
-        return audit
-    if cv is not None and cv.basis == "cross-validation":
-        if audit is not None and audit.basis == "audit":
-            cv = Estimate(**{**cv.__dict__, "note": cv.note + f"; an audit of {audit.n} windows gave "
-                             f"{audit.value:.1%} (fewer than {min_audit}, so not preferred)"})
-        return cv
-    if audit is not None and audit.basis == "audit":
-        return audit
-    return Estimate(float("nan"), 0.0, 1.0, "none", 0,
-                    note="no estimate yet: confirm windows of two classes or draw an audit")
 
 
 def training_set_estimate(est: Estimate, n_confirmed: int, n_proposed: int) -> Estimate:

@@ -80,14 +80,36 @@ class ProposalRun:
 class AccuracyReport:
     """How accurate the latest proposals are and what that rests on.
 
-    ``estimate``: of the proposed windows (see :mod:`labeler.quality`); ``training_set``: the same
-    for the exported set, confirmed windows counted as right (None when there is nothing to
+    ``estimate``: of the proposed windows (see :mod:`labeler.estimate`); ``training_set``: the
+    same for the exported set, confirmed windows counted as right (None when there is nothing to
     export); ``run_id``: the proposal run it is about; ``audit_runs``: the runs an audit drew from.
+    ``calibration``: the map from the spreading's confidence to the probability that a proposal
+    is right (``confidence`` and ``probability`` knots, see :func:`labeler.estimate.calibrate`),
+    None without a figure; ``expected_wrong``: proposed windows expected to be wrong (sum of one
+    minus the calibrated confidence); ``likely_wrong``: proposed windows more likely wrong than
+    right. Computed once per proposal run and stored with it.
     """
     run_id: int
     estimate: Estimate
     training_set: Estimate | None = None
     audit_runs: tuple[int, ...] = ()
+    calibration: dict | None = None
+    expected_wrong: float | None = None
+    likely_wrong: int | None = None
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "AccuracyReport":
+        """The inverse of :meth:`as_dict` (as stored with the run)."""
+        fields = ("value", "low", "high", "basis", "n", "scope", "level", "ece", "note")
+        def est(e):
+            kw = {k: e.get(k) for k in fields}
+            for k in ("value", "low", "high"):
+                kw[k] = float("nan") if kw[k] is None else float(kw[k])
+            return Estimate(**kw, details=e.get("details") or {})
+        return cls(run_id=int(d["run_id"]), estimate=est(d),
+                   training_set=est(d["training_set"]) if d.get("training_set") else None,
+                   audit_runs=tuple(d.get("audit_runs") or ()), calibration=d.get("calibration"),
+                   expected_wrong=d.get("expected_wrong"), likely_wrong=d.get("likely_wrong"))
 
     @property
     def value(self) -> float | None:
@@ -129,7 +151,13 @@ class AccuracyReport:
             out[k] = _finite(out[k])
         if self.training_set is not None:
             out["training_set"] = self.training_set.as_dict()
+            for k in ("value", "low", "high"):
+                out["training_set"][k] = _finite(out["training_set"][k])
         out["run_id"] = self.run_id
+        out["audit_runs"] = list(self.audit_runs)
+        out["calibration"] = self.calibration
+        out["expected_wrong"] = self.expected_wrong
+        out["likely_wrong"] = self.likely_wrong
         return out
 
 

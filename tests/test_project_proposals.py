@@ -93,6 +93,7 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
         p.draw_audit(5)
     confirm_truth(p, p.review_queue(40)["window_id"], truth)
     p.refresh_proposals()
+    e1 = p.accuracy_estimate()
     q = p.review_queue(15)
     assert len(q) == 15 and set(q["reason"]) <= {"uncertain", "unexplored", "conflict", "disagreement"}
     assert not q["window_id"].isin(p.labels()["window_id"]).any()
@@ -103,18 +104,72 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     b = p.draw_audit(25, random_state=2)
     assert not set(a["window_id"]) & set(b["window_id"])
     confirm_truth(p, a["window_id"], truth, source="audit")
-    est = p.accuracy_estimate()
-    assert est.basis == "cross-validation" and "biased" in est.note  # 10 audited < 30
     confirm_truth(p, b["window_id"], truth, source="audit")
-    est = p.accuracy_estimate()
     st = p.audit_status()
-    assert est.basis == "audit" and est.n == 35
-    assert est.value == pytest.approx((st["correct"] == True).mean())  # noqa: E712
+    assert st["stratum"].notna().all() and (st["stratum_size"] >= 1).all()
+    # the estimate belongs to the run: answers after it wait for the next proposals
+    run1 = p.store.latest_run("proposals")["id"]
+    assert e1.run_id == run1 and not e1.audit_runs
+    assert p.accuracy_estimate().as_dict() == e1.as_dict()
+    p.refresh_proposals()
+    est = p.accuracy_estimate()
+    assert est.audit_runs == (run1,) and "audit" in est.basis
+    assert "of proposal run" in est.note
+    audit_src = [s for s in est.estimate.details.get("sources", [est.estimate.as_dict()])
+                 if s["basis"] == "audit"][0]
+    from labeler.estimate import stratified_accuracy
+    ref = stratified_accuracy((st["correct"] == True).to_numpy(), st["stratum"].to_numpy(int),  # noqa: E712
+                              st["stratum_size"].to_numpy(int))
+    assert audit_src["value"] == pytest.approx(ref.value) and audit_src["n"] == 35
     assert est.low <= est.value <= est.high
     assert est.training_set.value >= est.value
     # the proposals at draw time were scored, not later ones
     props = p.proposals().set_index("window_id")
     assert set(st["window_id"]) <= set(props.index)
+
+
+def test_estimate_is_stored_once_per_run_and_shared_by_cli_and_export(project, sims, tmp_path):
+    import json
+
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(60, random_state=0)["window_id"], truth, source="queue")
+    # the queue's random draws keep their probability for the estimate's weights
+    draws = p.store.queue_draws()
+    assert len(draws) >= 50 and all(0 < d["probability"] <= 1 and d["pool"] > 1 for d in draws)
+    p.refresh_proposals()
+    e = p.accuracy_estimate()
+    stored = p.store.get_blob("proposals/estimate")
+    assert stored is not None and stored[1]["run_id"] == e.run_id
+    assert p.accuracy_estimate().as_dict() == e.as_dict()  # read back, not computed again
+    path = p.path
+    p.close()
+    r = CliRunner().invoke(cli, ["accuracy", str(path)])
+    assert r.exit_code == 0, r.output
+    if e.basis == "none":
+        assert e.note in r.output.replace("\n", " ") or "no estimate" in r.output
+    else:
+        assert f"{e.value:.3f}" in r.output and f"proposals run {e.run_id}" in r.output
+        assert e.expected_wrong is not None and e.calibration is not None
+    with Project.open(path) as p2:
+        out = p2.export(tmp_path / "out")
+        m = json.loads((tmp_path / "out" / "manifest.json").read_text())
+        assert m["accuracy_estimate"]["run_id"] == e.run_id
+        assert m["accuracy_estimate"]["value"] == (None if e.value is None else pytest.approx(e.value))
+        assert m["accuracy_estimate"]["note"] == e.note
+        import pandas as pd
+        t = pd.read_csv(out.files["windows"])
+        prop = p2.proposals().set_index("window_id")
+        tp = t[t["status"] == "proposed"]
+        if e.calibration:
+            from labeler.estimate import calibrate
+            want = calibrate(prop.loc[tp["window_id"], "confidence"].to_numpy(), e.calibration)
+            assert tp["confidence"].to_numpy() == pytest.approx(want, abs=1e-6)
+            assert m["accuracy_estimate"]["confidence_column"].startswith("calibrated")
+        # an export with no proposed window carries no proposal accuracy
+        p2.export(tmp_path / "conf", confirmed_only=True)
+        m2 = json.loads((tmp_path / "conf" / "manifest.json").read_text())
+        assert m2["accuracy_estimate"] is None and "no proposed window" in m2["accuracy_estimate_absent"]
 
 
 def test_a_conflict_is_raised_until_someone_looks_at_it_alone(project, sims):

@@ -7,9 +7,8 @@ from sklearn.datasets import load_digits
 
 from labeler.errors import InputError
 from labeler.graph import build_graph
-from labeler.quality import (MIN_AUDIT, Estimate, accuracy_estimate, audit_accuracy,
-                             cross_validated_accuracy, draw_audit, expected_calibration_error,
-                             training_set_estimate, wilson_interval)
+from labeler.quality import (Estimate, audit_accuracy, cross_validated_accuracy, draw_audit,
+                             expected_calibration_error, training_set_estimate, wilson_interval)
 
 
 @pytest.mark.parametrize("k, n", [(0, 1), (1, 1), (7, 10), (45, 50), (0, 30), (30, 30), (512, 1000)])
@@ -94,17 +93,6 @@ def test_cross_validation_on_digits():
     true = (LabelSpreader().fit(W, y).transduction_[y < 0] == t[y < 0]).mean()
     assert abs(est.value - true) < 0.1
     assert "biased" in est.note
-
-
-def test_prefers_audit_when_large_enough():
-    cv = Estimate(0.7, 0.6, 0.8, "cross-validation", 200, note="cv")
-    small = audit_accuracy(np.ones(10), np.ones(10))
-    big = audit_accuracy(np.ones(MIN_AUDIT), np.r_[np.ones(MIN_AUDIT - 1), 0])
-    assert accuracy_estimate(audit=big, cv=cv).basis == "audit"
-    e = accuracy_estimate(audit=small, cv=cv)
-    assert e.basis == "cross-validation" and "10 windows" in e.note
-    assert accuracy_estimate(audit=small).basis == "audit"
-    assert accuracy_estimate().basis == "none"
 
 
 def test_training_set_estimate_counts_confirmed_as_right():

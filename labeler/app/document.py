@@ -1035,30 +1035,22 @@ def _pct(v) -> str:
 
 
 def _estimate_html(est) -> str:
-    """The accuracy block (a :class:`labeler.results.AccuracyReport`): an audit's figure as the
-    headline; cross-validation only as a hint."""
-    from labeler.quality import MIN_AUDIT
-
-    basis = est.basis
-    acc, lo, hi = est.value, est.low, est.high
-    n = int(est.n)
+    """The accuracy block (a :class:`labeler.results.AccuracyReport`, the same object
+    `labeler accuracy` prints and the export's manifest carries): the headline with its interval
+    and what it rests on, or what is missing for a figure."""
     grey = "<span style='color:#555'>{}</span>"
-    if basis == "audit" and acc is not None:
-        parts = [f"<b>Proposals are right {_pct(acc)} of the time</b> (95% interval "
-                 f"{_pct(lo)}–{_pct(hi)})",
-                 grey.format(f"rests on: an audit of {n} randomly drawn windows you labeled "
-                             "without seeing the proposal")]
-        ts = est.training_set
-        if ts is not None and np.isfinite(ts.value):
-            parts.append(f"Training set (confirmed windows counted right): {_pct(ts.value)} "
-                         f"({_pct(ts.low)}–{_pct(ts.high)})")
-        return "<br>".join(parts)
-    head = (f"<b>No unbiased accuracy estimate yet</b> — press Audit and label {MIN_AUDIT} "
-            "random windows.")
-    if basis == "cross-validation" and acc is not None:
-        return head + "<br>" + grey.format(
-            f"Until then, a hint only: cross-validation on {n} of your confirmed windows gives "
-            f"{_pct(acc)} ({_pct(lo)}–{_pct(hi)}); optimistic, since confirmed windows are not a "
-            "random sample.")
-    note = est.note
-    return head + ("<br>" + grey.format(html.escape(str(note))) if note else "")
+    acc, lo, hi = est.value, est.low, est.high
+    note = html.escape(str(est.note or ""))
+    if est.basis == "none" or acc is None:
+        return "<b>No accuracy figure yet</b><br>" + grey.format(note)
+    parts = [f"<b>Proposals are right about {_pct(acc)} of the time</b> (95% interval "
+             f"{_pct(lo)}–{_pct(hi)})"]
+    if est.expected_wrong is not None:
+        parts.append(f"About {est.expected_wrong:.0f} proposals expected wrong")
+    ts = est.training_set
+    if ts is not None and np.isfinite(ts.value):
+        parts.append(f"Training set (confirmed windows counted right): {_pct(ts.value)} "
+                     f"({_pct(ts.low)}–{_pct(ts.high)})")
+    parts.append(grey.format("rests on: " + note))
+    parts.append(grey.format("Proposed labels are suggestions; a qualified person reviews them."))
+    return "<br>".join(parts)

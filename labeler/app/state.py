@@ -283,7 +283,7 @@ class SessionState:
     # -------------------------------------------------------------- review queue and audit
     def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
         """Fill the queue from the project: ``review`` (Project.review_queue) or ``audit``
-        (Project.draw_audit, a uniformly random sample)."""
+        (Project.draw_audit, a random sample within bands of confidence)."""
         self.queue_mode = mode
         self.queue_pos = 0
         if mode == "review":

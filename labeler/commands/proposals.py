@@ -78,14 +78,19 @@ def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
         with bar:
             s = p.refresh_proposals(alpha=alpha, n_neighbors=neighbors,
                                     temporal_weight=temporal_weight, progress=progress)
+        e = p.accuracy_estimate() if s.proposed else None
     mean = s.mean_confidence
     click.echo(f"proposals run {s.run_id}: {s.proposed} window(s) proposed from "
                f"{s.confirmed} confirmed in {len(s.classes)} class(es) in {s.seconds:.2f} s"
                + (", graph rebuilt" if s.graph_rebuilt else "")
                + (", warm start" if s.warm_start else ""))
     if mean is not None:
-        click.echo(f"  mean confidence {mean:.3f}; {s.low_support} window(s) far from any "
-                   f"confirmation; {s.conflicts} confirmed window(s) in conflict")
+        click.echo(f"  {s.conflicts} confirmed window(s) in conflict with their neighbours")
+    if e is not None and e.expected_wrong is not None:
+        click.echo(f"  about {e.expected_wrong:.0f} proposal(s) expected wrong, {e.likely_wrong} "
+                   "more likely wrong than right (calibrated confidence; `labeler accuracy`)")
+    elif e is not None:
+        click.echo(f"  no accuracy figure: {e.note}")
     click.echo("  proposed labels are suggestions; a qualified person reviews them before use")
 
 
@@ -137,14 +142,19 @@ def accuracy_cmd(project, annotator):
     with _open(project, annotator) as p:
         e = p.accuracy_estimate()
     if e.basis == "none":
-        click.echo(f"no estimate: {e.note}")
+        click.echo(f"no estimate for proposals run {e.run_id}: {e.note}")
         return
     click.echo(f"accuracy of proposed windows {e.value:.3f} ({e.level:.0%} interval "
-               f"{e.low:.3f}-{e.high:.3f}), {e.basis} of {e.n} window(s)")
+               f"{e.low:.3f}-{e.high:.3f}), proposals run {e.run_id}")
     if e.training_set is not None:
         t = e.training_set
         click.echo(f"  training set (confirmed counted as right) {t.value:.3f} "
                    f"({t.low:.3f}-{t.high:.3f})")
+    if e.expected_wrong is not None:
+        click.echo(f"  about {e.expected_wrong:.0f} proposal(s) expected wrong, {e.likely_wrong} "
+                   "more likely wrong than right")
     if e.ece is not None:
-        click.echo(f"  expected calibration error of the confidence {e.ece:.3f}")
-    click.echo(f"  {e.note}")
+        raw = e.estimate.details.get("ece_raw")
+        click.echo("  expected calibration error of the calibrated confidence "
+                   f"{e.ece:.3f}" + (f" (spreading's own confidence {raw:.3f})" if raw is not None else ""))
+    click.echo(f"  rests on: {e.note}")

@@ -6,6 +6,8 @@ import os
 from pathlib import Path
 from typing import Sequence
 
+import numpy as np
+
 import labeler
 from labeler import exporting
 from labeler.answers import is_answer
@@ -86,7 +88,8 @@ class Exporter:
                            "try again when the other annotators pause")
 
     def _proposals(self):
-        """(proposals, run parameters, accuracy estimate, why the estimate is absent)."""
+        """(proposals, run parameters, accuracy estimate, why the estimate is absent). The
+        proposals' confidence is the calibrated one when the estimate has a calibration."""
         df = self.proposals.table()
         if len(df) == 0:
             return None, None, None, "no proposals in this project yet"
@@ -94,4 +97,16 @@ class Exporter:
         run = self.ctx.store.latest_run("proposals")
         params = None if run is None else {"run_id": run["id"], "created_at": run["created_at"],
                                             "created_by": run["created_by"], **run["params"]}
-        return prop.reset_index(drop=True), params, self.audits.accuracy_estimate().as_dict(), None
+        report = self.audits.accuracy_estimate()
+        acc = report.as_dict()
+        if report.calibration:
+            from labeler.estimate import calibrate
+
+            prop = prop.assign(confidence=calibrate(prop["confidence"].to_numpy(np.float64),
+                                                    report.calibration))
+            acc["confidence_column"] = ("calibrated: the estimated probability that the proposed "
+                                        "label is right")
+        else:
+            acc["confidence_column"] = ("the spreading's own score, not calibrated (no accuracy "
+                                        "figure yet)")
+        return prop.reset_index(drop=True), params, acc, None

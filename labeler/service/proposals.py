@@ -12,6 +12,7 @@ from __future__ import annotations
 import hashlib
 import io
 import json
+import os
 import time
 
 import numpy as np
@@ -26,6 +27,9 @@ from labeler.service.ledger import Ledger
 GRAPH_BLOB = "proposals/graph"
 LATEST_BLOB = "proposals/latest"
 GRAPH_PARAMS = ("n_neighbors", "temporal_weight", "pca_components")
+#: the review queue draws windows with probability ~ score**QUEUE_POWER (plus a floor), so each
+#: shown window's chance is known (benchmarks/estimate_orderings.py)
+QUEUE_POWER = 4.0
 PROPOSAL_COLUMNS = ["window_id", "label", "class_id", "confidence", "margin", "support", "conflict",
                     "confirmed"]
 
@@ -192,11 +196,13 @@ class Proposals:
         return df.copy()
 
     # ------------------------------------------------------------------ review queue
-    def review_queue(self, n: int = 50, *, exclude: np.ndarray | None = None) -> pd.DataFrame:
+    def review_queue(self, n: int = 50, *, exclude: np.ndarray | None = None,
+                     random_state=None) -> pd.DataFrame:
         """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
         unexplored), score, proposed label and its confidence. Uses the latest proposals; before
         any confirmation it spreads its picks over the graph. ``exclude``: window ids left out
-        (drawn into an open audit)."""
+        (drawn into an open audit). Windows are drawn at random (``QUEUE_POWER``, see
+        :mod:`labeler.review`) and each draw's probability is stored for the accuracy estimate."""
         from labeler.review import review_queue as _queue
         from labeler.outputs import WindowOutputs
 
@@ -223,7 +229,15 @@ class Proposals:
         dis = np.isin(ids, self.ledger.disagreements())
         excl = np.isin(ids, np.empty(0, np.int64) if exclude is None else exclude)
         rid, seq = self.catalog.window_sequence()
-        q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl)
+        seed = random_state if random_state is not None else int.from_bytes(os.urandom(4), "little")
+        q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl,
+                   sample_power=QUEUE_POWER, random_state=seed)
+        drawn = q.pool > 1  # drawn by chance, not shown first by rule
+        if drawn.any() and not getattr(self.ctx.store, "_readonly", False):
+            run = None if p is None else p["meta"].get("run_id")
+            self.ctx.store.add_queue_draws(run, self.ctx.annotator,
+                                           zip(ids[q.index[drawn]], q.probability[drawn],
+                                               q.pool[drawn]))
         names = self.ledger.class_names()
         df = pd.DataFrame({"window_id": ids[q.index], "reason": q.reason, "score": q.score})
         if outputs is not None:
