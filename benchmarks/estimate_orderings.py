@@ -8,8 +8,9 @@ A simulated annotator answers from ground truth in one of three orders, refreshi
 after every batch of 5:
 
 - ``random``: windows in random order;
-- ``queue``: the review queue, drawn (``sample_power``) so each shown window's probability is
-  known and weights the estimate;
+- ``queue``: the review queue, drawn as the project draws it (``QUEUE_POWER``), so each shown
+  window's probability is known and weights the estimate;
+Each round is one user action (batch): the estimate hides the windows of one action together.
 Classes are made as the annotator meets them (a class nobody has confirmed yet is unknown to the
 tool, and its windows count as wrong in the truth).
 
@@ -39,13 +40,13 @@ import numpy as np
 from labeler.estimate import proposal_accuracy
 from labeler.graph import build_graph
 from labeler.review import review_queue
+from labeler.service.proposals import QUEUE_FLOOR, QUEUE_POWER
 from labeler.spreading import LabelSpreader
 
 CHECKPOINTS = (25, 50, 100, 200)
 ORDERS = ("random", "queue", "map")
 BATCH = 5
 PCA = 30
-QUEUE_POWER = 4.0
 
 
 def simulator(hours: float = 1.0, seed: int = 1, person: int = 0):
@@ -130,6 +131,7 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
     rng = np.random.default_rng(seed)
     y = np.full(n, -1)
     weight = np.ones(n)
+    batch = np.full(n, -1)  # the round (one user action) that confirmed each window
     sp = LabelSpreader(warm_start=True)
     out = None
     rows = []
@@ -144,14 +146,15 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
             est, _ = proposal_accuracy(W, y, sp.label_distributions_.max(axis=1), recording=rec,
                                        seq=seq, weights=weight, spreader=LabelSpreader(),
                                        init=sp.label_mass_, init_classes=sp.classes_,
-                                       proposed_label=sp.transduction_,
+                                       proposed_label=sp.transduction_, batch=batch,
                                        level=level, n_boot=n_boot, random_state=seed)
             rows.append((k, truth, est.value, est.low, est.high, est.basis))
             continue
         room = cps[0] - k
         if order == "queue" and out is not None:
             q = review_queue(W, out, labeled, rec, seq, n=min(BATCH, room), exclude=labeled,
-                             sample_power=QUEUE_POWER, random_state=rng)
+                             sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR,
+                             random_state=rng)
             pick = q.index
             weight[pick] = 1.0 / (q.pool * q.probability)
         elif order == "map":
@@ -170,6 +173,7 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
             free = np.flatnonzero(~labeled)
             pick = rng.choice(free, size=min(BATCH, room, free.size), replace=False)
         y[pick] = t[pick]
+        batch[pick] = k
         sp.fit(W, y)
         out = sp.outputs(y)
     return rows
@@ -217,13 +221,58 @@ def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out
     return summary
 
 
+def speed(n_windows: int = 134_000, out=print):
+    """Time of the estimate in a project of ``n_windows`` windows: computing it once after a
+    proposal run, reading it back, and `labeler accuracy` as a process. Goal: the command < 0.5 s."""
+    import subprocess
+    import tempfile
+    from pathlib import Path
+
+    from bench_app import make_project
+
+    from labeler.project import Project
+
+    with tempfile.TemporaryDirectory() as tmp:
+        t0 = time.perf_counter()
+        path = make_project(Path(tmp), n_windows)
+        with Project.open(path, annotator="bench") as p:
+            w = p.windows()
+            second = w[w["recording_id"] == w["recording_id"].max()]
+            for j, name in enumerate(("slow", "steady", "brisk")):  # a second stretch per class
+                p.confirm(second["id"].iloc[j * 47:j * 47 + 30].tolist(), name, source="import")
+            build = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            p.refresh_proposals()
+            t_prop = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            e = p.accuracy_estimate()
+            t_est = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            p.accuracy_estimate()
+            t_read = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        r = subprocess.run([sys.executable, "-m", "labeler.cli", "accuracy", str(path)],
+                           capture_output=True, text=True)
+        t_cli = time.perf_counter() - t0
+    out(f"== the estimate in a project of {len(w)} windows (built in {build:.0f} s) ==")
+    out(f"  proposals run {t_prop:.1f} s; estimate computed once {t_est:.1f} s "
+        f"({e.basis}, {e.n} confirmed windows scored); read back {t_read * 1000:.0f} ms")
+    out(f"  `labeler accuracy` as a process: {t_cli:.2f} s (goal < 0.5 s"
+        f"{'' if r.returncode == 0 else ', FAILED: ' + r.stderr.strip()[-200:]})")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true")
     ap.add_argument("--repeats", type=int, default=None)
     ap.add_argument("--data", nargs="*", default=list(DATASETS))
     ap.add_argument("--orders", nargs="*", default=list(ORDERS))
+    ap.add_argument("--speed", type=int, default=None, metavar="N",
+                    help="only time the estimate in a project of N windows")
     a = ap.parse_args(argv)
+    if a.speed:
+        speed(a.speed)
+        return
     table(a.data, a.orders, a.repeats or (3 if a.quick else 10), a.quick)
 
 

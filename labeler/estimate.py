@@ -78,12 +78,17 @@ def _z(level: float) -> float:
 
 # --------------------------------------------------------------------------- folds
 
-def confirmed_stretches(y, recording=None, seq=None, *, gap: int = DEFAULT_GAP) -> np.ndarray:
+def confirmed_stretches(y, recording=None, seq=None, *, gap: int = DEFAULT_GAP, batch=None,
+                        max_batch: int = 50) -> np.ndarray:
     """Stretch id per window (-1 for unconfirmed windows).
 
     A stretch is a maximal run of confirmed windows of one recording with one label, each at most
     ``gap`` window steps after the previous. Without ``recording``/``seq`` (windows that are not
     parts of a longer recording, e.g. separate series) every confirmed window is its own stretch.
+    ``batch`` (one id per window: the user action that confirmed it, -1 for none) makes the
+    windows of each action of at most ``max_batch`` windows one group instead: windows picked
+    together on the map are alike whenever they were recorded, so they are hidden together.
+    Larger actions (an imported file) keep the stretches.
     """
     y = _labels(y)
     n = y.size
@@ -100,6 +105,14 @@ def confirmed_stretches(y, recording=None, seq=None, *, gap: int = DEFAULT_GAP) 
         a, b = order[:-1], order[1:]
         new[1:] = ~((rec[a] == rec[b]) & (sq[b] - sq[a] <= gap) & (y[a] == y[b]))
         out[order] = np.cumsum(new) - 1
+    if batch is not None and lab.size:
+        bt = np.asarray(batch)
+        if bt.shape != (n,):
+            raise QualityInputError(f"batch must have one entry per window ({n}), got shape {bt.shape}")
+        _, b_id, b_n = np.unique(bt[lab], return_inverse=True, return_counts=True)
+        small = (b_n[b_id] <= max_batch) & (bt[lab] >= 0)
+        key = np.where(small, out[lab].max() + 1 + b_id, out[lab])
+        _, out[lab] = np.unique(key, return_inverse=True)
     return out
 
 
@@ -141,7 +154,7 @@ class FoldPlan:
 
 
 def blocked_folds(y, recording=None, seq=None, *, n_folds: int = DEFAULT_FOLDS,
-                  gap: int = DEFAULT_GAP, random_state=0, classes=None) -> FoldPlan:
+                  gap: int = DEFAULT_GAP, random_state=0, classes=None, batch=None) -> FoldPlan:
     """Deal whole stretches (:func:`confirmed_stretches`) into at most ``n_folds`` folds.
 
     Per class, its stretches in random order go each to the fold holding the fewest windows of
@@ -152,7 +165,7 @@ def blocked_folds(y, recording=None, seq=None, *, n_folds: int = DEFAULT_FOLDS,
     y = _labels(y)
     if int(n_folds) != n_folds or n_folds < 2:
         raise QualityInputError(f"n_folds must be a whole number >= 2, got {n_folds}")
-    st = confirmed_stretches(y, recording, seq, gap=gap)
+    st = confirmed_stretches(y, recording, seq, gap=gap, batch=batch)
     fold = np.full(y.size, -1, dtype=np.int64)
     lab = np.flatnonzero(y >= 0)
     if lab.size == 0:
@@ -453,13 +466,14 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
                       weights=None, spreader=None, init=None, init_classes=None,
                       n_folds: int = DEFAULT_FOLDS, gap: int = DEFAULT_GAP, level: float = 0.95,
                       n_boot: int = 300, random_state=0, class_names=None,
-                      proposed_mask=None, classes=None, proposed_label=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
+                      proposed_mask=None, classes=None, proposed_label=None, batch=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
     """Accuracy of the proposals for the unconfirmed windows of ``y`` (module docstring, 1-2).
 
     ``proposed_confidence`` is the current confidence of every window (the full fit's; computed
     here when None). ``weights`` are importance weights per window (used for confirmed windows;
     default 1). ``proposed_mask`` limits the windows whose accuracy is wanted (default: all
-    unconfirmed). ``classes``: every class code the project has (a class never confirmed gives
+    unconfirmed). ``batch``: the user action that confirmed each window (see
+    :func:`confirmed_stretches`). ``classes``: every class code the project has (a class never confirmed gives
     no figure). Returns the estimate and the calibrator (None when there is no figure).
     """
     from labeler.spreading import LabelSpreader
@@ -477,7 +491,7 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
     conf = np.asarray(proposed_confidence, dtype=np.float64)
     w_all = np.ones(y.size) if weights is None else np.asarray(weights, dtype=np.float64)
     plan = blocked_folds(y, recording, seq, n_folds=n_folds, gap=gap, random_state=random_state,
-                         classes=classes)
+                         classes=classes, batch=batch)
     n_conf = int((y >= 0).sum())
     never = {c for c, k in plan.short.items() if k == 0}
     unscored = np.zeros(y.size, dtype=bool)

@@ -775,6 +775,13 @@ class Store:
             + ("" if include_removed else f" WHERE {_LIVE_WINDOW}") + " ORDER BY window_id"
         ).fetchall()
 
+    def label_batches(self) -> list[tuple[int, str]]:
+        """(window_id, batch_id) of every labeled window: the batch of the event that set its
+        current label."""
+        return self.conn.execute(
+            "SELECT c.window_id, e.batch_id FROM current_labels c JOIN events e ON e.id = c.event_id "
+            "ORDER BY c.window_id").fetchall()
+
     def annotations(self, include_removed: bool = False) -> list[tuple[int, str, int]]:
         return self.conn.execute(
             "SELECT window_id, annotator, class_id FROM annotations"

@@ -178,3 +178,14 @@ def test_no_figure_while_a_class_has_one_stretch():
         y[np.flatnonzero(t == 3)[0]] = 3
     est, cal = proposal_accuracy(W, y, class_names={3: "three"})
     assert est.basis == "none" and cal is None and "three (1 stretch)" in est.note
+
+
+def test_small_actions_are_hidden_together_and_large_ones_keep_their_stretches():
+    y = np.array([0, 0, 0, -1, 1, 1, 1, 1, 0, 0])
+    rec = np.zeros(10, int)
+    seq = np.array([0, 1, 2, 3, 10, 11, 20, 21, 30, 31])
+    # windows 0 and 8 picked in one small action; 4..7 imported in one large one
+    batch = np.array([7, 5, 5, -1, 9, 9, 9, 9, 7, 5])
+    st = confirmed_stretches(y, rec, seq, batch=batch, max_batch=3)
+    assert st[0] == st[8] and st[1] == st[2] == st[9] and st[0] != st[1]
+    assert st[4] == st[5] and st[6] == st[7] and st[4] != st[6]  # the large action: by time

@@ -146,8 +146,17 @@ class Audits:
                                      draws["probability"].to_numpy(np.float64),
                                      draws["pool"].to_numpy(np.float64))
         conf = p["confidence"].astype(np.float64)
+        lb = self.ctx.store.label_batches()
+        batch = np.full(ids.size, -1, dtype=np.int64)
+        if lb:
+            wb = np.array([w for w, _ in lb], dtype=np.int64)
+            _, code = np.unique(np.array([b for _, b in lb], dtype=object).astype(str),
+                                return_inverse=True)
+            pos = np.searchsorted(ids, wb)
+            ok = (pos < ids.size) & (ids[np.minimum(pos, ids.size - 1)] == wb)
+            batch[pos[ok]] = code[ok]
         cv, cal = proposal_accuracy(
-            W, y, conf, recording=rid, seq=seq, weights=weights,
+            W, y, conf, recording=rid, seq=seq, weights=weights, batch=batch,
             spreader=LabelSpreader(alpha=run["params"]["alpha"]), init=p["F"].astype(np.float64),
             init_classes=p["classes"], classes=codes, class_names=names, proposed_label=p["label"],
             random_state=int(run["id"]))

@@ -27,9 +27,12 @@ from labeler.service.ledger import Ledger
 GRAPH_BLOB = "proposals/graph"
 LATEST_BLOB = "proposals/latest"
 GRAPH_PARAMS = ("n_neighbors", "temporal_weight", "pca_components")
-#: the review queue draws windows with probability ~ score**QUEUE_POWER (plus a floor), so each
-#: shown window's chance is known (benchmarks/estimate_orderings.py)
-QUEUE_POWER = 4.0
+#: the review queue draws windows with probability ~ score**QUEUE_POWER, plus QUEUE_FLOOR spread
+#: evenly, so each shown window's chance is known. On the simulator (1383 windows, 2 runs) the
+#: proposals' accuracy after 100/200 answers was 0.985/0.997 ranked, 0.985/0.996 at power 32 with
+#: floor 0.05 and 0.974/0.982 at power 4 with floor 0.1, so the draw stays close to the ranking.
+QUEUE_POWER = 32.0
+QUEUE_FLOOR = 0.05
 PROPOSAL_COLUMNS = ["window_id", "label", "class_id", "confidence", "margin", "support", "conflict",
                     "confirmed"]
 
@@ -231,7 +234,7 @@ class Proposals:
         rid, seq = self.catalog.window_sequence()
         seed = random_state if random_state is not None else int.from_bytes(os.urandom(4), "little")
         q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl,
-                   sample_power=QUEUE_POWER, random_state=seed)
+                   sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR, random_state=seed)
         drawn = q.pool > 1  # drawn by chance, not shown first by rule
         if drawn.any() and not getattr(self.ctx.store, "_readonly", False):
             run = None if p is None else p["meta"].get("run_id")
