@@ -155,10 +155,12 @@ class FoldPlan:
 
 def blocked_folds(y, recording=None, seq=None, *, n_folds: int = DEFAULT_FOLDS,
                   gap: int = DEFAULT_GAP, random_state=0, classes=None, batch=None) -> FoldPlan:
-    """Deal whole stretches (:func:`confirmed_stretches`) into at most ``n_folds`` folds.
+    """Deal whole groups (stretches or actions, :func:`confirmed_stretches`) into at most
+    ``n_folds`` folds.
 
-    Per class, its stretches in random order go each to the fold holding the fewest windows of
-    that class so far, so every class is spread over as many folds as it has stretches.
+    Larger groups first, each goes to the fold holding the smallest share of its classes so far,
+    so every class is spread over as many folds as it has groups. A class in fewer than two
+    groups is short: its windows are never hidden.
     ``classes`` lists every class code the proposals should know (the project's classes); one
     with no confirmation at all is short too, since its windows can only be proposed wrongly.
     """
@@ -171,33 +173,33 @@ def blocked_folds(y, recording=None, seq=None, *, n_folds: int = DEFAULT_FOLDS,
     if lab.size == 0:
         return FoldPlan(fold, 0, st, {int(c): 0 for c in ([] if classes is None else classes)}, 2)
     n_st = int(st.max()) + 1
-    st_class = np.zeros(n_st, dtype=np.int64)
-    st_class[st[lab]] = y[lab]
-    st_size = np.bincount(st[lab], minlength=n_st)
+    cls, c_idx = np.unique(y[lab], return_inverse=True)
+    # windows per (group, class): a group may hold several classes (one action, several labels)
+    load_gc = np.zeros((n_st, cls.size))
+    np.add.at(load_gc, (st[lab], c_idx), 1.0)
+    groups_per_class = (load_gc > 0).sum(axis=0)
+    short = {int(c): int(k) for c, k in zip(cls, groups_per_class) if k < 2}
     k = int(min(n_folds, n_st))
     rng = np.random.default_rng(random_state)
     st_fold = np.full(n_st, -1, dtype=np.int64)
-    short = {}
-    offset = 0
-    for c in np.unique(st_class):
-        members = np.flatnonzero(st_class == c)
-        if members.size < 2:
-            short[int(c)] = int(members.size)
-            st_fold[members] = -1
+    scored_cls = groups_per_class >= 2
+    load = np.zeros((k, cls.size))
+    total = load_gc.sum(axis=0)
+    # larger groups first, ties in random order; each to the fold holding the smallest share of
+    # its classes so far, so a class with two groups gets them in two folds
+    order = np.lexsort((rng.permutation(n_st), -load_gc.sum(axis=1)))
+    for g in order:
+        cols = (load_gc[g] > 0) & scored_cls
+        if not cols.any():
             continue
-        members = members[rng.permutation(members.size)]
-        load = np.zeros(k)
-        # rotate the tie order so small classes do not all pile into fold 0
-        tie = (np.arange(k) + offset) % k
-        for s in members:
-            f = int(tie[np.argmin(load[tie])])
-            st_fold[s] = f
-            load[f] += st_size[s]
-        offset += members.size
+        cost = (load[:, cols] / total[cols]).sum(axis=1) + 1e-9 * rng.permutation(k)
+        f = int(np.argmin(cost))
+        st_fold[g] = f
+        load[f] += load_gc[g]
     for c in ([] if classes is None else classes):
-        if int(c) not in set(st_class.tolist()):
+        if int(c) not in set(cls.tolist()):
             short[int(c)] = 0
-    fold[lab] = st_fold[st[lab]]
+    fold[lab] = np.where(scored_cls[c_idx], st_fold[st[lab]], -1)
     scored = lab[fold[lab] >= 0]
     used = np.unique(fold[scored])
     remap = np.full(k, -1)
