@@ -1,6 +1,5 @@
 import hashlib
 import json
-from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -11,6 +10,8 @@ from labeler import exporting as ex
 from labeler.cli import cli
 from labeler.errors import InputError
 from labeler.project import Project
+from labeler.quality import Estimate
+from labeler.results import AccuracyReport
 from conftest import sensor_frame
 
 START = "2026-05-01T08:00:00.000000Z"
@@ -301,9 +302,10 @@ def fixed_proposals(monkeypatch):
                              "confidence": np.linspace(0.3, 0.9, len(w)),
                              "margin": np.linspace(0.0, 0.6, len(w))})
 
-    def accuracy_estimate(self, cross_validate=True):
-        return SimpleNamespace(as_dict=lambda: {"value": 0.8, "low": 0.7, "high": 0.9,
-                                                "basis": "audit", "n": 40, "ece": float("nan")})
+    def accuracy_estimate(self):
+        return AccuracyReport(run_id=1, estimate=Estimate(0.8, 0.7, 0.9, "audit", 40, note="n"),
+                              calibration={"confidence": [0.3, 0.9], "probability": [0.5, 0.95],
+                                           "fitted_on": 40})
 
     monkeypatch.setattr(Proposals, "table", table)
     monkeypatch.setattr(Audits, "accuracy_estimate", accuracy_estimate)
@@ -322,10 +324,14 @@ def test_export_with_proposals(tmp_path, files, monkeypatch):
     assert t["status"].tolist()[:3] == ["confirmed", "confirmed", "proposed"]
     assert t["label"].tolist()[:3] == ["sitting", "sitting", "walking"]
     conf = np.linspace(0.3, 0.9, p.n_windows)
-    assert t["confidence"].iloc[2:].tolist() == pytest.approx(conf[2:].tolist())
+    # the confidence column is the calibrated one: 0.3 -> 0.5, 0.9 -> 0.95, linear between
+    calibrated = 0.5 + (conf - 0.3) / 0.6 * 0.45
+    assert t["confidence"].iloc[2:].tolist() == pytest.approx(calibrated[2:].tolist())
     m = read_manifest(out)
-    assert m["accuracy_estimate"] == {"value": 0.8, "low": 0.7, "high": 0.9, "basis": "audit",
-                                      "n": 40, "ece": None}
+    acc = m["accuracy_estimate"]
+    assert (acc["value"], acc["low"], acc["high"], acc["basis"], acc["n"], acc["run_id"]) == \
+        (0.8, 0.7, 0.9, "audit", 40, 1)
+    assert acc["confidence_column"].startswith("calibrated")
     assert m["accuracy_estimate_absent"] is None
     assert m["counts"]["by_status"] == {"confirmed": 2, "proposed": p.n_windows - 2}
     keep = p.export(tmp_path / "o2", min_confidence=0.6)

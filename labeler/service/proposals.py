@@ -12,7 +12,6 @@ from __future__ import annotations
 import hashlib
 import io
 import json
-import os
 import time
 
 import numpy as np
@@ -205,7 +204,9 @@ class Proposals:
         unexplored), score, proposed label and its confidence. Uses the latest proposals; before
         any confirmation it spreads its picks over the graph. ``exclude``: window ids left out
         (drawn into an open audit). Windows are drawn at random (``QUEUE_POWER``, see
-        :mod:`labeler.review`) and each draw's probability is stored for the accuracy estimate."""
+        :mod:`labeler.review`; the seed follows the run and the label history unless
+        ``random_state`` is given, so one state gives one list) and each draw's probability is
+        stored for the accuracy estimate."""
         from labeler.review import review_queue as _queue
         from labeler.outputs import WindowOutputs
 
@@ -232,7 +233,10 @@ class Proposals:
         dis = np.isin(ids, self.ledger.disagreements())
         excl = np.isin(ids, np.empty(0, np.int64) if exclude is None else exclude)
         rid, seq = self.catalog.window_sequence()
-        seed = random_state if random_state is not None else int.from_bytes(os.urandom(4), "little")
+        if random_state is None:  # one draw per state of the labels: asking twice shows one list
+            state = f"{None if p is None else p['meta'].get('run_id')}:{self.ctx.store.last_event_id()}"
+            random_state = int.from_bytes(hashlib.sha256(state.encode()).digest()[:4], "little")
+        seed = random_state
         q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl,
                    sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR, random_state=seed)
         drawn = q.pool > 1  # drawn by chance, not shown first by rule
