@@ -290,7 +290,8 @@ def held_out_predictions(graph, y, plan: FoldPlan, *, recording=None, seq=None,
 class ConfidenceCalibrator(BaseEstimator):
     """Monotone map from a proposal's confidence to the probability that it is right.
 
-    Isotonic regression (Zadrozny & Elkan 2002) of ``correct`` on ``confidence``; each pooled
+    Isotonic regression (Zadrozny & Elkan 2002; pool-adjacent-violators as in scipy) of
+    ``correct`` on ``confidence``; each pooled
     block's rate is shrunk towards the overall rate by ``prior_strength`` pseudo-windows, so a
     block of three right answers does not claim certainty (a beta prior, common practice, no
     source), and the result is made monotone again. Learned: ``knots_x_``, ``knots_y_`` (the
@@ -301,8 +302,6 @@ class ConfidenceCalibrator(BaseEstimator):
         self.prior_strength = prior_strength
 
     def fit(self, confidence, correct, sample_weight=None):
-        from sklearn.isotonic import IsotonicRegression
-
         x = np.asarray(confidence, dtype=np.float64)
         c = np.asarray(correct, dtype=np.float64)
         if x.ndim != 1 or x.shape != c.shape:
@@ -318,22 +317,10 @@ class ConfidenceCalibrator(BaseEstimator):
         if w.shape != x.shape or np.any(~np.isfinite(w)) or np.any(w < 0) or w.sum() <= 0:
             raise QualityInputError("sample_weight must be finite, >= 0, one per window, not all 0")
         w = w * (x.size / w.sum())  # weights count as windows
-        p0 = float(np.average(c, weights=w))
-        iso = IsotonicRegression(y_min=0.0, y_max=1.0, out_of_bounds="clip").fit(x, c, sample_weight=w)
-        # pooled blocks (windows with one fitted value): their weight, then their rate shrunk
-        # towards p0; sklearn keeps each block's first and last confidence as knots
-        fitted = np.round(iso.predict(x), 12)
-        vals, inv = np.unique(fitted, return_inverse=True)
-        bw = np.bincount(inv, weights=w)
-        kx = np.asarray(iso.X_thresholds_, dtype=np.float64)
-        ky = np.asarray(iso.y_thresholds_, dtype=np.float64)
-        kb = np.clip(np.searchsorted(vals, np.round(ky, 12)), 0, vals.size - 1)
-        kw = bw[kb]
-        shrunk = (ky * kw + self.prior_strength * p0) / (kw + self.prior_strength)
-        if self.prior_strength > 0 and kx.size > 1:
-            shrunk = IsotonicRegression(y_min=0.0, y_max=1.0).fit(kx, shrunk, sample_weight=kw).predict(kx)
-        self.knots_x_ = kx
-        self.knots_y_ = shrunk
+        ux, inv = np.unique(x, return_inverse=True)
+        uw = np.bincount(inv, weights=w)
+        self.knots_x_ = ux
+        self.knots_y_ = _isotonic_knots(uw, np.bincount(inv, weights=w * c), self.prior_strength)
         self.n_ = int(x.size)
         return self
 
@@ -352,6 +339,25 @@ class ConfidenceCalibrator(BaseEstimator):
 
 
 _CENTRES = (np.arange(_HIST_BINS) + 0.5) / _HIST_BINS
+
+
+def _isotonic_knots(uw, uk, prior_strength):
+    """Calibrated value per distinct confidence (ascending) from the weight ``uw`` and the
+    weighted count of right answers ``uk`` at each: pool-adjacent-violators
+    (scipy.optimize.isotonic_regression; a fit of values in [0, 1] stays in [0, 1]), then each
+    pooled block shrunk towards the overall rate by ``prior_strength`` windows and made monotone
+    again."""
+    from scipy.optimize import isotonic_regression
+
+    fit = isotonic_regression(uk / uw, weights=uw).x
+    if prior_strength > 0:
+        p0 = uk.sum() / uw.sum()
+        new = np.r_[True, np.abs(np.diff(fit)) > 1e-12]
+        block = np.cumsum(new) - 1
+        bw = np.bincount(block, weights=uw)[block]
+        fit = isotonic_regression((fit * bw + prior_strength * p0) / (bw + prior_strength),
+                                  weights=uw).x
+    return np.asarray(fit, dtype=np.float64)
 
 
 def _histogram(confidence) -> np.ndarray:
@@ -373,7 +379,7 @@ def calibrate(confidence, calibration: dict) -> np.ndarray:
 # --------------------------------------------------------------------------- the estimate
 
 def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, level: float = 0.95,
-                        n_boot: int = 300, prior_strength: float = 2.0, random_state=0,
+                        n_boot: int = 200, prior_strength: float = 2.0, random_state=0,
                         what: str = "") -> tuple[Estimate, ConfidenceCalibrator | None]:
     """Mean calibrated confidence over the proposed windows, with a bootstrap interval.
 
@@ -394,13 +400,21 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
     value = float(np.dot(hist, cal.predict(_CENTRES)))
     rng = np.random.default_rng(random_state)
     st, st_inv = np.unique(held.stretch, return_inverse=True)
-    members = np.split(np.argsort(st_inv, kind="stable"), np.cumsum(np.bincount(st_inv))[:-1])
+    # each stretch's weight and weighted right answers at each distinct confidence, so a
+    # bootstrap sample (stretches drawn with replacement) is a weighted sum of stretches
+    ux, inv = np.unique(held.confidence, return_inverse=True)
+    ws = w * (n / w.sum())
+    W_s = np.zeros((st.size, ux.size))
+    K_s = np.zeros((st.size, ux.size))
+    np.add.at(W_s, (st_inv, inv), ws)
+    np.add.at(K_s, (st_inv, inv), ws * held.correct)
     boots = []
     for _ in range(int(n_boot)):
-        pick = rng.integers(0, st.size, st.size)
-        idx = np.concatenate([members[i] for i in pick])
-        cb = ConfidenceCalibrator(prior_strength).fit(held.confidence[idx], held.correct[idx], w[idx])
-        boots.append(float(np.dot(hist, cb.predict(_CENTRES))))
+        times = np.bincount(rng.integers(0, st.size, st.size), minlength=st.size).astype(np.float64)
+        uw, uk = times @ W_s, times @ K_s
+        keep = uw > 0
+        knots = _isotonic_knots(uw[keep], uk[keep], prior_strength)
+        boots.append(float(np.dot(hist, np.interp(_CENTRES, ux[keep], knots))))
     a = (1 - level) / 2
     lo, hi = (np.quantile(boots, [a, 1 - a]) if boots else (0.0, 1.0))
     # effective number of independent answers: stretches, not windows (windows of a stretch
@@ -467,7 +481,7 @@ MAX_UNSCORED_SHARE = 0.05
 def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq=None,
                       weights=None, spreader=None, init=None, init_classes=None,
                       n_folds: int = DEFAULT_FOLDS, gap: int = DEFAULT_GAP, level: float = 0.95,
-                      n_boot: int = 300, random_state=0, class_names=None,
+                      n_boot: int = 200, random_state=0, class_names=None,
                       proposed_mask=None, classes=None, proposed_label=None, batch=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
     """Accuracy of the proposals for the unconfirmed windows of ``y`` (module docstring, 1-2).
 
