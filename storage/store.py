@@ -413,6 +413,11 @@ class Store:
                 self.db["meta"].upsert({"key": "schema_version", "value": str(SCHEMA_VERSION)},
                                        pk="key")
 
+    @property
+    def readonly(self) -> bool:
+        """Opened read-only: writes are refused."""
+        return bool(getattr(self, "_readonly", False))
+
     def close(self) -> None:
         self.conn.close()
 

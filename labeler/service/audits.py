@@ -112,7 +112,7 @@ class Audits:
         if got is not None and got[1].get("run_id") == run["id"]:
             return AccuracyReport.from_dict(json.loads(got[0]))
         report = self.compute(run)
-        if not getattr(self.ctx.store, "_readonly", False):  # read-only: computed, not kept
+        if not self.ctx.store.readonly:  # read-only: computed, not kept
             data = json.dumps(json_ready(report.as_dict())).encode()
             self.ctx.store.put_blob(ESTIMATE_BLOB, data, {"run_id": int(run["id"])},
                                     run_id=int(run["id"]))

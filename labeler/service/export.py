@@ -11,7 +11,7 @@ import numpy as np
 import labeler
 from labeler import exporting
 from labeler.answers import is_answer
-from labeler.errors import ProjectError
+from labeler.errors import InputError, ProjectError
 from labeler.results import ExportReport
 from labeler.service.audits import Audits
 from labeler.service.catalog import Catalog
@@ -97,7 +97,10 @@ class Exporter:
         run = self.ctx.store.latest_run("proposals")
         params = None if run is None else {"run_id": run["id"], "created_at": run["created_at"],
                                             "created_by": run["created_by"], **run["params"]}
-        report = self.audits.accuracy_estimate()
+        try:
+            report = self.audits.accuracy_estimate()
+        except InputError as exc:  # e.g. recordings added since the last proposals
+            return prop.reset_index(drop=True), params, None, str(exc)
         acc = report.as_dict()
         if report.calibration:
             from labeler.estimate import calibrate

@@ -240,7 +240,7 @@ class Proposals:
         q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl,
                    sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR, random_state=seed)
         drawn = q.pool > 1  # drawn by chance, not shown first by rule
-        if drawn.any() and not getattr(self.ctx.store, "_readonly", False):
+        if drawn.any() and not self.ctx.store.readonly:
             run = None if p is None else p["meta"].get("run_id")
             self.ctx.store.add_queue_draws(run, self.ctx.annotator,
                                            zip(ids[q.index[drawn]], q.probability[drawn],
