@@ -44,7 +44,7 @@ def _coverage(data, repeats, checkpoints):
 
 def test_interval_holds_the_truth_on_the_simulator():
     data = eo.prepare("simulator", quick=True)
-    hits, figures, ranked, ranked_runs, err = _coverage(data, repeats=3, checkpoints=(50, 100))
+    hits, figures, ranked, ranked_runs, err = _coverage(data, repeats=2, checkpoints=(50, 100))
     assert ranked >= 0.6 * ranked_runs, f"a figure in only {ranked} of {ranked_runs} checks"
     assert hits >= 0.9 * figures, f"interval held the truth in {hits} of {figures} checks"
     assert np.abs(err).mean() < 0.08
@@ -53,7 +53,7 @@ def test_interval_holds_the_truth_on_the_simulator():
 def test_interval_holds_the_truth_on_basicmotions():
     pytest.importorskip("aeon.datasets")
     data = eo.prepare("BasicMotions")
-    hits, figures, ranked, ranked_runs, err = _coverage(data, repeats=3, checkpoints=(50, 100))
+    hits, figures, ranked, ranked_runs, err = _coverage(data, repeats=2, checkpoints=(50, 100))
     assert ranked >= 0.6 * ranked_runs, f"a figure in only {ranked} of {ranked_runs} checks"
     assert hits >= 0.9 * figures, f"interval held the truth in {hits} of {figures} checks"
     assert np.abs(err).mean() < 0.08

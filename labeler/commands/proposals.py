@@ -90,7 +90,7 @@ def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
         click.echo(f"  about {e.expected_wrong:.0f} proposal(s) expected wrong, {e.likely_wrong} "
                    "more likely wrong than right (calibrated confidence; `labeler accuracy`)")
     elif e is not None:
-        click.echo(f"  no accuracy figure: {e.note}")
+        click.echo(f"  {e.note}")
     click.echo("  proposed labels are suggestions; a qualified person reviews them before use")
 
 
@@ -142,7 +142,7 @@ def accuracy_cmd(project, annotator):
     with _open(project, annotator) as p:
         e = p.accuracy_estimate()
     if e.basis == "none":
-        click.echo(f"no estimate for proposals run {e.run_id}: {e.note}")
+        click.echo(f"proposals run {e.run_id}: {e.note}")
         return
     click.echo(f"accuracy of proposed windows {e.value:.3f} ({e.level:.0%} interval "
                f"{e.low:.3f}-{e.high:.3f}), proposals run {e.run_id}")
