@@ -425,6 +425,9 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
     raw = float(np.dot(hist, ConfidenceCalibrator(0.0).fit(held.confidence, held.correct, w)
                        .predict(_CENTRES)))
     low, high = float(min(lo, wl, raw)), float(max(hi, wh, raw))
+    # reported to three decimals: rounded outwards, so a proportion of exactly 1 (or 0) that the
+    # interval reaches to within rounding is inside it as printed
+    low, high = np.floor(low * 1000) / 1000, np.ceil(high * 1000) / 1000
     ece_raw = expected_calibration_error(np.clip(held.confidence, 0, 1), held.correct, CALIBRATION_BINS)
     ece_cal = _cross_fitted_ece(held, w, prior_strength)
     est = Estimate(value, max(0.0, low), min(1.0, high), "cross-validation", n, level=level,
