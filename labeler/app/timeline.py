@@ -8,6 +8,9 @@ windows, so a gap in a recording stays visible.
 from __future__ import annotations
 
 import numpy as np
+from bokeh.models import (BoxSelectTool, ColumnDataSource, FixedTicker, PanTool, Range1d,
+                          ResetTool, TapTool, WheelZoomTool)
+from bokeh.plotting import figure
 
 from labeler.app.state import ALPHA_MIN, ALPHA_SPAN
 
@@ -61,3 +64,81 @@ def segments(rec, start, stop, confirmed, proposed, confidence) -> dict[str, np.
         out["alpha"].append(alpha)
     return {k: np.concatenate(v).astype(np.int32 if k == "lab" else np.float64)
             for k, v in out.items()}
+
+
+class TimelineView:
+    """One strip per recording: confirmed labels above, proposals below; a dragged box or a click
+    picks windows (the document hooks ``fig``'s SelectionGeometry and Tap events)."""
+
+    def __init__(self, state, class_mapper, width: int):
+        s = self.state = state
+        self.blinded = False
+        n_rec = max(1, len(s.rec_names))
+        xmax = max(s.rec_duration) if s.rec_duration else 1.0
+        self.src = ColumnDataSource(self.data(), name="timeline_source")
+        self.focus = ColumnDataSource({"left": [], "right": [], "bottom": [], "top": []})
+        p = figure(width=width, height=70 + 46 * n_rec, x_range=Range1d(0, xmax, bounds=(0, xmax)),
+                   y_range=Range1d(n_rec - 0.5, -0.5), tools=[], toolbar_location="above",
+                   name="timeline")
+        p.title.text = ("Timeline — upper band confirmed, lower band proposed; drag across a strip "
+                        "to pick a bout, click to pick a window")
+        p.quad(left="left", right="right", bottom="bottom", top="top", source=self.src,
+               fill_color={"field": "lab", "transform": class_mapper}, fill_alpha="alpha",
+               line_color=None)
+        p.quad(left="left", right="right", bottom="bottom", top="top", source=self.focus,
+               fill_color=None, line_color="#000000", line_width=2)
+        dummy = p.scatter(x=[], y=[], size=0)
+        box = BoxSelectTool(renderers=[dummy], dimensions="both", persistent=False)
+        wheel = WheelZoomTool(dimensions="width")
+        p.add_tools(box, PanTool(dimensions="width"), wheel, TapTool(renderers=[dummy]),
+                    ResetTool())
+        p.toolbar.active_drag = box
+        p.toolbar.active_scroll = wheel
+        p.toolbar.logo = None
+        p.yaxis.ticker = FixedTicker(ticks=list(range(n_rec)))
+        p.yaxis.major_label_overrides = {i: str(nm) for i, nm in enumerate(s.rec_names)}
+        p.xaxis.axis_label = "time (s)"
+        p.ygrid.visible = False
+        self.fig = p
+
+    def data(self) -> dict:
+        s = self.state
+        proposed = s.proposals.proposed
+        if self.blinded:                          # audit: the proposed band stays empty
+            proposed = np.full_like(proposed, -1)
+        return segments(s.rec_code, s.start, s.stop, s.confirmed, proposed,
+                        s.proposals.confidence)
+
+    def redraw(self) -> None:
+        self.src.data = self.data()
+
+    def set_blind(self, blind: bool) -> None:
+        if blind != self.blinded:
+            self.blinded = blind
+            self.redraw()
+
+    def set_focus(self, r: int | None) -> None:
+        s = self.state
+        if r is None:
+            self.focus.data = {"left": [], "right": [], "bottom": [], "top": []}
+            return
+        k = int(s.rec_code[r])
+        self.focus.data = {"left": [float(s.start[r])], "right": [float(s.stop[r])],
+                           "bottom": [k - 0.45], "top": [k + 0.45]}
+
+    def strips(self, y0: float, y1: float) -> list[int]:
+        """Recordings whose strip a box from y0 to y1 crosses."""
+        lo, hi = sorted((y0, y1))
+        return [k for k in range(len(self.state.rec_names)) if lo <= k + 0.45 and hi >= k - 0.45]
+
+    def window_at(self, x: float, y: float) -> int | None:
+        """Row of the window of the strip at y whose centre is nearest x, if any covers x."""
+        s = self.state
+        k = int(round(y))
+        if not 0 <= k < len(s.rec_names):
+            return None
+        rows = np.flatnonzero((s.rec_code == k) & (s.start <= x) & (s.stop >= x))
+        if rows.size == 0:
+            return None
+        mid = (s.start[rows] + s.stop[rows]) / 2
+        return int(rows[np.argmin(np.abs(mid - x))])
