@@ -25,18 +25,23 @@ from bokeh.models import (ColumnDataSource, CustomJS, Div, InlineStyleSheet, Lin
 
 from labeler.app import words
 from labeler.app.assets import static, template
-from labeler.app.map_view import MAP_W, NONE_COLOUR, MapView
-from labeler.app.side import SIDE_W, SidePanel
-from labeler.app.signal_view import SignalView
+from labeler.app.map_view import NONE_COLOUR, MapView
+from labeler.app.side import SidePanel
+from labeler.app.signal_view import Gallery, SignalView
 from labeler.app.state import Proposals, SessionState, read_map
 from labeler.app.timeline import TimelineView
 from labeler.app.worker import (EstimateUpdate, ProposalWorker, proposals_current,
                                 spread_and_estimate)
 from labeler.errors import LabelerError
+from labeler.project import PALETTE
 
-WIDE_W = MAP_W + SIDE_W + 20
 MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
 DRAW_BACKENDS = ("webgl", "canvas")
+#: answers of the look-next slip beyond a class (words.ANSWERS), once Project takes them
+ANSWER_KINDS: tuple[str, ...] = ()
+#: the map and signal column takes the room the side panel leaves; below about 1200 px of width
+#: the side panel moves under it (flex-wrap)
+_WRAP_CSS = ":host { flex-wrap: wrap; column-gap: 14px; row-gap: 6px; align-items: flex-start; }"
 
 
 def _requested_draw(doc) -> str | None:
@@ -131,26 +136,33 @@ class LabelerApp:
         recs_src = ColumnDataSource({"name": list(s.rec_names)})
         self.class_mapper = LinearColorMapper(**self._class_mapper_args(), low_color=NONE_COLOUR)
         self.map = MapView(s, draw=self.draw, class_mapper=self.class_mapper,
-                           names=self.classes_src, people=self.people_src, recordings=recs_src)
+                           per_shape=len(PALETTE), names=self.classes_src,
+                           people=self.people_src, recordings=recs_src)
         self.map.src.selected.on_change("indices", lambda _a, _o, new: self.pick_on_map(new))
-        self.signal = SignalView(s.channels, self.project.signal)
-        self.timeline = TimelineView(s, self.class_mapper, WIDE_W)
+        self.signal = SignalView(s.channels, self.project.signal, self.css)
+        self.signal.steady.on_change("active", lambda _a, _o, _n: self._draw_gallery())
+        self.gallery = Gallery(s.channels, self.project.signal, self.class_mapper)
+        self.gallery.fig.on_event(Tap, lambda e: self.look_at(self.gallery.row_at(e.x, e.y)))
+        self.timeline = TimelineView(s, self.class_mapper)
         self.timeline.fig.on_event(SelectionGeometry, self._on_timeline_box)
         self.timeline.fig.on_event(Tap, lambda e: self.pick_time(e.x, e.y))
-        self.side = SidePanel(self, self.css)
+        self.side = SidePanel(self, self.css, self.gallery.fig)
         self.key_bus = TextInput(value="", visible=False, name="key_bus")
         self.key_bus.on_change("value", lambda _a, _o, new: self.press(new.split("|", 1)[0]))
         self.doc.js_on_event("document_ready", CustomJS(args={"bus": self.key_bus},
                                                         code=static("keys.js")))
-        self.header = Div(text=self._header_html(), width=WIDE_W, name="header",
+        self.header = Div(text=self._header_html(), sizing_mode="stretch_width", name="header",
                           stylesheets=[self.css])
-        self.caution = Div(text=words.caution(), width=WIDE_W, name="caution",
+        self.caution = Div(text=words.caution(), sizing_mode="stretch_width", name="caution",
                            stylesheets=[self.css])
-        top = row(column(self.map.bar, self.map.fig, self.signal.box), self.side.box)
-        self.root = column(self.header, self.caution, top, self.timeline.fig, self.key_bus,
-                           name="labeler_root")
+        left = column(self.map.bar, self.map.fig, self.signal.box, sizing_mode="stretch_width",
+                      styles={"flex": "1 1 760px", "min-width": "0"}, name="map_and_signal")
+        main = row(left, self.side.box, sizing_mode="stretch_width", name="main",
+                   stylesheets=[_WRAP_CSS])
+        self.root = column(self.header, self.caution, main, self.timeline.fig, self.key_bus,
+                           sizing_mode="stretch_width", name="labeler_root")
         self.doc.add_root(self.root)
-        self.side.rebuild_class_pad(s)
+        self.side.rebuild_classes(s)
         self._refresh_selection()
         self._refresh_queue()
         self._refresh_counts()
@@ -187,13 +199,15 @@ class LabelerApp:
             self.say(f"{getattr(fn, '__name__', 'action')} failed: {type(exc).__name__}: {exc}")
         return None
 
-    def say(self, text: str, *, info: bool = False) -> None:
-        """One line under the class pad: a refusal (dark red) or, with ``info``, news (grey)."""
+    def say(self, text: str, *, info: bool = False, undo: bool = False) -> None:
+        """The feedback line: a refusal (dark red) or, with ``info``, news; ``undo`` adds the
+        way back."""
         self.message = text
-        self.side.say(text, info=info)
+        self.side.say(text, info=info, undo=undo)
 
     # ================================================================== what is picked
     def _set_target(self, rows, source: str, *, select_on_map: bool) -> None:
+        """What the keys act on now: a pick (map, timeline) or the queue's item (queue, audit)."""
         self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
         self.target_source = source
         self._guard = True
@@ -202,7 +216,12 @@ class LabelerApp:
         finally:
             self._guard = False
         self.show_signal(int(self.target_rows[0]) if self.target_rows.size else None)
+        self._target_changed()
+
+    def _target_changed(self) -> None:
         self._refresh_selection()
+        self._draw_gallery()
+        self._refresh_queue()
 
     @action
     def pick_on_map(self, rows) -> None:
@@ -212,7 +231,11 @@ class LabelerApp:
         self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
         self.target_source = "map"
         self.show_signal(self._central_row(self.target_rows))
-        self._refresh_selection()
+        self._target_changed()
+
+    def picking(self) -> bool:
+        """True while a map or timeline pick holds the keys (the queue, if any, waits)."""
+        return self.target_source in ("map", "timeline") and self.target_rows.size > 0
 
     def _central_row(self, rows: np.ndarray) -> int | None:
         if rows.size == 0:
@@ -253,6 +276,36 @@ class LabelerApp:
     def clear(self) -> None:
         self._set_target([], "map", select_on_map=True)
 
+    @action
+    def escape(self) -> None:
+        """Esc: let go of a pick (back to the queue's item, if one waits), else leave the queue."""
+        item = self.state.current_item()
+        if self.picking() and item is not None:
+            self._show_item(item)
+        elif self.picking() or item is None:
+            self.clear()
+        else:
+            self.leave_queue()
+
+    @action
+    def leave_queue(self) -> None:
+        mode = self.state.queue_mode
+        self.state.leave_queue()
+        self._set_blind(False)
+        self.side.queue_mode.active = None
+        self._set_target([], "map", select_on_map=True)
+        self.say(f"left the {mode}; R brings the review back", info=True)
+
+    @action
+    def look_at(self, r: int | None) -> None:
+        """Show one window of the pick in the signal view (a gallery click); the pick stays."""
+        if r is not None:
+            self.show_signal(int(r))
+
+    def _draw_gallery(self) -> None:
+        rows = self.target_rows if self.picking() else self.target_rows[:0]
+        self.gallery.show(self.state, rows, self.signal.fixed)
+
     def show_signal(self, r: int | None) -> None:
         self.focus_row = r
         self.map.set_focus(r)
@@ -283,14 +336,17 @@ class LabelerApp:
         """Confirm what is picked (map, timeline or queue item) as class ``code``: one batch."""
         queue_target = (self.target_source in ("queue", "audit")
                         and self.state.current_item() is not None)
+        n = int(self.target_rows.size)
         changed = self.state.confirm(self.target_rows, code, self.target_source)
-        self.say("")
+        self.say(f"{n} window{'s' if n != 1 else ''} → {self.state.class_names[code]}", info=True,
+                 undo=True)
         self._labels_changed(changed, next_item=queue_target)
 
     @action
     def undo(self) -> None:
         changed = self.state.undo()
-        self.say("undone", info=True)
+        self.say(f"undone: {changed.size} window{'s' if changed.size != 1 else ''} back as they "
+                 "were", info=True)
         self._labels_changed(changed)
 
     def _labels_changed(self, changed: np.ndarray, *, next_item: bool = False) -> None:
@@ -301,6 +357,7 @@ class LabelerApp:
             self._show_item(self.state.advance())
         else:
             self._refresh_queue()
+            self._refresh_selection()
             self._retitle_signal()
         self._refresh_counts()
         self.request_proposals()
@@ -308,11 +365,27 @@ class LabelerApp:
     def confirm_key(self, number: int) -> None:
         codes = self.state.active_codes()
         if not codes:
-            raise LabelerError("no classes yet: type a class name in the box under the class "
-                               "buttons and press Add class")
+            raise LabelerError("no classes yet: type a class name in the box under the classes "
+                               "and press Enter")
         if not 1 <= number <= min(9, len(codes)):
             raise LabelerError(f"no class number {number}; there are {len(codes)} classes")
         self.confirm_target(codes[number - 1])
+
+    @action
+    def enter(self) -> None:
+        """Enter acts on what is shown: a pick takes its proposal when it holds one only; else
+        the queue's item takes its proposal."""
+        if not self.picking():
+            self.accept()
+            return
+        props = self.state.pick_proposals(self.target_rows)
+        if self._blind():
+            raise LabelerError("an audit is running: proposals are hidden; call the pick a class "
+                               "with a class key")
+        if len(props) != 1 or props[0][0] < 0:
+            raise LabelerError(f"the pick holds {len(props)} different proposals; call it a class "
+                               "with a class key, or Esc to let go")
+        self.confirm_target(props[0][0])
 
     @action
     def accept(self) -> None:
@@ -337,27 +410,76 @@ class LabelerApp:
 
     @action
     def add_class(self, name: str) -> None:
-        self.state.add_class(name)
-        self.say("")
+        code = self.state.add_class(name)
         self.side.new_class.value = ""
+        self._classes_changed()
+        key = self.state.active_codes().index(code) + 1
+        self.say(f"class {self.state.class_names[code]} added"
+                 + (f"; key {key} calls it" if key <= 9 else ""), info=True)
+
+    @action
+    def manage(self, op: str) -> None:
+        """The class drawer: ``rename``, ``recolour``, ``retire`` or ``merge`` its class."""
+        side, s = self.side, self.state
+        if not side.manage_class.value:
+            raise LabelerError("no class to change yet; add one first")
+        code = int(side.manage_class.value)
+        name = s.class_names[code]
+        if op == "recolour":
+            if side.recolour.color.lower() == s.class_colours[code].lower():
+                return
+            s.recolour_class(code, side.recolour.color)
+            said = f"{name} recoloured"
+        elif op == "rename":
+            new = (side.rename_box.value_input or side.rename_box.value).strip()
+            s.rename_class(code, new)
+            side.rename_box.value = ""
+            said = f"{name} renamed {new}"
+        elif op == "retire":
+            s.retire_class(code)
+            said = f"{name} retired: it keeps its labels and takes no new ones"
+        else:
+            if not side.merge_into.value:
+                raise LabelerError("merge needs a second class to merge into")
+            into = int(side.merge_into.value)
+            changed = s.merge_class(code, into)
+            self._send_rows(changed)
+            said = f"{name} merged into {s.class_names[into]}: {changed.size} windows moved"
+            self.request_proposals()
+        self._classes_changed()
+        self.say(said, info=True)
+
+    def _classes_changed(self) -> None:
         self.classes_src.data = self._classes_data()
         args = self._class_mapper_args()
         self.class_mapper.update(palette=args["palette"], high=args["high"])
-        self.side.rebuild_class_pad(self.state)
+        self.side.rebuild_classes(self.state)
         self._refresh_counts()
+        self._refresh_selection()
+        self._refresh_queue()
+        self._retitle_signal()
 
     # ================================================================== queue and audit
     @action
     def skip(self) -> None:
-        if self.state.current_item() is not None:
-            self._show_item(self.state.advance())
+        item = self.state.current_item()
+        if item is None:
+            return
+        if self.picking():
+            raise LabelerError("your pick holds the keys; Esc goes back to the review item, then S "
+                               "passes it")
+        self.say(f"passed window {item.window_id}", info=True)
+        self._show_item(self.state.advance())
 
     def _show_item(self, item) -> None:
         audit = self.state.queue_mode == "audit"
         self._set_blind(audit and item is not None)
         self._set_target([] if item is None else [item.row], "audit" if audit else "queue",
                          select_on_map=False)
-        self._refresh_queue()
+        if item is not None and self.served:
+            nxt = self.state.peek()
+            if nxt is not None:        # the next item's signal, read while the annotator looks
+                self.doc.add_next_tick_callback(lambda: self.act(self._prefetch, nxt.row))
 
     @action
     def start_queue(self, mode: str) -> None:
@@ -374,9 +496,9 @@ class LabelerApp:
         """Handle one key from the page (see words.KEYS_HELP)."""
         if len(key) == 1 and key.isdigit() and key != "0":
             self.confirm_key(int(key))
-        elif key == "Enter":
-            self.accept()
-        elif key in ("s", "S", "ArrowRight"):
+        elif key in ("Enter", "accept"):
+            self.enter()
+        elif key in ("s", "S", "ArrowRight", "skip"):
             self.skip()
         elif key in ("u", "U", "undo"):
             self.undo()
@@ -385,8 +507,19 @@ class LabelerApp:
                 self.side.queue_mode.active = 0     # loads the queue through its callback
             else:
                 self.start_queue("review")
-        elif key == "Escape":
-            self.clear()
+        elif key in ("Escape", "leave"):
+            self.escape()
+        elif key.startswith("class:"):
+            self.confirm_target(int(key.split(":", 1)[1]))
+        elif key.startswith("answer:") or key in ("b", "B", "n", "N"):
+            kind = key.split(":", 1)[1] if ":" in key else ("between" if key in "bB" else "unsure")
+            self.answer(kind)
+
+    @action
+    def answer(self, kind: str) -> None:
+        """An answer of the slip beyond a class ("between", "unsure")."""
+        if kind not in ANSWER_KINDS:
+            raise LabelerError(f"this version takes no '{kind}' answer yet; S passes the window")
 
     # ================================================================== refreshing the panels
     def _send_rows(self, rows: np.ndarray, what: str = "labels") -> None:
@@ -400,10 +533,15 @@ class LabelerApp:
             self.people_src.data = {"name": list(self.state.annotators)}
 
     def _refresh_selection(self) -> None:
-        self.side.selection.text = words.selection(int(self.target_rows.size), self.target_source)
+        rows, src = self.target_rows, self.target_source
+        props = self.state.pick_proposals(rows) if self.picking() else None
+        self.side.selection.text = words.selection(self.state, int(rows.size), src, props,
+                                                   hidden=self._blind())
 
     def _refresh_counts(self) -> None:
+        """The counts line and the shelf's per-class counts."""
         self.side.counts.text = words.counts(self.state)
+        self.side.class_pad.text = words.class_shelf(self.state)
 
     def _refresh_estimate(self) -> None:
         s = self.state
@@ -411,7 +549,12 @@ class LabelerApp:
                                    else words.no_estimate(s.estimate_absent))
 
     def _refresh_queue(self) -> None:
-        self.side.show_queue(self.state, self.state.current_item())
+        self.side.show_queue(self.state, self.state.current_item(), paused=self.picking(),
+                             answers=ANSWER_KINDS)
+
+    def _prefetch(self, r: int) -> None:
+        s = self.state
+        self.signal.prefetch(s.rec_names[int(s.rec_code[r])], float(s.start[r]), float(s.stop[r]))
 
     @action
     def check_map(self) -> bool:

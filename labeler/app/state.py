@@ -17,8 +17,10 @@ from labeler.errors import InputError, LabelerError
 from labeler.reduction import principal_components
 from labeler.results import AccuracyReport, LabelBatch
 
-#: Fill alpha of a proposed point is ALPHA_MIN + ALPHA_SPAN * confidence; confirmed points are opaque.
-ALPHA_MIN, ALPHA_SPAN, ALPHA_NONE = 0.12, 0.68, 0.35
+#: Point sizes on the map (screen pixels): a proposed window's grows with its confidence, from
+#: SIZE_MIN at 0 to SIZE_MIN + SIZE_SPAN at 1; a confirmed window is drawn at SIZE_CONFIRMED with an
+#: outline; a window with neither at SIZE_NONE. Colour stays the class's own, opaque.
+SIZE_MIN, SIZE_SPAN, SIZE_CONFIRMED, SIZE_NONE = 2.5, 5.5, 8.0, 3.0
 
 
 @dataclass
@@ -169,6 +171,24 @@ class SessionState:
         self.reload_classes()
         return self._code_of_id[int(cid)]
 
+    def rename_class(self, code: int, new: str) -> None:
+        self.project.rename_class(self.class_names[code], str(new).strip())
+        self.reload_classes()
+
+    def recolour_class(self, code: int, colour: str) -> None:
+        self.project.recolour_class(self.class_names[code], colour)
+        self.reload_classes()
+
+    def retire_class(self, code: int) -> None:
+        self.project.retire_class(self.class_names[code])
+        self.reload_classes()
+
+    def merge_class(self, code: int, into: int) -> np.ndarray:
+        """Move every label of class ``code`` to ``into`` and retire ``code``; the changed rows."""
+        self.project.merge_classes(self.class_names[code], self.class_names[into])
+        self.reload_classes()
+        return self.sync_labels()
+
     # -------------------------------------------------------------- labels
     def sync_labels(self) -> np.ndarray:
         """Read the current labels from the project file; return the rows that changed."""
@@ -202,12 +222,20 @@ class SessionState:
         p = self.proposals.proposed if rows is None else self.proposals.proposed[rows]
         return np.where(c >= 0, c, p).astype(np.int32)
 
-    def display_alpha(self, rows=None) -> np.ndarray:
+    def display_size(self, rows=None) -> np.ndarray:
+        """Point size per window: confidence by size for proposals, confirmed ones full size."""
         c = self.confirmed if rows is None else self.confirmed[rows]
         p = self.proposals.proposed if rows is None else self.proposals.proposed[rows]
         q = self.proposals.confidence if rows is None else self.proposals.confidence[rows]
-        a = np.where(p >= 0, ALPHA_MIN + ALPHA_SPAN * q, ALPHA_NONE)
-        return np.where(c >= 0, 1.0, a).astype(np.float32)
+        size = np.where(p >= 0, SIZE_MIN + SIZE_SPAN * q, SIZE_NONE)
+        return np.where(c >= 0, SIZE_CONFIRMED, size).astype(np.float32)
+
+    def pick_proposals(self, rows) -> list[tuple[int, int]]:
+        """(class code or -1 for none, windows) of the proposals among ``rows``, most first."""
+        rows = np.asarray(rows, dtype=np.int64)
+        codes, n = np.unique(self.proposals.proposed[rows], return_counts=True)
+        order = np.argsort(-n, kind="stable")
+        return [(int(codes[i]), int(n[i])) for i in order]
 
     def confirm(self, rows, code: int, source: str) -> np.ndarray:
         rows = np.unique(np.asarray(rows, dtype=np.int64))
@@ -247,31 +275,26 @@ class SessionState:
         (Project.draw_audit, a uniformly random sample)."""
         self.queue_mode = mode
         self.queue_pos = 0
-        fn = getattr(self.project, "review_queue" if mode == "review" else "draw_audit", None)
-        if not callable(fn):
-            self.queue = []
-            raise LabelerError(f"this project has no {mode} queue yet (compute proposals first)")
-        got = fn(n)
-        self.queue = self._queue_items(got)
+        self.queue = []
+        got = self.project.review_queue(n) if mode == "review" else self.project.draw_audit(n)
+        ids = got["window_id"].to_numpy(np.int64)
+        reasons = got["reason"].astype(str).tolist() if "reason" in got else [""] * len(ids)
+        pos = self.index.get_indexer(ids)
+        self.queue = [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
         return self.queue
 
-    def _queue_items(self, got) -> list[QueueItem]:
-        if got is None:
-            return []
-        if isinstance(got, pd.DataFrame):
-            ids = got["window_id"].to_numpy()
-            reasons = (got["reason"].astype(str).tolist() if "reason" in got
-                       else [""] * len(ids))
-        else:
-            ids = np.asarray(list(got), dtype=np.int64)
-            reasons = [""] * len(ids)
-        pos = self.index.get_indexer(ids)
-        return [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
+    def leave_queue(self) -> None:
+        self.queue, self.queue_pos = [], 0
 
     def current_item(self) -> QueueItem | None:
         if 0 <= self.queue_pos < len(self.queue):
             return self.queue[self.queue_pos]
         return None
+
+    def peek(self) -> QueueItem | None:
+        """The item after the current one, if any."""
+        nxt = self.queue_pos + 1
+        return self.queue[nxt] if 0 <= nxt < len(self.queue) else None
 
     def advance(self) -> QueueItem | None:
         self.queue_pos += 1

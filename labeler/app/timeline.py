@@ -1,8 +1,8 @@
 """Timeline strips: runs of equal labels per recording, as quads (left, right, bottom, top).
 
 Recording k is drawn around y = k: confirmed labels in the upper band, proposals of unconfirmed
-windows in the lower band with the run's mean confidence as alpha. Runs break at gaps between
-windows, so a gap in a recording stays visible.
+windows in the lower band, as tall as the run's mean confidence (colour stays the class's own).
+Runs break at gaps between windows, so a gap in a recording stays visible.
 """
 
 from __future__ import annotations
@@ -12,9 +12,9 @@ from bokeh.models import (BoxSelectTool, ColumnDataSource, FixedTicker, PanTool,
                           ResetTool, TapTool, WheelZoomTool)
 from bokeh.plotting import figure
 
-from labeler.app.state import ALPHA_MIN, ALPHA_SPAN
 
 BAND = 0.42
+LOW_MIN = 0.2                # the lower band of a run of confidence 0 is this part of BAND
 
 
 def _runs(rec: np.ndarray, start: np.ndarray, stop: np.ndarray, value: np.ndarray):
@@ -40,7 +40,7 @@ def segments(rec, start, stop, confirmed, proposed, confidence) -> dict[str, np.
     right = stop.copy()
     same = (rec[1:] == rec[:-1]) & (start[1:] <= stop[:-1])
     right[:-1][same] = start[1:][same]
-    out = {k: [] for k in ("left", "right", "bottom", "top", "lab", "alpha")}
+    out = {k: [] for k in ("left", "right", "bottom", "top", "lab")}
     upper = confirmed
     lower = np.where(confirmed >= 0, -2, proposed)     # -2: confirmed, nothing drawn below
     for value, band in ((upper, "upper"), (lower, "lower")):
@@ -50,18 +50,16 @@ def segments(rec, start, stop, confirmed, proposed, confidence) -> dict[str, np.
         k = rec[first].astype(np.float64)
         if band == "upper":
             bottom, top = k - BAND, k
-            alpha = np.ones(first.size)
         else:
-            bottom, top = k + 0.02, k + BAND
             csum = np.r_[0.0, np.cumsum(confidence)]
-            mean = (csum[last + 1] - csum[first]) / (last - first + 1)
-            alpha = ALPHA_MIN + ALPHA_SPAN * mean
+            mean = np.clip((csum[last + 1] - csum[first]) / (last - first + 1), 0.0, 1.0)
+            bottom = k + 0.02
+            top = bottom + (BAND - 0.02) * (LOW_MIN + (1 - LOW_MIN) * mean)
         out["left"].append(start[first])
         out["right"].append(right[last])
         out["bottom"].append(bottom)
         out["top"].append(top)
         out["lab"].append(value[first].astype(np.int32))
-        out["alpha"].append(alpha)
     return {k: np.concatenate(v).astype(np.int32 if k == "lab" else np.float64)
             for k, v in out.items()}
 
@@ -70,23 +68,22 @@ class TimelineView:
     """One strip per recording: confirmed labels above, proposals below; a dragged box or a click
     picks windows (the document hooks ``fig``'s SelectionGeometry and Tap events)."""
 
-    def __init__(self, state, class_mapper, width: int):
+    def __init__(self, state, class_mapper):
         s = self.state = state
         self.blinded = False
         n_rec = max(1, len(s.rec_names))
         xmax = max(s.rec_duration) if s.rec_duration else 1.0
         self.src = ColumnDataSource(self.data(), name="timeline_source")
         self.focus = ColumnDataSource({"left": [], "right": [], "bottom": [], "top": []})
-        p = figure(width=width, height=70 + 46 * n_rec, x_range=Range1d(0, xmax, bounds=(0, xmax)),
-                   y_range=Range1d(n_rec - 0.5, -0.5), tools=[], toolbar_location="above",
-                   name="timeline")
+        p = figure(height=70 + 46 * n_rec, sizing_mode="stretch_width", min_width=360,
+                   x_range=Range1d(0, xmax, bounds=(0, xmax)), y_range=Range1d(n_rec - 0.5, -0.5),
+                   tools=[], toolbar_location="above", name="timeline")
         p.title.text = ("Timeline — upper band confirmed, lower band proposed; drag across a strip "
                         "to pick a bout, click to pick a window")
         p.quad(left="left", right="right", bottom="bottom", top="top", source=self.src,
-               fill_color={"field": "lab", "transform": class_mapper}, fill_alpha="alpha",
-               line_color=None)
+               fill_color={"field": "lab", "transform": class_mapper}, line_color=None)
         p.quad(left="left", right="right", bottom="bottom", top="top", source=self.focus,
-               fill_color=None, line_color="#000000", line_width=2)
+               fill_color=None, line_color="#000000", line_width=2, level="overlay")
         dummy = p.scatter(x=[], y=[], size=0)
         box = BoxSelectTool(renderers=[dummy], dimensions="both", persistent=False)
         wheel = WheelZoomTool(dimensions="width")
