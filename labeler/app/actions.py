@@ -56,7 +56,7 @@ class Actions:
             self._refresh_queue()
             self._refresh_selection()
             self._retitle_signal()
-        self._refresh_counts()
+        self.later(self._refresh_counts)
         self.request_proposals()
 
     def confirm_key(self, number: int) -> None:

@@ -205,13 +205,29 @@ class LabelerApp(Actions):
             self.map.src.selected.indices = self.target_rows.tolist() if select_on_map else []
         finally:
             self._guard = False
-        self.show_signal(int(self.target_rows[0]) if self.target_rows.size else None)
-        self._target_changed()
+        self._target_changed(int(self.target_rows[0]) if self.target_rows.size else None)
 
-    def _target_changed(self) -> None:
+    def _target_changed(self, focus: int | None) -> None:
+        """Say what is picked now; the signal and the gallery (disk reads) follow on the next
+        tick, so the page hears of the pick first."""
+        self.focus_row = focus
+        self.map.set_focus(focus)
+        self.timeline.set_focus(focus)
         self._refresh_selection()
-        self._draw_gallery()
         self._refresh_queue()
+        self.later(self._show_target)
+
+    def _show_target(self) -> None:
+        self.show_signal(self.focus_row)
+        self._draw_gallery()
+
+    def later(self, fn: Callable[[], None]) -> None:
+        """Run ``fn`` on the session's next tick (after what has changed so far reaches the page);
+        at once without a server (tests)."""
+        if self.served:
+            self.doc.add_next_tick_callback(lambda: self.act(fn))
+        else:
+            fn()
 
     @action
     def pick_on_map(self, rows) -> None:
@@ -220,8 +236,7 @@ class LabelerApp(Actions):
             return
         self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
         self.target_source = "map"
-        self.show_signal(self._central_row(self.target_rows))
-        self._target_changed()
+        self._target_changed(self._central_row(self.target_rows))
 
     def picking(self) -> bool:
         """True while a map or timeline pick holds the keys (the queue, if any, waits)."""
@@ -327,7 +342,7 @@ class LabelerApp(Actions):
         if rows.size == 0:
             return
         self.map.send(rows, what)
-        self.timeline.redraw()
+        self.later(self.timeline.redraw)
         if len(self.people_src.data["name"]) != len(self.state.annotators):
             self.people_src.data = {"name": list(self.state.annotators)}
 
