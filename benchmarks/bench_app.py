@@ -334,7 +334,7 @@ def run(n: int, folder: Path, webgl: bool) -> None:
     print(f"{n} windows: project built in {t_make:.0f} s, map+proposals prepared in {t_prep:.1f} s")
     try:
         bare = measure_bare(path, n, 7)
-        print(f"  [a bare Bokeh page with the same points, canvas]")
+        print("  [a bare Bokeh page with the same points, canvas]")
         print(f"    page ready: {bare['ready'] / 1000:.2f} s; a key -> picked points recoloured: "
               + ", ".join(f"{c / 1000:.2f}" for c in bare["confirm"]) + " s", flush=True)
         # as a user opens it (the page picks its drawing), then WebGL forced when asked
