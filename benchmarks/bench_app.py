@@ -6,7 +6,7 @@ bare Bokeh page serving the same points (one scatter, a key that recolours the p
 Targets (100k windows): page ready (all points drawn) <= 3 s and within 1.2x the bare page; pick
 registered <= 0.5 s; confirm -> map recoloured <= 0.5 s and within 1.1x the bare page; queue step
 <= 0.3 s; refresh never blocks the page. Prints the figures and the path of a screenshot per size.
-Run: python benchmarks/bench_app.py [--sizes 10000 100000] [--webgl]
+Run: python benchmarks/bench_app.py [--sizes 10000 100000] [--webgl] [--folder DIR]
 """
 
 from __future__ import annotations
@@ -323,10 +323,15 @@ def run(n: int, folder: Path, webgl: bool) -> None:
     from labeler.app.prepare import prepare
     from labeler.app.server import AppServer
 
-    print(f"{n} windows: building the project", flush=True)
-    t0 = time.perf_counter()
-    path = make_project(folder, n)
-    t_make = time.perf_counter() - t0
+    path = folder / f"bench_{n}.labeler"
+    t_make = t_prep = 0.0
+    if path.exists():
+        print(f"{n} windows: reusing {path}", flush=True)
+    else:
+        print(f"{n} windows: building the project", flush=True)
+        t0 = time.perf_counter()
+        path = make_project(folder, n)
+        t_make = time.perf_counter() - t0
     t0 = time.perf_counter()
     prepare(path, "bench", tsne=False, echo=lambda m: print("  " + m))
     t_prep = time.perf_counter() - t0
@@ -368,7 +373,13 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
     ap.add_argument("--webgl", action="store_true", help="also measure with WebGL forced")
+    ap.add_argument("--folder", help="keep the built projects in this folder and reuse them")
     args = ap.parse_args()
+    if args.folder:                  # keep the built projects there, reuse them next time
+        Path(args.folder).mkdir(parents=True, exist_ok=True)
+        for n in args.sizes:
+            run(n, Path(args.folder), args.webgl)
+        return
     with tempfile.TemporaryDirectory() as tmp:
         for n in args.sizes:
             run(n, Path(tmp), args.webgl)

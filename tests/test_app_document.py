@@ -514,7 +514,7 @@ def test_a_pick_shows_a_gallery_of_its_windows(app):
     app.signal.steady.active = True
     assert (app.signal.figs[0].y_range.start, app.signal.figs[0].y_range.end) == (-2.0, 2.0)
     app.select_map([3])                                  # one window: no gallery
-    assert app.gallery.rows == []
+    assert app.gallery.rows == [] and app.gallery.lines.data["xs"] == []
 
 
 def test_class_drawer_renames_recolours_merges_and_retires(app):

@@ -57,7 +57,7 @@ class Actions:
             self._refresh_selection()
             self._retitle_signal()
         self.later(self._refresh_counts)
-        self.request_proposals()
+        self.later(self.request_proposals)        # the worker starts after the patch has gone
 
     def confirm_key(self, number: int) -> None:
         codes = self.state.active_codes()

@@ -211,6 +211,9 @@ class Gallery:
                 xs.append(u)
                 ys.append(q + 0.96 - 0.66 * (np.clip(v, lo, hi) - lo) / max(hi - lo, 1e-9))
                 colours.append(AXIS_COLOURS[j % 3])
+        if not self.rows:               # keep the panel's place; say what comes here
+            cells = {"left": [0.0], "right": [0.0], "top": [0.0], "bottom": [0.0], "lab": [-1],
+                     "tx": [0.05], "ty": [1.3], "caption": [words.GALLERY_EMPTY]}
         self.cells.data = cells
         self.lines.data = {"xs": xs, "ys": ys, "colour": colours}
 

@@ -244,9 +244,20 @@ class SessionState:
                              "queue item, then press a class")
         if not (0 <= code < len(self.class_names)) or not self.class_active[code]:
             raise InputError(f"no active class number {code + 1}; add the class first")
-        self.last_batch = self.project.confirm(self.ids[rows].tolist(), self.class_names[code],
-                                               source=source)
-        return self.sync_labels()
+        batch = self.project.confirm(self.ids[rows].tolist(), self.class_names[code],
+                                     source=source)
+        self.last_batch = batch
+        # the batch is now the latest event of its windows, so their current label is ours: no
+        # need to read every label back (a file of 100k labels takes a while)
+        me = self.project.annotator
+        if me not in self.annotators:
+            self.annotators.append(me)
+        hit = self.index.get_indexer(batch.window_ids)
+        hit = hit[hit >= 0]
+        who = self.annotators.index(me)
+        changed = hit[(self.confirmed[hit] != code) | (self.who[hit] != who)]
+        self.confirmed[hit], self.who[hit] = code, who
+        return changed
 
     def undo(self) -> np.ndarray:
         self.project.undo()

@@ -37,6 +37,8 @@ COLOUR_HINTS = {
     "recording": "one colour per recording (a scale of its own)",
 }
 
+GALLERY_EMPTY = "pick several windows: up to nine of them are drawn here"
+
 PICKED_FROM = {"map": "on the map", "timeline": "on the timeline", "queue": "from the review queue",
                "audit": "from the audit sample"}
 
