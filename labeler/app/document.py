@@ -36,6 +36,7 @@ from labeler.errors import LabelerError
 from labeler.project import PALETTE
 
 MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
+OTHERS_CHECK_MS = 2000           # how often an open page looks for changes made elsewhere
 DRAW_BACKENDS = ("webgl", "canvas")
 #: the map and signal column takes the room the side panel leaves; below about 1200 px of width
 #: the side panel moves under it (flex-wrap)
@@ -102,8 +103,10 @@ class LabelerApp(Actions):
         self._build()
         doc.title = f"labeler · {Path(str(project.path)).name}"
         self._map_run = project.map_run_id()
+        self._mark = project.change_mark()
         if self.served:
             doc.add_periodic_callback(self.check_map, MAP_CHECK_MS)
+            doc.add_periodic_callback(self.check_others, OTHERS_CHECK_MS)
         if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
             # page has loaded, so a page that reloads itself (templates/page.html) costs no run
@@ -369,6 +372,39 @@ class LabelerApp(Actions):
     def _prefetch(self, r: int) -> None:
         s = self.state
         self.signal.prefetch(s.rec_names[int(s.rec_code[r])], float(s.start[r]), float(s.stop[r]))
+
+    @action
+    def check_others(self) -> bool:
+        """Show what changed in the project file since the last look, in another process (a
+        confirmation from the command line, an import, another annotator's page) or this one; True
+        when the page changed. Cheap when nothing did: one query of the change mark."""
+        if self.closed:
+            return False
+        mark = self.project.change_mark()
+        if mark == self._mark:
+            return False
+        old, self._mark = self._mark, mark
+        s = self.state
+        news = []
+        if mark[1] != old[1]:
+            before = (s.class_names, s.class_colours, s.class_active)
+            s.reload_classes()
+            if (s.class_names, s.class_colours, s.class_active) != before:
+                self._classes_changed()
+                news.append("the classes changed")
+        changed = s.sync_labels()
+        if changed.size:
+            self._send_rows(changed)
+            self._refresh_counts()
+            self._refresh_queue()
+            self._retitle_signal()
+            self.request_proposals()
+            news.append(f"{changed.size} window label{'s' if changed.size != 1 else ''} changed")
+        if mark[2:] != old[2:]:
+            news.append("recordings were added or removed: reload the page to see them")
+        if news:
+            self.say("elsewhere: " + "; ".join(news), info=True)
+        return bool(news)
 
     @action
     def check_map(self) -> bool:
