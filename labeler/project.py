@@ -289,6 +289,10 @@ class Project:
     def rename_class(self, old: str, new: str) -> None:
         self._ledger.rename_class(old, new)
 
+    def recolour_class(self, name: str, colour: str) -> None:
+        """Give a class (active or retired) another #RRGGBB colour."""
+        self._ledger.recolour_class(name, colour)
+
     def retire_class(self, name: str) -> None:
         self._ledger.retire_class(name)
 

@@ -167,6 +167,9 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
     from scipy.sparse.csgraph import dijkstra
 
     H = int(explore_hops)
+    # hops ignore direction and weights: one symmetric structure, made once (dijkstra with
+    # directed=False would transpose the whole graph on every call)
+    U = (W + W.T).tocsr() if unexp.any() else W
     hop_factor = np.ones(N)
     suppressed = np.zeros(N, dtype=bool)
     available = candidate.copy()
@@ -200,7 +203,7 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
         if suppress_neighbors:
             suppressed[W.indices[W.indptr[i]:W.indptr[i + 1]]] = True
         if unexp.any():
-            d = dijkstra(W, directed=False, indices=i, unweighted=True, limit=H - 0.5)
+            d = dijkstra(U, directed=True, indices=i, unweighted=True, limit=H - 0.5)
             near = np.isfinite(d)
             hop_factor[near] = np.minimum(hop_factor[near], d[near] / H)
         if bouts is not None and bout_gap >= 0:

@@ -1,5 +1,7 @@
 """The app in real headless Chromium: page ready with every point, keyboard confirm and undo written
-to the project file, class names shown as text. Screenshots go to artifacts/ (git-ignored)."""
+to the project file, class names shown as text, the layout at 1000 and 1400 px, Enter during a pick,
+the keys coming back to the page after typing a class name, a ninth class's own shape. Screenshots
+go to artifacts/ (git-ignored)."""
 
 from __future__ import annotations
 
@@ -54,7 +56,7 @@ def driver():
     for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic",
                 "--no-first-run", "--disable-background-networking",
                 "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
-                "--window-size=1280,1300"):
+                "--window-size=1400,900"):
         opts.add_argument(arg)
     d = webdriver.Chrome(service=Service(CHROMEDRIVER), options=opts)
     d.set_page_load_timeout(60)
@@ -109,6 +111,9 @@ def _confirmed_line(counts_html):
     import re
 
     return re.search(r"\d+ of \d+ windows confirmed", counts_html).group(0)
+
+
+ENTER, ESCAPE = "\ue007", "\ue00c"      # WebDriver key codes (W3C WebDriver, "Keyboard actions")
 
 
 def _key(driver, key):
@@ -228,3 +233,113 @@ def test_review_queue_item_confirmed_with_a_key_then_undone(driver, served):
     _key(driver, "u")
     _wait(lambda: _confirmed_line(_div_text(driver, "counts")) == counts0 or None, 20,
           "the counts to return")
+
+
+def _box(driver, name):
+    """(left, top, width, height) of a model's element in the page."""
+    return driver.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name(arguments[0]);"
+        "const r = Bokeh.index.get_one(m).el.getBoundingClientRect();"
+        "return [r.left, r.top, r.width, r.height];", name)
+
+
+def test_layout_fits_the_window(driver, served):
+    """At 1400x900 the map and the signal are seen together, side panel beside them; at 1000 px the
+    side panel moves under them and nothing scrolls sideways."""
+    srv, _path = served
+    ARTIFACTS.mkdir(exist_ok=True)
+    try:
+        driver.set_window_size(1400, 900)
+        _open(driver, srv.url)
+        _wait(lambda: _box(driver, "signal_box")[3] > 100 or None, 20, "the signal panel")
+        inner_w, inner_h, scroll_w = driver.execute_script(
+            "return [window.innerWidth, window.innerHeight, document.documentElement.scrollWidth]")
+        sig, side, mp = _box(driver, "signal_box"), _box(driver, "side"), _box(driver, "map")
+        assert sig[1] + sig[3] <= inner_h, (sig, inner_h)       # signal in the first viewport
+        assert mp[1] >= 0 and mp[3] >= 300
+        assert side[0] >= mp[0] + mp[2] - 1 and side[1] < sig[1]  # beside, not under
+        assert scroll_w <= inner_w
+        driver.save_screenshot(str(ARTIFACTS / "app_1400x900.png"))
+        driver.set_window_size(1000, 800)
+        _wait(lambda: _box(driver, "side")[1] > _box(driver, "map")[1] + 200 or None, 20,
+              "the side panel to move under the map")
+        inner_w, scroll_w = driver.execute_script(
+            "return [window.innerWidth, document.documentElement.scrollWidth]")
+        assert scroll_w <= inner_w, (scroll_w, inner_w)
+        driver.save_screenshot(str(ARTIFACTS / "app_1000.png"))
+    finally:
+        driver.set_window_size(1400, 900)
+
+
+def test_enter_during_a_pick_acts_on_the_pick(driver, served):
+    """With a review item shown, a pick on the map pauses the review; Enter confirms the pick's
+    proposal for the picked windows (not the review item); Esc comes back to the item."""
+    srv, path = served
+    _open(driver, srv.url)
+    _wait(lambda: "up to date" in _div_text(driver, "progress") or None, 60, "the proposals")
+    driver.execute_script("document.activeElement && document.activeElement.blur()")
+    _key(driver, "r")
+    item = _wait(lambda: (lambda t: t if "Review 1 of" in t else None)(
+        _div_text(driver, "queue_item")), 20, "the first queue item")
+    item_id = int(item.split("window ")[1].split(" ")[0])
+    with Project.open(path, readonly=True) as p:
+        prop = p.proposals()
+        ids = p.windows()["id"].tolist()
+        labeled = set(p.labels()["window_id"])
+        events_before = len(p.history())
+    free = prop[~prop["window_id"].isin(labeled) & (prop["window_id"] != item_id)]
+    label = free["label"].value_counts().index[0]
+    want = free[free["label"] == label]["window_id"].head(4).tolist()
+    rows = [ids.index(w) for w in want]
+    driver.execute_script(
+        "Bokeh.documents[0].get_model_by_name('map_source').selected.indices = arguments[0];",
+        rows)
+    _wait(lambda: "paused" in _div_text(driver, "queue_item") or None, 20, "the review to pause")
+    _key(driver, ENTER)
+
+    def events():
+        with Project.open(path, readonly=True) as p:
+            return p.history()
+
+    ev = _wait(lambda: (lambda e: e if len(e) >= events_before + len(want) else None)(events()),
+               20, "the pick's confirm")
+    new = ev.iloc[events_before:]
+    assert sorted(new["window_id"]) == sorted(want) and set(new["class"]) == {label}
+    assert set(new["source"]) == {"map"} and item_id not in set(new["window_id"])
+    _wait(lambda: f"{len(want)} windows → " in _div_text(driver, "message") or None, 20,
+          "the feedback line")
+    driver.save_screenshot(str(ARTIFACTS / "app_pick_confirmed.png"))
+    _key(driver, ESCAPE)
+    _wait(lambda: "paused" not in _div_text(driver, "queue_item") or None, 20,
+          "the review item back")
+    _key(driver, "u")
+    _wait(lambda: len(events()) == events_before + 2 * len(want) or None, 20, "the undo")
+
+
+def test_keys_come_back_to_the_page_after_typing_a_class(driver, served):
+    from selenium.webdriver.common.by import By
+
+    srv, _path = served
+    _open(driver, srv.url)
+    host = _wait(lambda: driver.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name('new_class');"
+        "return Bokeh.index.get_one(m).el;"), 20, "the class box")
+    box = host.shadow_root.find_element(By.CSS_SELECTOR, "input")
+    box.click()
+    box.send_keys("resting", ENTER)
+    _wait(lambda: "resting" in _div_text(driver, "class_pad") or None, 20, "the new class")
+    _key(driver, "1")                                  # nothing picked: the app says so
+    _wait(lambda: "nothing selected" in _div_text(driver, "message") or None, 20,
+          "the key to reach the app")
+    assert box.get_attribute("value") == ""
+
+
+def test_a_ninth_class_takes_another_shape(driver, served):
+    srv, _path = served
+    _open(driver, srv.url)
+    shapes = driver.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name('map');"
+        "const r = m.renderers.find((r) => r.data_source.name === 'map_source');"
+        "return Array.from(r.glyph.marker.transform.v_compute([0, 7, 8, 15, 16, -1]));")
+    assert shapes[0] == shapes[1] == "circle" and shapes[-1] == "circle"
+    assert shapes[2] == shapes[3] != "circle" and shapes[4] not in ("circle", shapes[2])

@@ -39,15 +39,15 @@ def test_page_shows_a_confirmation_and_a_class_made_by_another_process(app):
     assert not app.check_others()                                # nothing changed yet
     rows = np.flatnonzero(s.confirmed < 0)[:4]
     name = s.class_names[s.active_codes()[0]]
-    counts = app.counts_div.text if hasattr(app, "counts_div") else None
+    counts = app.side.counts.text
     _cli("confirm", app.project.path, name, "--windows", ",".join(map(str, s.ids[rows])))
     assert app.check_others()
     code = s.class_code[name]
-    assert [app.map_src.data["cf"][r] for r in rows] == [code] * len(rows)
+    assert [app.map.src.data["cf"][r] for r in rows] == [code] * len(rows)
     assert (s.confirmed[rows] == code).all()
     assert "4 window" in app.message and "elsewhere" in app.message
     if counts is not None:
-        assert app.counts_div.text != counts
+        assert app.side.counts.text != counts
     assert not app.check_others()                                # seen once, not again
     _cli("class", "add", app.project.path, "resting")
     assert app.check_others()

@@ -4,5 +4,5 @@
 :func:`labeler.app.server.serve` serves it. The app talks to :class:`labeler.project.Project` only.
 """
 
-from labeler.app.state import CAUTION  # noqa: F401
+from labeler.app.words import CAUTION  # noqa: F401
 from labeler.app.document import build_document  # noqa: F401

@@ -7,11 +7,7 @@ action returns the rows whose drawing changed, so the document sends only those.
 
 from __future__ import annotations
 
-import threading
-import time
-import traceback
 from dataclasses import dataclass
-from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -21,11 +17,10 @@ from labeler.errors import InputError, LabelerError
 from labeler.reduction import principal_components
 from labeler.results import AccuracyReport, LabelBatch
 
-CAUTION = ("Proposed labels are suggestions. Where labels feed clinical or safety decisions, a "
-           "qualified person reviews them; local rules and licensed practice come first.")
-
-#: Fill alpha of a proposed point is ALPHA_MIN + ALPHA_SPAN * confidence; confirmed points are opaque.
-ALPHA_MIN, ALPHA_SPAN, ALPHA_NONE = 0.12, 0.68, 0.35
+#: Point sizes on the map (screen pixels): a proposed window's grows with its confidence, from
+#: SIZE_MIN at 0 to SIZE_MIN + SIZE_SPAN at 1; a confirmed window is drawn at SIZE_CONFIRMED with an
+#: outline; a window with neither at SIZE_NONE. Colour stays the class's own, opaque.
+SIZE_MIN, SIZE_SPAN, SIZE_CONFIRMED, SIZE_NONE = 2.5, 5.5, 8.0, 3.0
 
 
 @dataclass
@@ -43,39 +38,6 @@ class Proposals:
     confidence: np.ndarray        # float32 in [0, 1]
     support: np.ndarray           # float32 in [0, 1]; low = no confirmed window nearby
     note: str = ""
-
-
-@dataclass
-class EstimateUpdate:
-    """The accuracy estimate, computed after the proposals it is of have been delivered, or the
-    one line saying why there is none."""
-
-    estimate: AccuracyReport | None
-    absent: str | None = None
-
-
-def _stored_proposals(project) -> pd.DataFrame | None:
-    """Project.proposals(), or None when there are none yet."""
-    df = project.proposals()
-    return df if len(df) else None
-
-
-def proposals_current(project, state: "SessionState") -> bool:
-    """True when the stored proposals were spread from exactly the current confirmations."""
-    df = _stored_proposals(project)
-    if df is None or len(df) != state.n:
-        return False
-    pos = state.index.get_indexer(df["window_id"].to_numpy())
-    if (pos < 0).any():
-        return False
-    was = np.zeros(state.n, bool)
-    was[pos] = df["confirmed"].to_numpy(bool)
-    if not np.array_equal(was, state.confirmed >= 0):
-        return False
-    names = np.asarray(state.class_names, dtype=object)
-    rows = np.flatnonzero(was)
-    stored = pd.Series(df["label"].to_numpy(object), index=pos).loc[rows].to_numpy(object)
-    return bool((stored == names[state.confirmed[rows]]).all())
 
 
 # ---------------------------------------------------------------------------- reading the project
@@ -121,32 +83,32 @@ def _as_xy(got, n: int) -> np.ndarray | None:
     return arr
 
 
+def stored_proposals(project) -> pd.DataFrame | None:
+    """Project.proposals(), or None when there are none yet."""
+    try:
+        df = project.proposals()
+    except LabelerError:
+        return None
+    return df if len(df) else None
+
+
 def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
-    """The project's stored proposals, or None when there are none yet."""
-    df = _stored_proposals(project)
+    """The project's stored proposals in window-id order, or None when there are none yet."""
+    df = stored_proposals(project)
     if df is None:
         return None
-    ids = project.windows()["id"].to_numpy()
-    pos = pd.Index(ids).get_indexer(df["window_id"])
+    pos = pd.Index(project.windows()["id"].to_numpy()).get_indexer(df["window_id"])
     ok = pos >= 0
     proposed = np.full(n, -1, np.int32)
     conf = np.zeros(n, np.float32)
     support = np.zeros(n, np.float32)
-    codes = df["label"].map(lambda c: class_code.get(str(c), -1) if c == c and c is not None
-                            else -1).to_numpy(np.int32)
+    codes = np.array([class_code.get(c, -1) if isinstance(c, str) else -1 for c in df["label"]],
+                     dtype=np.int32)
     proposed[pos[ok]] = codes[ok]
     conf[pos[ok]] = df["confidence"].to_numpy(np.float32)[ok]
     support[pos[ok]] = df["support"].to_numpy(np.float32)[ok]
     return Proposals(proposed, np.clip(np.nan_to_num(conf), 0, 1),
                      np.clip(np.nan_to_num(support), 0, 1))
-
-
-def estimate_of(project) -> EstimateUpdate:
-    """Project.accuracy_estimate(), or why there is none (slow: call it off the page)."""
-    try:
-        return EstimateUpdate(project.accuracy_estimate())
-    except LabelerError as exc:
-        return EstimateUpdate(None, str(exc))
 
 
 # ---------------------------------------------------------------------------- the session state
@@ -172,7 +134,8 @@ class SessionState:
         self.annotators: list[str] = []
         self.proposals = Proposals(np.full(self.n, -1, np.int32), np.zeros(self.n, np.float32),
                                    np.zeros(self.n, np.float32))
-        self.estimate = EstimateUpdate(None)  # the latest, computed off the page
+        self.estimate: AccuracyReport | None = None   # the latest, computed off the page
+        self.estimate_absent: str | None = None         # or why there is none
         self.reload_classes()
         self.x, self.y, self.map_kind = read_map(project, self.n)
         self.sync_labels()
@@ -206,7 +169,25 @@ class SessionState:
             raise InputError("type a class name first (1-60 printable characters)")
         cid = self.project.add_class(name)
         self.reload_classes()
-        return self.class_code[self.project.class_name(cid)]
+        return self._code_of_id[int(cid)]
+
+    def rename_class(self, code: int, new: str) -> None:
+        self.project.rename_class(self.class_names[code], str(new).strip())
+        self.reload_classes()
+
+    def recolour_class(self, code: int, colour: str) -> None:
+        self.project.recolour_class(self.class_names[code], colour)
+        self.reload_classes()
+
+    def retire_class(self, code: int) -> None:
+        self.project.retire_class(self.class_names[code])
+        self.reload_classes()
+
+    def merge_class(self, code: int, into: int) -> np.ndarray:
+        """Move every label of class ``code`` to ``into`` and retire ``code``; the changed rows."""
+        self.project.merge_classes(self.class_names[code], self.class_names[into])
+        self.reload_classes()
+        return self.sync_labels()
 
     # -------------------------------------------------------------- labels
     def sync_labels(self) -> np.ndarray:
@@ -241,12 +222,20 @@ class SessionState:
         p = self.proposals.proposed if rows is None else self.proposals.proposed[rows]
         return np.where(c >= 0, c, p).astype(np.int32)
 
-    def display_alpha(self, rows=None) -> np.ndarray:
+    def display_size(self, rows=None) -> np.ndarray:
+        """Point size per window: confidence by size for proposals, confirmed ones full size."""
         c = self.confirmed if rows is None else self.confirmed[rows]
         p = self.proposals.proposed if rows is None else self.proposals.proposed[rows]
         q = self.proposals.confidence if rows is None else self.proposals.confidence[rows]
-        a = np.where(p >= 0, ALPHA_MIN + ALPHA_SPAN * q, ALPHA_NONE)
-        return np.where(c >= 0, 1.0, a).astype(np.float32)
+        size = np.where(p >= 0, SIZE_MIN + SIZE_SPAN * q, SIZE_NONE)
+        return np.where(c >= 0, SIZE_CONFIRMED, size).astype(np.float32)
+
+    def pick_proposals(self, rows) -> list[tuple[int, int]]:
+        """(class code or -1 for none, windows) of the proposals among ``rows``, most first."""
+        rows = np.asarray(rows, dtype=np.int64)
+        codes, n = np.unique(self.proposals.proposed[rows], return_counts=True)
+        order = np.argsort(-n, kind="stable")
+        return [(int(codes[i]), int(n[i])) for i in order]
 
     def confirm(self, rows, code: int, source: str) -> np.ndarray:
         rows = np.unique(np.asarray(rows, dtype=np.int64))
@@ -255,9 +244,20 @@ class SessionState:
                              "queue item, then press a class")
         if not (0 <= code < len(self.class_names)) or not self.class_active[code]:
             raise InputError(f"no active class number {code + 1}; add the class first")
-        self.last_batch = self.project.confirm(self.ids[rows].tolist(), self.class_names[code],
-                                               source=source)
-        return self.sync_labels()
+        batch = self.project.confirm(self.ids[rows].tolist(), self.class_names[code],
+                                     source=source)
+        self.last_batch = batch
+        # the batch is now the latest event of its windows, so their current label is ours: no
+        # need to read every label back (a file of 100k labels takes a while)
+        me = self.project.annotator
+        if me not in self.annotators:
+            self.annotators.append(me)
+        hit = self.index.get_indexer(batch.window_ids)
+        hit = hit[hit >= 0]
+        who = self.annotators.index(me)
+        changed = hit[(self.confirmed[hit] != code) | (self.who[hit] != who)]
+        self.confirmed[hit], self.who[hit] = code, who
+        return changed
 
     def undo(self) -> np.ndarray:
         self.project.undo()
@@ -278,7 +278,7 @@ class SessionState:
 
     def accuracy(self) -> AccuracyReport | None:
         """The latest accuracy estimate (computed off the page, after the proposals)."""
-        return self.estimate.estimate
+        return self.estimate
 
     # -------------------------------------------------------------- review queue and audit
     def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
@@ -286,124 +286,29 @@ class SessionState:
         (Project.draw_audit, a random sample within bands of confidence)."""
         self.queue_mode = mode
         self.queue_pos = 0
-        if mode == "review":
-            got = self.project.review_queue(n)
-            reasons = got["reason"].astype(str).tolist()
-        else:
-            got = self.project.draw_audit(n)
-            reasons = [""] * len(got)
-        self.queue = self._queue_items(got["window_id"].to_numpy(np.int64), reasons)
+        self.queue = []
+        got = self.project.review_queue(n) if mode == "review" else self.project.draw_audit(n)
+        ids = got["window_id"].to_numpy(np.int64)
+        reasons = got["reason"].astype(str).tolist() if "reason" in got else [""] * len(ids)
+        pos = self.index.get_indexer(ids)
+        self.queue = [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
         return self.queue
 
-    def _queue_items(self, ids: np.ndarray, reasons: list[str]) -> list[QueueItem]:
-        pos = self.index.get_indexer(ids)
-        return [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
+    def leave_queue(self) -> None:
+        self.queue, self.queue_pos = [], 0
 
     def current_item(self) -> QueueItem | None:
         if 0 <= self.queue_pos < len(self.queue):
             return self.queue[self.queue_pos]
         return None
 
+    def peek(self) -> QueueItem | None:
+        """The item after the current one, if any."""
+        nxt = self.queue_pos + 1
+        return self.queue[nxt] if 0 <= nxt < len(self.queue) else None
+
     def advance(self) -> QueueItem | None:
         self.queue_pos += 1
         return self.current_item()
 
 
-# ---------------------------------------------------------------------------- background proposals
-
-def spread_and_estimate(project, class_code: dict[str, int], n: int, refresh: bool,
-                        deliver: Callable[[object], None], *,
-                        on_start: Callable[[], None] | None = None,
-                        more_waiting: Callable[[], bool] = lambda: False) -> None:
-    """One run: spread the confirmations again (``refresh``) and hand the :class:`Proposals` to
-    ``deliver``; then, unless ``more_waiting()``, the accuracy estimate as an
-    :class:`EstimateUpdate`."""
-    t0 = time.perf_counter()
-    project.reread()
-    if refresh:
-        if on_start:
-            on_start()
-        project.refresh_proposals()
-        got = read_proposals(project, class_code, n)
-        if got is not None:
-            got.note = f"{time.perf_counter() - t0:.1f} s"
-        deliver(got)
-        if got is None:
-            return
-    if not more_waiting():
-        deliver(estimate_of(project))
-
-
-class ProposalWorker:
-    """Recomputes proposals in a thread of its own, over a Project opened on the same file.
-
-    ``request()`` returns at once; requests that arrive while a run is going fold into one more run.
-    A run delivers the proposals as soon as they are spread, then the accuracy estimate (slower:
-    cross-validation) as an :class:`EstimateUpdate`, unless newer confirmations are waiting, which
-    are spread first. ``request(refresh=False)`` asks for the estimate only.
-    ``deliver(result_or_exception)`` is called from the worker thread; the document passes a function
-    that hands it to the session's next tick.
-    """
-
-    def __init__(self, path, annotator: str, class_code: Callable[[], dict[str, int]], n: int,
-                 deliver: Callable[[object], None], on_start: Callable[[], None] | None = None):
-        self.path, self.annotator = path, annotator
-        self._class_code, self._n = class_code, n
-        self._deliver, self._on_start = deliver, on_start
-        self._wanted = threading.Event()
-        self._lock = threading.Lock()
-        self._thread: threading.Thread | None = None
-        self._closed = False
-        self._project = None
-        self._refresh = False
-
-    def request(self, refresh: bool = True) -> None:
-        if self._closed:
-            return
-        self._refresh = self._refresh or refresh
-        self._wanted.set()
-        with self._lock:
-            if self._thread is None or not self._thread.is_alive():
-                self._thread = threading.Thread(target=self._run, name="labeler-proposals",
-                                                daemon=True)
-                self._thread.start()
-
-    def _run(self) -> None:
-        from labeler.project import Project
-
-        while self._wanted.is_set() and not self._closed:
-            self._wanted.clear()
-            refresh, self._refresh = self._refresh, False
-            try:
-                if self._project is None:
-                    self._project = Project.open(self.path, annotator=self.annotator)
-                # newer confirmations waiting: spread them first, estimate after them
-                spread_and_estimate(self._project, self._class_code(), self._n, refresh,
-                                    self._deliver, on_start=self._on_start,
-                                    more_waiting=lambda: self._wanted.is_set() and self._refresh)
-            except Exception as exc:  # reported in the status line, never lost silently
-                traceback.print_exc()
-                self._deliver(exc)
-        if self._closed:
-            self._close_project()
-
-    def wait(self, timeout: float = 60.0) -> None:
-        t = self._thread
-        if t is not None:
-            t.join(timeout)
-
-    def busy(self) -> bool:
-        return self._thread is not None and self._thread.is_alive()
-
-    def close(self) -> None:
-        self._closed = True
-        if not self.busy():
-            self._close_project()
-
-    def _close_project(self) -> None:
-        if self._project is not None:
-            try:
-                self._project.close()
-            except Exception:
-                pass
-            self._project = None

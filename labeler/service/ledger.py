@@ -103,6 +103,12 @@ class Ledger:
         except StoreError as exc:
             raise InputError(str(exc)) from None
 
+    def recolour_class(self, name: str, colour: str) -> None:
+        cid = self.class_id(name, allow_retired=True)
+        if not re.fullmatch(r"#[0-9A-Fa-f]{6}", str(colour)):
+            raise InputError(f"colour {colour!r} is not a #RRGGBB colour; give e.g. #0072B2")
+        self.ctx.store.set_class_colour(cid, str(colour), self.ctx.annotator)
+
     def retire_class(self, name: str) -> None:
         _not_an_answer(name, "retired")
         self.ctx.store.retire_class(self.class_id(name), self.ctx.annotator)

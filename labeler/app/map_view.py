@@ -1,0 +1,178 @@
+"""The map panel: every window as a point, coloured by class (or confidence, support, recording).
+
+Colour is the class's own and opaque; a proposal's confidence is the point's size; a confirmed window
+has an outline; classes beyond the palette take the next shape. One renderer over one source draws
+it all (shape and outline are computed in the page from the class and confirmed columns), so a
+confirm sends the changed rows and redraws the map once. The focus ring sits on the overlay layer,
+so moving it does not repaint the points.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from bokeh.layouts import row
+from bokeh.models import (BoxSelectTool, ColorBar, ColumnDataSource, CustomJSHover,
+                          CustomJSTransform, Div, HoverTool, LassoSelectTool, LinearColorMapper,
+                          PanTool, RadioButtonGroup, ResetTool, TapTool, WheelZoomTool)
+from bokeh.palettes import Cividis256, Viridis256, linear_palette
+from bokeh.plotting import figure
+
+from labeler.app import words
+from labeler.app.assets import static
+
+NONE_COLOUR = "#BDBDBD"          # windows with no label and no proposal
+MAP_H = 390
+COLOUR_MODES = ("label", "confidence", "support", "recording")
+#: one shape per run of palette colours: classes 1-8 circles, 9-16 triangles, ...
+SHAPES = ("circle", "triangle", "diamond", "inverted_triangle", "hex", "star", "square_pin",
+          "plus")
+
+
+def recording_palette(k: int) -> list[str]:
+    """k colours for recordings from a scheme of their own (viridis), apart from the class hues."""
+    return list(linear_palette(Viridis256, k)) if k > 1 else [Viridis256[80]]
+
+
+def _name_lookup(names: ColumnDataSource, fallback: str) -> CustomJSHover:
+    return CustomJSHover(args={"names": names, "fallback": fallback},
+                         code=static("name_of_code.js"))
+
+
+class MapView:
+    """The map figure, its source and its colour modes; knows the session state, not the Project."""
+
+    def __init__(self, state, *, draw: str, class_mapper: LinearColorMapper, per_shape: int,
+                 names: ColumnDataSource, people: ColumnDataSource, recordings: ColumnDataSource):
+        self.state = state
+        self.class_mapper = class_mapper
+        self.conf_mapper = LinearColorMapper(palette=Cividis256, low=0.0, high=1.0)
+        self.support_mapper = LinearColorMapper(palette=Cividis256, low=0.0, high=1.0)
+        k = max(1, len(state.rec_names))
+        self.rec_mapper = LinearColorMapper(palette=recording_palette(k), low=-0.5, high=k - 0.5)
+        self.src = ColumnDataSource(self.data(), name="map_source")
+        self.focus_src = ColumnDataSource({"x": [], "y": []})
+        p = figure(height=MAP_H, sizing_mode="stretch_width", min_width=360,
+                   output_backend=draw, tools=[], toolbar_location="above", name="map",
+                   match_aspect=False)
+        p.title.text = "Windows (similar movements sit together) — drag to pick"
+        p.xaxis.visible = p.yaxis.visible = False
+        p.grid.visible = False
+        p.background_fill_color = "#FAFAFA"
+        p.min_border = 4
+        shape = CustomJSTransform(args={"shapes": list(SHAPES), "per_shape": int(per_shape)},
+                                  v_func=static("class_shape.js"))
+        edge = CustomJSTransform(v_func=static("confirmed_edge.js"))
+        self.points = p.scatter(
+            "x", "y", source=self.src, size="size",
+            marker={"field": "lab", "transform": shape},
+            fill_color={"field": "lab", "transform": class_mapper}, fill_alpha=1.0,
+            line_color="#1a1a1a", line_width=1.2, line_alpha={"field": "cf", "transform": edge},
+            selection_fill_alpha=1.0, nonselection_fill_alpha=0.3, nonselection_line_alpha=0.3)
+        p.scatter("x", "y", source=self.focus_src, size=22, marker="circle", fill_color=None,
+                  line_color="#000000", line_width=2.5, level="overlay")
+        self.conf_bar = ColorBar(color_mapper=self.conf_mapper, title="confidence", width=10,
+                                 visible=False, name="confidence_bar")
+        self.support_bar = ColorBar(color_mapper=self.support_mapper, title="support", width=10,
+                                    visible=False, name="support_bar")
+        p.add_layout(self.conf_bar, "right")
+        p.add_layout(self.support_bar, "right")
+        fmt = _name_lookup(names, "—")
+        # condensed: three short lines, of the nearest point only (limit=1: hits come nearest first)
+        self.tooltips = [
+            ("window", "@wid · @rec{custom} · @t0{0.0}–@t1{0.0} s"),
+            ("confirmed", "@cf{custom} (@who{custom})"),
+            ("proposed", "@prop{custom} · confidence @conf{0.00}")]
+        self.hover = HoverTool(renderers=[self.points], tooltips=list(self.tooltips), limit=1,
+                               formatters={"@prop": fmt, "@cf": fmt,
+                                           "@who": _name_lookup(people, "nobody"),
+                                           "@rec": _name_lookup(recordings, "?")})
+        box = BoxSelectTool(renderers=[self.points])
+        wheel = WheelZoomTool()
+        p.add_tools(box, LassoSelectTool(renderers=[self.points]), PanTool(), wheel,
+                    TapTool(renderers=[self.points]), self.hover, ResetTool())
+        p.toolbar.active_drag = box
+        p.toolbar.active_scroll = wheel
+        p.toolbar.logo = None
+        self.fig = p
+        self.colour_mode = RadioButtonGroup(labels=["Colour: label", "confidence", "support",
+                                                    "recording"], active=0, name="colour_mode")
+        self.colour_mode.on_change("active", lambda a, o, n: self.set_colour_mode(COLOUR_MODES[n]))
+        self.colour_hint = Div(text=words.colour_hint("label"), sizing_mode="stretch_width")
+        self.bar = row(self.colour_mode, self.colour_hint, sizing_mode="stretch_width")
+        self.blinded = False
+        self._colour_before_audit: int | None = None
+
+    # ------------------------------------------------------------------ data
+    def data(self) -> dict:
+        s = self.state
+        return {
+            "x": s.x.astype(np.float32), "y": s.y.astype(np.float32),
+            "lab": s.display_label(), "size": s.display_size(),
+            "conf": s.proposals.confidence.astype(np.float32),
+            "support": s.proposals.support.astype(np.float32),
+            "prop": s.proposals.proposed.astype(np.int32), "cf": s.confirmed.astype(np.int32),
+            "who": s.who.astype(np.int32), "rec": s.rec_code.astype(np.int32),
+            "t0": s.start.astype(np.float32), "t1": s.stop.astype(np.float32),
+            "wid": s.ids.astype(np.int32),
+        }
+
+    def send(self, rows: np.ndarray, what: str = "labels") -> None:
+        """Send the drawing columns of changed rows: a patch when few, whole columns when many.
+
+        ``what``: "labels" (a confirm or an undo: label, size, confirmed, who) or "proposals"
+        (label, size, proposed, confidence, support); fewer columns, less for the page to take in.
+        """
+        s = self.state
+        cols = {"lab": s.display_label(rows), "size": s.display_size(rows)}
+        if what == "labels":
+            cols |= {"cf": s.confirmed[rows], "who": s.who[rows]}
+        else:
+            cols |= {"prop": s.proposals.proposed[rows], "conf": s.proposals.confidence[rows],
+                     "support": s.proposals.support[rows]}
+        if rows.size > max(2000, s.n // 10):
+            full = self.data()
+            self.src.data.update({k: full[k] for k in cols})
+        else:
+            idx = rows.tolist()
+            self.src.patch({k: list(zip(idx, v.tolist())) for k, v in cols.items()})
+
+    def move_points(self) -> None:
+        """The state holds a new map: send the coordinates."""
+        s = self.state
+        self.src.data.update({"x": s.x.astype(np.float32), "y": s.y.astype(np.float32)})
+
+    def set_focus(self, r: int | None) -> None:
+        s = self.state
+        self.focus_src.data = ({"x": [], "y": []} if r is None else
+                               {"x": [float(s.x[r])], "y": [float(s.y[r])]})
+
+    def select(self, rows) -> None:
+        self.src.selected.indices = [int(r) for r in rows]
+
+    # ------------------------------------------------------------------ colour
+    def set_colour_mode(self, mode: str) -> None:
+        field, mapper = {"label": ("lab", self.class_mapper),
+                         "confidence": ("conf", self.conf_mapper),
+                         "support": ("support", self.support_mapper),
+                         "recording": ("rec", self.rec_mapper)}[mode]
+        self.points.glyph.fill_color = {"field": field, "transform": mapper}
+        self.conf_bar.visible = mode == "confidence"
+        self.support_bar.visible = mode == "support"
+        self.colour_hint.text = words.colour_hint(mode)
+
+    def set_blind(self, blind: bool) -> None:
+        """Audit: colour by recording and drop proposals from the hover; restore them after."""
+        self.blinded = blind
+        if blind:
+            if self.colour_mode.active in (0, 1):
+                self._colour_before_audit = self.colour_mode.active
+                self.colour_mode.active = 3
+            self.hover.tooltips = [t for t in self.tooltips if t[0] not in ("proposed",
+                                                                            "confidence")]
+            self.colour_mode.disabled = True
+        else:
+            self.colour_mode.disabled = False
+            self.hover.tooltips = list(self.tooltips)
+            if self._colour_before_audit is not None:
+                before, self._colour_before_audit = self._colour_before_audit, None
+                self.colour_mode.active = before
