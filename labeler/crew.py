@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy import ndimage
 
+from labeler.errors import ValueInputError
 from labeler.synthetic import CHANNELS, SimulatedRecording, simulate_recording
 
 RATE = 50.0
@@ -103,5 +104,5 @@ def simulate_member(duration_s: float, *, seed: int, person: int) -> SimulatedRe
 def simulate_crew(n_people: int, duration_s: float, *, seed: int) -> list[SimulatedRecording]:
     """One shift of crew members 1..n_people, each ``duration_s`` long."""
     if int(n_people) != n_people or n_people < 1:
-        raise ValueError(f"n_people must be a whole number >= 1, got {n_people}")
+        raise ValueInputError(f"n_people must be a whole number >= 1, got {n_people}")
     return [simulate_member(duration_s, seed=seed + k, person=k) for k in range(1, n_people + 1)]
