@@ -67,8 +67,11 @@ def test_older_files_gain_the_columns(tmp_path):
     store = Store.create(path)
     store.close()
     conn = sqlite3.connect(str(path))
-    for col in ("person", "removed_at", "removed_by"):
+    for col in ("person", "removed_at", "removed_by"):  # back to a file of schema 1
         conn.execute(f"ALTER TABLE recordings DROP COLUMN {col}")
+    for col in ("stratum", "stratum_size"):
+        conn.execute(f"ALTER TABLE audits DROP COLUMN {col}")
+    conn.execute("DROP TABLE queue_draws")
     conn.execute("UPDATE meta SET value = '1' WHERE key = 'schema_version'")
     conn.commit()
     conn.close()
