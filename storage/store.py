@@ -211,13 +211,16 @@ def _m2_recording_person_and_removal(db: sqlite_utils.Database) -> None:
 def _m3_weighted_answers(db: sqlite_utils.Database) -> None:
     """Audit draws remember their confidence band (stratum) and its size; windows the review
     queue drew at random remember the probability of the draw, for weighted accuracy estimates."""
-    db["audits"].add_column("stratum", int)
-    db["audits"].add_column("stratum_size", int)
-    db["queue_draws"].create(
-        {"window_id": int, "run_id": int, "probability": float, "pool": int, "drawn_at": str,
-         "drawn_by": str},
-        pk="window_id",
-    )
+    have = {c.name for c in db["audits"].columns}
+    for col in ("stratum", "stratum_size"):
+        if col not in have:  # a file that has them already is left as it is
+            db["audits"].add_column(col, int)
+    if not db["queue_draws"].exists():
+        db["queue_draws"].create(
+            {"window_id": int, "run_id": int, "probability": float, "pool": int, "drawn_at": str,
+             "drawn_by": str},
+            pk="window_id",
+        )
 
 
 MIGRATIONS = [_m1_initial, _m2_recording_person_and_removal, _m3_weighted_answers]
