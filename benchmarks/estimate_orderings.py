@@ -19,8 +19,12 @@ tool, and its windows count as wrong in the truth).
   unconfirmed neighbours on a 2-D PCA map, each confirmed with its true label (the person
   corrects strays).
 
-At 25, 50, 100 and 200 confirmations the estimate (:func:`labeler.estimate.proposal_accuracy`)
-is compared with the true accuracy of the proposals on the unconfirmed windows. Printed per data
+At 25, 50, 100 and 200 confirmations the estimate, computed as the project computes it
+(:func:`labeler.estimate.proposal_accuracy` and the answered audit,
+:func:`labeler.estimate.with_audit`), is compared with the true accuracy of the proposals on the
+unconfirmed windows. Where it has no figure, the annotator does what the project then asks: answers
+a blind audit of 30 windows drawn within confidence bands (once; the audit's answers are not
+counted in the confirmations), and the figure is read again. Printed per data
 set and order: mean estimate minus truth, mean |estimate - truth|, and how often the 95 %
 interval held the truth. Goal: |error| <= 0.05 from 50 confirmations on, coverage >= 90 %.
 
@@ -37,7 +41,8 @@ import time
 
 import numpy as np
 
-from labeler.estimate import proposal_accuracy
+from labeler.estimate import (audit_held_out, draw_stratified_audit, proposal_accuracy,
+                              stratified_accuracy, with_audit)
 from labeler.graph import build_graph
 from labeler.review import review_queue
 from labeler.service.proposals import QUEUE_FLOOR, QUEUE_POWER
@@ -123,9 +128,36 @@ def prepare(name: str, quick: bool = False):
     return {"W": W, "t": t, "rec": rec, "seq": seq, "xy": xy}
 
 
+AUDIT = 30  # answers of the blind audit the estimate asks for when it has no figure
+
+
+def _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed):
+    """The estimate as the project computes it: cross-validation of the confirmations (the
+    audit's answers left to the audit), the audit's answers scored by proposals made without
+    them, joined into one headline."""
+    mask = np.zeros(y.size, dtype=bool)
+    if audit is not None:
+        mask[audit[0]] = True
+    kw = dict(recording=rec, seq=seq, spreader=LabelSpreader(), init=sp.label_mass_,
+              init_classes=sp.classes_)
+    cv, _ = proposal_accuracy(W, y, sp.label_distributions_.max(axis=1), weights=weight,
+                              proposed_label=sp.transduction_, batch=batch, level=level,
+                              n_boot=n_boot, random_state=seed, exclude=mask, **kw)
+    if audit is None:
+        return cv
+    idx, stratum, size = audit
+    pred = audit_held_out(W, y, mask, random_state=seed, **kw)[idx]
+    a = stratified_accuracy(pred == y[idx], stratum, size, level=level)
+    return with_audit(cv, a, level=level)
+
+
 def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float = 0.95,
-        n_boot: int = 200):
-    """One simulated annotator; returns rows (confirmed, truth, estimate, low, high, basis)."""
+        n_boot: int = 200, audit_size: int = AUDIT):
+    """One simulated annotator; returns rows (confirmed, truth, estimate, low, high, basis,
+    audited). Where the estimate has no figure the annotator answers the blind audit it asks for
+    (``audit_size`` windows drawn within confidence bands; 0: never) and the figure is read
+    again; ``audited``: an audit has been answered by then (its answers are not counted in
+    ``confirmed``)."""
     W, t, rec, seq, xy = data["W"], data["t"], data["rec"], data["seq"], data["xy"]
     n = t.size
     rng = np.random.default_rng(seed)
@@ -134,21 +166,26 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
     batch = np.full(n, -1)  # the round (one user action) that confirmed each window
     sp = LabelSpreader(warm_start=True)
     out = None
+    audit = None  # (index, stratum, stratum size) of the answered audit
     rows = []
-    cps = [c for c in checkpoints if c < n - 10]
+    cps = [c for c in checkpoints if c < n - 10 - audit_size]
     while cps:
         labeled = y >= 0
-        k = int(labeled.sum())
+        k = int(labeled.sum()) - (0 if audit is None else audit[0].size)
         if k >= cps[0]:
             cps.pop(0)
-            unconf = ~labeled
+            est = _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed)
+            if est.basis == "none" and audit is None and audit_size:
+                conf = sp.label_distributions_.max(axis=1)
+                audit = draw_stratified_audit(~labeled, conf, audit_size, random_state=rng)
+                y[audit[0]] = t[audit[0]]
+                batch[audit[0]] = -2 - np.arange(audit[0].size)  # one answer at a time
+                sp.fit(W, y)
+                out = sp.outputs(y)
+                est = _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed)
+            unconf = y < 0
             truth = float((out.label[unconf] == t[unconf]).mean())
-            est, _ = proposal_accuracy(W, y, sp.label_distributions_.max(axis=1), recording=rec,
-                                       seq=seq, weights=weight, spreader=LabelSpreader(),
-                                       init=sp.label_mass_, init_classes=sp.classes_,
-                                       proposed_label=sp.transduction_, batch=batch,
-                                       level=level, n_boot=n_boot, random_state=seed)
-            rows.append((k, truth, est.value, est.low, est.high, est.basis))
+            rows.append((k, truth, est.value, est.low, est.high, est.basis, audit is not None))
             continue
         room = cps[0] - k
         if order == "queue" and out is not None:
@@ -179,11 +216,14 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
     return rows
 
 
-def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out=print):
+def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out=print,
+          audit_size: int = AUDIT):
     out("== accuracy estimate against the truth, per data set and order of confirmation ==")
     out(f"   {repeats} repeat(s) each; cells: mean(estimate - truth) / mean |estimate - truth| / "
-        "share of 95 % intervals holding the truth")
-    head = f"  {'data':13s} {'order':7s}" + "".join(f"{c:>24d}" for c in checkpoints)
+        "share of 95 % intervals holding the truth; (N none): runs without a figure; "
+        f"(N aud): runs where the annotator had answered the blind audit of {audit_size} the "
+        "estimate asked for when it had no figure (not counted in the confirmations)")
+    head = f"  {'data':13s} {'order':7s}" + "".join(f"{c:>30d}" for c in checkpoints)
     out(head)
     summary = {}
     for name in names:
@@ -192,32 +232,45 @@ def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out
         for order in orders:
             per = {c: [] for c in checkpoints}
             for r in range(repeats):
-                for k, truth, v, lo, hi, basis in run(data, order, seed=r, checkpoints=checkpoints):
+                for k, truth, v, lo, hi, basis, audited in run(data, order, seed=r,
+                                                               checkpoints=checkpoints,
+                                                               audit_size=audit_size):
                     c = min(checkpoints, key=lambda c: abs(c - k))
-                    per[c].append((v - truth, lo <= truth <= hi) if basis != "none" else (np.nan, False))
+                    per[c].append((v - truth if basis != "none" else np.nan,
+                                   basis != "none" and lo <= truth <= hi, audited))
             cells = []
             for c in checkpoints:
                 v = per[c]
                 if not v:
-                    cells.append(f"{'-':>24s}")
+                    cells.append(f"{'-':>30s}")
                     continue
-                e = np.array([a for a, _ in v], dtype=float)
+                e = np.array([a for a, _, _ in v], dtype=float)
                 none = int(np.isnan(e).sum())
-                cov = np.mean([b for a, b in v if not np.isnan(a)]) if none < len(v) else np.nan
+                aud = int(sum(a for _, _, a in v))
+                cov = np.mean([b for a, b, _ in v if not np.isnan(a)]) if none < len(v) else np.nan
                 ee = e[~np.isnan(e)]
                 cell = (f"{ee.mean():+.3f}/{np.abs(ee).mean():.3f}/{cov:4.0%}" if ee.size
                         else "no figure")
                 if none:
                     cell += f" ({none} none)"
-                cells.append(f"{cell:>24s}")
-                summary[(name, order, c)] = (ee, cov, none)
+                if aud:
+                    cell += f" ({aud} aud)"
+                cells.append(f"{cell:>30s}")
+                summary[(name, order, c)] = (ee, cov, none, aud, len(v))
             out(f"  {name:13s} {order:7s}" + "".join(cells))
         out(f"  ({name}: {data['t'].size} windows, {time.perf_counter() - t0:.0f} s)")
-    late = [v for (n, o, c), v in summary.items() if c >= 50]
-    errs = np.concatenate([v[0] for v in late]) if late else np.zeros(0)
-    covs = [v[1] for v in late if not np.isnan(v[1])]
-    out(f"  from 50 confirmations on: mean |error| {np.abs(errs).mean():.3f} (goal <= 0.05), "
-        f"worst cell coverage {min(covs):.0%}, mean coverage {np.mean(covs):.0%} (goal >= 90 %)")
+    late = {key: v for key, v in summary.items() if key[2] >= 50}
+    errs = np.concatenate([v[0] for v in late.values()]) if late else np.zeros(0)
+    covs = [v[1] for v in late.values() if not np.isnan(v[1])]
+    cell_err = [np.abs(v[0]).mean() for v in late.values() if v[0].size]
+    none_cells = sum(1 for v in late.values() if v[2])
+    none_runs = sum(v[2] for v in late.values())
+    aud_runs = sum(v[3] for v in late.values())
+    runs = sum(v[4] for v in late.values())
+    out(f"  from 50 confirmations on: mean |error| {np.abs(errs).mean():.3f}, worst cell "
+        f"{max(cell_err):.3f} (goal <= 0.05); coverage worst cell {min(covs):.0%}, mean "
+        f"{np.mean(covs):.0%} (goal >= 90 %); cells with a run without a figure: {none_cells} of "
+        f"{len(late)} ({none_runs} of {runs} runs); runs resting on an audit: {aud_runs}")
     return summary
 
 
@@ -267,13 +320,15 @@ def main(argv=None):
     ap.add_argument("--repeats", type=int, default=None)
     ap.add_argument("--data", nargs="*", default=list(DATASETS))
     ap.add_argument("--orders", nargs="*", default=list(ORDERS))
+    ap.add_argument("--audit", type=int, default=AUDIT, metavar="N",
+                    help="size of the audit answered where the estimate has no figure (0: never)")
     ap.add_argument("--speed", type=int, default=None, metavar="N",
                     help="only time the estimate in a project of N windows")
     a = ap.parse_args(argv)
     if a.speed:
         speed(a.speed)
         return
-    table(a.data, a.orders, a.repeats or (3 if a.quick else 10), a.quick)
+    table(a.data, a.orders, a.repeats or (3 if a.quick else 10), a.quick, audit_size=a.audit)
 
 
 if __name__ == "__main__":

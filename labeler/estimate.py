@@ -33,15 +33,23 @@ The estimate here works with such confirmations in three steps.
 3. **Importance weights** for windows whose selection probability is known: a window drawn by a
    stochastic review queue with probability ``q`` from a pool of ``N`` counts ``1 / (N q)`` times
    (Kossen, Farquhar, Gal & Rainforth, "Active Testing: Sample-Efficient Model Evaluation", ICML
-   2021; the self-normalised Hajek form). :func:`importance_weighted_accuracy` gives the plain
-   weighted share of the answers that were right, for the proposals current when they were shown.
-   Audit windows drawn with stratified sampling by confidence (:func:`draw_stratified_audit`,
-   Neyman allocation; Cochran, "Sampling Techniques", 3rd ed. 1977, ch. 5) weigh ``N_h / n_h``;
-   :func:`stratified_accuracy` is Cochran's stratified estimator of a proportion.
+   2021; the self-normalised Hajek form). The weights enter the headline through the
+   calibration: each pooled block of the isotonic map is the weighted share of its held-out
+   answers that came out right, so where the held-out confidences tie the headline *is*
+   :func:`importance_weighted_accuracy` of the held-out answers; the bootstrap resamples
+   stretches with their weights, and the interval's floor counts each stretch by its mean weight
+   (Kish's effective size below). Audit windows drawn with stratified sampling by confidence
+   (:func:`draw_stratified_audit`, Neyman allocation; Cochran, "Sampling Techniques", 3rd ed.
+   1977, ch. 5) weigh ``N_h / n_h``; :func:`stratified_accuracy` is Cochran's stratified
+   estimator of a proportion. An audit's answers the proposals learned from are scored by
+   proposals made without them (:func:`audit_held_out`), so one audit keeps measuring the
+   proposals as they improve; cross-validation then leaves them to the audit (``exclude``) and
+   :func:`with_audit` joins the two.
 
-Intervals: a bootstrap over stretches (whole stretches are resampled, the calibration refitted);
-for survey estimates a Wilson interval (Wilson 1927) at the Kish effective sample size
-``(sum w)^2 / sum w^2`` (Kish, "Survey Sampling", 1965), so it stays inside [0, 1].
+Intervals: a bootstrap over stretches (whole stretches are resampled, the calibration refitted),
+widened to at least a Wilson interval (Wilson 1927) at the effective number of stretches; for
+survey estimates a Wilson interval at the Kish effective sample size ``(sum w)^2 / sum w^2``
+(Kish, "Survey Sampling", 1965), so it stays inside [0, 1].
 
 :func:`combine` joins independent estimates by inverse-variance weighting into one headline whose
 note says what it rests on.
@@ -285,6 +293,38 @@ def held_out_predictions(graph, y, plan: FoldPlan, *, recording=None, seq=None,
     return HeldOut(*(np.concatenate(a) for a in zip(*parts)))
 
 
+#: Answered audit windows are hidden in this many groups (at most) to be scored by proposals made
+#: without them: small groups keep the proposals close to the full ones (hiding every answer at
+#: once would drop many confirmations in a young project), few groups keep the cost down.
+AUDIT_FOLDS = 5
+
+
+def audit_held_out(graph, y, audit_mask, *, recording=None, seq=None, gap: int = DEFAULT_GAP,
+                   spreader=None, init=None, init_classes=None, n_folds: int = AUDIT_FOLDS,
+                   random_state=0) -> np.ndarray:
+    """Label the proposals give each confirmed window of ``audit_mask`` when it is hidden (with
+    confirmed windows within ``gap`` steps, :func:`training_mask`) and the rest train: the answers
+    of an audit drawn from earlier proposals scored against the current ones, so an audit keeps
+    measuring the proposals as they improve. Returns one label per window (-1 outside the mask).
+
+    The answers are dealt at random into at most ``n_folds`` groups, each hidden in turn.
+    """
+    y = _labels(y)
+    m = np.asarray(audit_mask, dtype=bool) & (y >= 0)
+    out = np.full(y.size, -1, dtype=np.int64)
+    idx = np.flatnonzero(m)
+    if idx.size == 0:
+        return out
+    k = int(min(n_folds, idx.size))
+    fold = np.full(y.size, -1, dtype=np.int64)
+    fold[idx] = np.random.default_rng(random_state).permutation(idx.size) % k
+    plan = FoldPlan(fold, k, np.where(m, np.arange(y.size), -1), {}, 2)
+    held = held_out_predictions(graph, y, plan, recording=recording, seq=seq, gap=gap,
+                                spreader=spreader, init=init, init_classes=init_classes)
+    out[held.index] = held.predicted
+    return out
+
+
 # --------------------------------------------------------------------------- calibration
 
 class ConfidenceCalibrator(BaseEstimator):
@@ -418,8 +458,10 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
     a = (1 - level) / 2
     lo, hi = (np.quantile(boots, [a, 1 - a]) if boots else (0.0, 1.0))
     # effective number of independent answers: stretches, not windows (windows of a stretch
-    # move together)
-    n_eff = max(1, int(st.size))
+    # move together), each counted by its mean importance weight (Kish's effective size,
+    # (sum a)^2 / sum a^2: a few heavily weighted answers count as few)
+    a_s = np.bincount(st_inv, weights=ws) / np.bincount(st_inv)
+    n_eff = max(1.0, float(a_s.sum() ** 2 / np.dot(a_s, a_s)))
     wl, wh = _wilson_p(value, n_eff, z)
     # the shrinkage pulls blocks towards the overall rate; the interval reaches the unshrunk value
     raw = float(np.dot(hist, ConfidenceCalibrator(0.0).fit(held.confidence, held.correct, w)
@@ -434,7 +476,8 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
                    ece=ece_cal,
                    note=(f"time-blocked cross-validation of {n} confirmed window(s) in {st.size} "
                          f"stretch(es){what}, confidence calibrated on them"),
-                   details={"stretches": int(st.size), "folds": int(np.unique(held.fold).size),
+                   details={"stretches": int(st.size), "effective_stretches": round(n_eff, 1),
+                            "folds": int(np.unique(held.fold).size),
                             "held_out_right": float(np.average(held.correct, weights=w)),
                             "ece_raw": ece_raw, "calibration": cal.as_dict()})
     return est, cal
@@ -485,7 +528,8 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
                       weights=None, spreader=None, init=None, init_classes=None,
                       n_folds: int = DEFAULT_FOLDS, gap: int = DEFAULT_GAP, level: float = 0.95,
                       n_boot: int = 200, random_state=0, class_names=None,
-                      proposed_mask=None, classes=None, proposed_label=None, batch=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
+                      proposed_mask=None, classes=None, proposed_label=None, batch=None,
+                      exclude=None) -> tuple[Estimate, ConfidenceCalibrator | None]:
     """Accuracy of the proposals for the unconfirmed windows of ``y`` (module docstring, 1-2).
 
     ``proposed_confidence`` is the current confidence of every window (the full fit's; computed
@@ -493,7 +537,9 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
     default 1). ``proposed_mask`` limits the windows whose accuracy is wanted (default: all
     unconfirmed). ``batch``: the user action that confirmed each window (see
     :func:`confirmed_stretches`). ``classes``: every class code the project has (a class never confirmed gives
-    no figure). Returns the estimate and the calibrator (None when there is no figure).
+    no figure). ``exclude``: confirmed windows that train but are never hidden nor scored here
+    (audit answers, scored on their own by :func:`audit_held_out`, so the two estimates rest on
+    different windows). Returns the estimate and the calibrator (None when there is no figure).
     """
     from labeler.spreading import LabelSpreader
 
@@ -509,9 +555,10 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
             proposed_label = full.transduction_
     conf = np.asarray(proposed_confidence, dtype=np.float64)
     w_all = np.ones(y.size) if weights is None else np.asarray(weights, dtype=np.float64)
-    plan = blocked_folds(y, recording, seq, n_folds=n_folds, gap=gap, random_state=random_state,
-                         classes=classes, batch=batch)
-    n_conf = int((y >= 0).sum())
+    y_plan = y if exclude is None else np.where(np.asarray(exclude, dtype=bool), -1, y)
+    plan = blocked_folds(y_plan, recording, seq, n_folds=n_folds, gap=gap,
+                         random_state=random_state, classes=classes, batch=batch)
+    n_conf = int((y_plan >= 0).sum())
     never = {c for c, k in plan.short.items() if k == 0}
     unscored = np.zeros(y.size, dtype=bool)
     if plan.short and not never:
@@ -523,7 +570,8 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
         return Estimate(float("nan"), 0.0, 1.0, "none", n_conf,
                         note=missing_note(plan, class_names)), None
     est, cal = _scored_accuracy(graph, y, plan, conf, target & ~unscored, w_all, base, init,
-                                init_classes, recording, seq, gap, level, n_boot, random_state)
+                                init_classes, recording, seq, gap, level, n_boot, random_state,
+                                y_plan >= 0)
     if not unscored.any() or est.basis == "none":
         return est, cal
     # windows proposed as unscored classes: calibrated value, anywhere in [0, 1] for the interval
@@ -538,7 +586,7 @@ def proposal_accuracy(graph, y, proposed_confidence=None, *, recording=None, seq
 
 
 def _scored_accuracy(graph, y, plan, conf, target, w_all, base, init, init_classes, recording,
-                     seq, gap, level, n_boot, random_state):
+                     seq, gap, level, n_boot, random_state, scorable):
     held = held_out_predictions(graph, y, plan, recording=recording, seq=seq, gap=gap,
                                 spreader=base, init=init, init_classes=init_classes)
     parts = [(target, held, "")]
@@ -549,7 +597,7 @@ def _scored_accuracy(graph, y, plan, conf, target, w_all, base, init, init_class
         has[rec[y >= 0]] = True
         orphan = target & ~has[rec]
         if orphan.any() and has.sum() >= 2:
-            lo_plan = FoldPlan(np.where(y >= 0, np.searchsorted(np.flatnonzero(has), rec), -1),
+            lo_plan = FoldPlan(np.where(scorable, np.searchsorted(np.flatnonzero(has), rec), -1),
                                int(has.sum()), plan.stretch, {}, 2)
             lo_held = held_out_predictions(graph, y, lo_plan, recording=recording, seq=seq,
                                            gap=gap, spreader=base, init=init,
@@ -707,6 +755,17 @@ def stratified_accuracy(correct, stratum, stratum_size, *, level: float = 0.95) 
                     note=f"audit: {n} window(s) drawn at random within {strata.size} confidence "
                          "band(s), answered blind; unbiased for the proposals at the draw",
                     details={"strata": int(strata.size), "effective_n": round(n_eff, 1)})
+
+
+def with_audit(cross_validation: Estimate, audit: Estimate | None, *, level: float = 0.95) -> Estimate:
+    """The headline from cross-validation and an answered audit scored on other windows: the
+    audit alone where cross-validation has no figure, both joined by :func:`combine` where it has
+    one, cross-validation alone without an audit."""
+    if audit is None or audit.basis == "none":
+        return cross_validation
+    if cross_validation.basis == "none":
+        return audit
+    return combine([cross_validation, audit], level=level)
 
 
 def combine(estimates, *, level: float = 0.95) -> Estimate:

@@ -87,7 +87,9 @@ class AccuracyReport:
     is right (``confidence`` and ``probability`` knots, see :func:`labeler.estimate.calibrate`),
     None without a figure; ``expected_wrong``: proposed windows expected to be wrong (sum of one
     minus the calibrated confidence); ``likely_wrong``: proposed windows more likely wrong than
-    right. Computed once per proposal run and stored with it.
+    right; ``needs_audit``: there is no figure, and a blind audit (about 30 answers) would give
+    one. Cross-validation is computed once per proposal run and stored with it; the answered audit
+    joins when the report is asked for.
     """
     run_id: int
     estimate: Estimate
@@ -96,6 +98,7 @@ class AccuracyReport:
     calibration: dict | None = None
     expected_wrong: float | None = None
     likely_wrong: int | None = None
+    needs_audit: bool = False
 
     @classmethod
     def from_dict(cls, d: dict) -> "AccuracyReport":
@@ -109,7 +112,8 @@ class AccuracyReport:
         return cls(run_id=int(d["run_id"]), estimate=est(d),
                    training_set=est(d["training_set"]) if d.get("training_set") else None,
                    audit_runs=tuple(d.get("audit_runs") or ()), calibration=d.get("calibration"),
-                   expected_wrong=d.get("expected_wrong"), likely_wrong=d.get("likely_wrong"))
+                   expected_wrong=d.get("expected_wrong"), likely_wrong=d.get("likely_wrong"),
+                   needs_audit=bool(d.get("needs_audit", False)))
 
     @property
     def value(self) -> float | None:
@@ -158,6 +162,7 @@ class AccuracyReport:
         out["calibration"] = self.calibration
         out["expected_wrong"] = self.expected_wrong
         out["likely_wrong"] = self.likely_wrong
+        out["needs_audit"] = self.needs_audit
         return out
 
 

@@ -107,23 +107,32 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     confirm_truth(p, b["window_id"], truth, source="audit")
     st = p.audit_status()
     assert st["stratum"].notna().all() and (st["stratum_size"] >= 1).all()
-    # the estimate belongs to the run: answers after it wait for the next proposals
+    # answers count at once, scored against the proposals they were drawn from (Cochran's
+    # stratified estimator; tests/test_estimate.py checks it on a worked example)
     run1 = p.store.latest_run("proposals")["id"]
     assert e1.run_id == run1 and not e1.audit_runs
-    assert p.accuracy_estimate().as_dict() == e1.as_dict()
-    p.refresh_proposals()
-    est = p.accuracy_estimate()
-    assert est.audit_runs == (run1,) and "audit" in est.basis
-    assert "of proposal run" in est.note
-    audit_src = [s for s in est.estimate.details.get("sources", [est.estimate.as_dict()])
-                 if s["basis"] == "audit"][0]
     from labeler.estimate import stratified_accuracy
     ref = stratified_accuracy((st["correct"] == True).to_numpy(), st["stratum"].to_numpy(int),  # noqa: E712
                               st["stratum_size"].to_numpy(int))
-    assert audit_src["value"] == pytest.approx(ref.value) and audit_src["n"] == 35
+
+    def audit_part(e):
+        return [s for s in e.estimate.details.get("sources", [e.estimate.as_dict()])
+                if s["basis"] == "audit"][0]
+
+    now = p.accuracy_estimate()
+    assert now.run_id == run1 and now.audit_runs == (run1,) and "audit" in now.basis
+    assert audit_part(now)["value"] == pytest.approx(ref.value) and audit_part(now)["n"] == 35
+    assert f"scored against proposal run {run1}" in now.note and "hidden" not in now.note
+    # the next proposals learned from the answers: each is scored by proposals made without it
+    p.refresh_proposals()
+    est = p.accuracy_estimate()
+    run2 = p.store.latest_run("proposals")["id"]
+    assert est.audit_runs == (run1,) and "audit" in est.basis
+    assert f"scored against proposal run {run2} (35 of them hidden from it in turn" in est.note
+    assert audit_part(est)["n"] == 35
     assert est.low <= est.value <= est.high
     assert est.training_set.value >= est.value
-    # the proposals at draw time were scored, not later ones
+    assert p.accuracy_estimate().as_dict() == est.as_dict()  # the same when asked again
     props = p.proposals().set_index("window_id")
     assert set(st["window_id"]) <= set(props.index)
 
@@ -224,6 +233,8 @@ def test_cli_commands(project, sims):
     assert r.exit_code == 0, r.output
     if e.basis == "none":
         assert "no figure yet" in r.output and "stretch" in r.output
+        assert e.needs_audit
+        assert f"for a figure now: `labeler audit {path} -n 30`, then label each" in r.output
     else:
         assert f"{e.value:.3f}" in r.output and "cross-validation of 30 confirmed" in r.output
     r = run("propose", path, "--alpha", "1.5")

@@ -262,7 +262,9 @@ def estimate(est) -> str:
     acc, lo, hi = est.value, est.low, est.high
     note = escape(str(est.note or ""))
     if est.basis == "none" or acc is None:
-        return "<b>No accuracy figure yet</b><br>" + span("muted", note)
+        todo = ("<br>For a figure now: press <b>Audit</b> and label each of the windows it shows; "
+                "the figure follows the answers." if getattr(est, "needs_audit", False) else "")
+        return "<b>No accuracy figure yet</b><br>" + span("muted", note) + todo
     parts = [f"<b>Proposals are right about {_pct(acc)} of the time</b> (95% interval "
              f"{_pct(lo)}–{_pct(hi)})"]
     if est.expected_wrong is not None:

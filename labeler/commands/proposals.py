@@ -143,6 +143,11 @@ def accuracy_cmd(project, annotator):
         e = p.accuracy_estimate()
     if e.basis == "none":
         click.echo(f"proposals run {e.run_id}: {e.note}")
+        if e.needs_audit:
+            click.echo(f"  for a figure now: `labeler audit {project} -n 30`, then label each drawn "
+                       f"window (`labeler confirm {project} CLASS --windows ID`, or `labeler "
+                       f"answer {project} mixed|unsure --windows ID`) and run `labeler accuracy "
+                       f"{project}` again")
         return
     click.echo(f"accuracy of proposed windows {e.value:.3f} ({e.level:.0%} interval "
                f"{e.low:.3f}-{e.high:.3f}), proposals run {e.run_id}")

@@ -4,8 +4,12 @@ An audit draws proposed, unconfirmed windows at random within bands of confidenc
 stores the proposal, its band and the band's size with the draw; the annotator labels them without
 seeing it. The estimate (:mod:`labeler.estimate`) is computed once per proposal run and stored with
 it: time-blocked cross-validation of the confirmed windows (answers the review queue drew at random
-weighted by their probability), the confidence calibrated on it, and the answered audit combined
-into one headline.
+weighted by their probability), the confidence calibrated on it. The answered audit joins into one
+headline when the estimate is asked for: each answer the run learned from is scored by proposals
+made without it (computed with the run), each answer given since by the run's own proposal, so an
+audit keeps measuring the proposals as they improve and its answers count at once. Where the
+cross-validation has no figure yet (a class confirmed in one stretch or one action only), the
+answered audit alone gives it, and the report says an audit would.
 """
 
 from __future__ import annotations
@@ -28,6 +32,8 @@ from labeler.service.proposals import GRAPH_PARAMS, Proposals
 AUDIT_COLUMNS = ["id", "run_id", "window_id", "position", "drawn_at", "drawn_by",
                  "proposed_class_id", "confidence", "stratum", "stratum_size"]
 ESTIMATE_BLOB = "proposals/estimate"
+#: Form of the stored part of the estimate; a part stored in another form is computed again.
+ESTIMATE_FORM = 2
 
 
 class Audits:
@@ -103,26 +109,43 @@ class Audits:
                    "stratum", "stratum_size"]]
 
     def accuracy_estimate(self) -> AccuracyReport:
-        """The accuracy estimate of the latest proposal run: the one stored with the run, or
-        computed now and stored (once per run; a read-only project computes without storing)."""
+        """The accuracy estimate of the latest proposal run.
+
+        The slow part (cross-validation of the confirmations, the audit answers the run had
+        scored without them) is computed once per run and stored with it (a read-only project
+        computes without storing); the answered audit joins when asked, so answers given since
+        the run count at once, scored against the run's proposals.
+        """
         run = self.ctx.store.latest_run("proposals")
         if run is None:
             raise InputError(f"{self.ctx.path}: no proposals yet; run `labeler propose` first")
         got = self.ctx.store.get_blob(ESTIMATE_BLOB)
-        if got is not None and got[1].get("run_id") == run["id"]:
-            return AccuracyReport.from_dict(json.loads(got[0]))
-        report = self.compute(run)
-        if not self.ctx.store.readonly:  # read-only: computed, not kept
-            data = json.dumps(json_ready(report.as_dict())).encode()
-            self.ctx.store.put_blob(ESTIMATE_BLOB, data, {"run_id": int(run["id"])},
-                                    run_id=int(run["id"]))
-        return report
+        if (got is not None and got[1].get("run_id") == run["id"]
+                and got[1].get("form") == ESTIMATE_FORM):
+            part = json.loads(got[0])
+        else:
+            part = self.compute(run)
+            if not self.ctx.store.readonly:  # read-only: computed, not kept
+                data = json.dumps(json_ready(part)).encode()
+                self.ctx.store.put_blob(ESTIMATE_BLOB, data,
+                                        {"run_id": int(run["id"]), "form": ESTIMATE_FORM},
+                                        run_id=int(run["id"]))
+        return self._report(run, part)
 
-    def compute(self, run: dict) -> AccuracyReport:
-        """The estimate of ``run`` (the latest proposal run; see the module docstring)."""
-        from labeler.estimate import (combine, importance_weights, proposal_accuracy,
-                                      stratified_accuracy)
-        from labeler.quality import audit_accuracy, training_set_estimate
+    def _latest_audit(self, run_id: int) -> pd.DataFrame:
+        """Answered windows of the latest audit drawn from run ``run_id`` or before ("not sure"
+        left out: it says nothing about the proposal)."""
+        a = self.status()
+        done = a[a["answer"].notna() & (a["answer"] != ANSWERS["unsure"]) & (a["run_id"] <= run_id)]
+        if not len(done):
+            return done
+        return done[done["run_id"] == int(done["run_id"].max())]
+
+    def compute(self, run: dict) -> dict:
+        """The slow part of the estimate of ``run`` (the latest proposal run; see the module
+        docstring): cross-validation of the confirmations (the latest audit's answers left to the
+        audit), and the label each audit answer the run learned from gets when it is hidden."""
+        from labeler.estimate import audit_held_out, importance_weights, proposal_accuracy
         from labeler.spreading import LabelSpreader
 
         p = self.proposals.latest_arrays()
@@ -155,41 +178,80 @@ class Audits:
             pos = np.searchsorted(ids, wb)
             ok = (pos < ids.size) & (ids[np.minimum(pos, ids.size - 1)] == wb)
             batch[pos[ok]] = code[ok]
+        audit = self._latest_audit(int(run["id"]))
+        in_audit = np.isin(ids, audit["window_id"].to_numpy(np.int64)) & (y >= 0)
+        spreader = LabelSpreader(alpha=run["params"]["alpha"])
         cv, cal = proposal_accuracy(
-            W, y, conf, recording=rid, seq=seq, weights=weights, batch=batch,
-            spreader=LabelSpreader(alpha=run["params"]["alpha"]), init=p["F"].astype(np.float64),
-            init_classes=p["classes"], classes=codes, class_names=names, proposed_label=p["label"],
-            random_state=int(run["id"]))
-        if len(draws):
+            W, y, conf, recording=rid, seq=seq, weights=weights, batch=batch, spreader=spreader,
+            init=p["F"].astype(np.float64), init_classes=p["classes"], classes=codes,
+            class_names=names, proposed_label=p["label"], random_state=int(run["id"]),
+            exclude=in_audit)
+        if len(draws) and cv.basis != "none":
             cv.note += (f"; {len(draws)} answer(s) the review queue drew at random weighted by "
                         "how likely they were to be drawn")
-        # the latest audit with answers, of this run or an earlier one
-        a = self.status()
-        # "not sure" says nothing about the proposal; "mixed" counts against it (the proposal
-        # gave one activity to a window that spans two)
-        done = a[a["answer"].notna() & (a["answer"] != ANSWERS["unsure"]) & (a["run_id"] <= run["id"])]
-        audit, audit_runs = None, ()
-        if len(done):
-            last = int(done["run_id"].max())
-            d = done[done["run_id"] == last]
-            ok = (d["proposed"] == d["answer"]).to_numpy()
-            if d["stratum"].notna().all():
-                audit = stratified_accuracy(ok, d["stratum"].to_numpy(np.int64),
-                                            d["stratum_size"].to_numpy(np.int64))
+        held = audit_held_out(W, y, in_audit, recording=rid, seq=seq, spreader=spreader,
+                              init=p["F"].astype(np.float64), init_classes=p["classes"],
+                              random_state=int(run["id"]))
+        return {"cv": AccuracyReport(run_id=int(run["id"]), estimate=cv,
+                                     calibration=None if cal is None else cal.as_dict()).as_dict(),
+                "audit_held": {str(int(ids[i])): int(held[i]) for i in np.flatnonzero(in_audit)}}
+
+    def _report(self, run: dict, part: dict) -> AccuracyReport:
+        """The report of ``run`` from its stored part and the audit as answered now."""
+        from labeler.estimate import calibrate, stratified_accuracy, with_audit
+        from labeler.quality import training_set_estimate
+
+        cv = AccuracyReport.from_dict(part["cv"])
+        held = {int(k): int(v) for k, v in part["audit_held"].items()}
+        p = self.proposals.latest_arrays()
+        y = p["y"].astype(np.int64)
+        ids = p["window_id"].astype(np.int64)
+        unconfirmed = dict(zip(ids[y < 0].tolist(), p["label"][y < 0].tolist()))
+        d = self._latest_audit(int(run["id"]))
+        code = {str(v): int(k) for k, v in self.ledger.class_names().items()}
+        ok, keep, n_held = [], [], 0
+        for r in d.itertuples(index=False):
+            wid = int(r.window_id)
+            if r.answer == ANSWERS["mixed"]:  # the proposal gave one activity to a window of two
+                ok.append(False)
+            elif held.get(wid, -1) >= 0:  # the run learned from it: scored without it
+                ok.append(held[wid] == code.get(str(r.answer), -1))
+                n_held += 1
+            elif wid in unconfirmed:  # answered since the run: the run's own proposal
+                ok.append(int(unconfirmed[wid]) == code.get(str(r.answer), -1))
             else:
-                audit = audit_accuracy(d["proposed"].to_numpy(object), d["answer"].to_numpy(object))
-            audit.note += f"; of proposal run {last}"
-            audit_runs = (last,)
-        est = combine([cv, audit]) if audit is not None and cv.basis != "none" else \
-            (cv if audit is None else audit)
-        report = AccuracyReport(run_id=int(run["id"]), estimate=est, audit_runs=audit_runs)
+                continue
+            keep.append(r)
+        audit, audit_runs = None, ()
+        if keep:
+            k = pd.DataFrame(keep)
+            if k["stratum"].notna().all():
+                audit = stratified_accuracy(np.array(ok), k["stratum"].to_numpy(np.int64),
+                                            k["stratum_size"].to_numpy(np.int64))
+            else:
+                from labeler.quality import audit_accuracy
+                audit = audit_accuracy(np.array(ok), np.ones(len(ok), dtype=bool))
+            audit.note = (f"audit: {len(keep)} window(s) drawn at random within confidence bands "
+                          f"from proposal run {int(k['run_id'].iloc[0])} and answered blind, "
+                          f"scored against proposal run {int(run['id'])}"
+                          + (f" ({n_held} of them hidden from it in turn, as it learned from them)"
+                             if n_held else ""))
+            audit_runs = (int(k["run_id"].iloc[0]),)
+        est = with_audit(cv.estimate, audit)
+        if est.basis == "none":
+            est.note += ("; or answer a blind audit of about 30 windows: the figure then rests on "
+                         "it")
+        report = AccuracyReport(run_id=int(run["id"]), estimate=est, audit_runs=audit_runs,
+                                needs_audit=est.basis == "none")
         proposed = y < 0
-        if cal is not None:
-            from labeler.estimate import calibrate
-            report.calibration = cal.as_dict()
+        conf = p["confidence"].astype(np.float64)
+        if cv.calibration:
+            report.calibration = cv.calibration
             pc = calibrate(conf[proposed], report.calibration)
             report.expected_wrong = float((1 - pc).sum())
             report.likely_wrong = int((pc < 0.5).sum())
+        elif est.basis != "none":
+            report.expected_wrong = float((1 - est.value) * proposed.sum())
         n_conf, n_prop = int((y >= 0).sum()), int(proposed.sum())
         if est.basis != "none" and n_conf + n_prop:
             report.training_set = training_set_estimate(est, n_conf, n_prop)
