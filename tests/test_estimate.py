@@ -6,10 +6,10 @@ from sklearn.datasets import load_digits
 from sklearn.isotonic import IsotonicRegression
 
 from labeler.errors import InputError
-from labeler.estimate import (ConfidenceCalibrator, blocked_folds, calibrate, combine,
-                              confirmed_stretches, draw_stratified_audit,
-                              importance_weighted_accuracy, missing_note, proposal_accuracy,
-                              stratified_accuracy, training_mask)
+from labeler.estimate import (ConfidenceCalibrator, HeldOut, audit_held_out, blocked_folds,
+                              calibrate, calibrated_accuracy, combine, confirmed_stretches,
+                              draw_stratified_audit, importance_weighted_accuracy, missing_note,
+                              proposal_accuracy, stratified_accuracy, training_mask, with_audit)
 from labeler.graph import build_graph
 from labeler.quality import Estimate, wilson_interval
 from labeler.spreading import LabelSpreader
@@ -189,3 +189,64 @@ def test_small_actions_are_hidden_together_and_large_ones_keep_their_stretches()
     st = confirmed_stretches(y, rec, seq, batch=batch, max_batch=3)
     assert st[0] == st[8] and st[1] == st[2] == st[9] and st[0] != st[1]
     assert st[4] == st[5] and st[6] == st[7] and st[4] != st[6]  # the large action: by time
+
+
+def test_queue_weights_enter_the_headline_as_the_importance_weighted_share():
+    # Kossen, Farquhar, Gal & Rainforth, "Active Testing: Sample-Efficient Model Evaluation", 2021
+    # (weights 1/(N q), self-normalised); Kish, "Survey Sampling", 1965 (effective size
+    # (sum w)^2 / sum w^2). Worked by hand: four held-out answers at one confidence, drawn from a
+    # pool of N = 10 with q = 0.1, 0.05, 0.2, 0.1 -> weights 1, 2, 0.5, 1; right, wrong, right,
+    # right -> headline (1 + 0.5 + 1) / 4.5 = 0.5556; effective stretches 4.5^2 / 6.25 = 3.24.
+    held = HeldOut(np.arange(4), np.array([1, 1, 1, 1]), np.array([1, 0, 1, 1]),
+                   np.full(4, 0.7), np.array([0, 1, 0, 1]), np.arange(4))
+    q = np.array([0.1, 0.05, 0.2, 0.1])
+    w = 1 / (10 * q)
+    est, _ = calibrated_accuracy(held, np.full(50, 0.7), weights=w, prior_strength=0.0, n_boot=20)
+    assert est.value == pytest.approx(2.5 / 4.5)
+    assert est.value == pytest.approx(importance_weighted_accuracy(held.correct, q, 10).value)
+    assert est.details["effective_stretches"] == pytest.approx(3.2, abs=0.05)
+    # unweighted the same answers give 3/4, and four whole stretches
+    plain, _ = calibrated_accuracy(held, np.full(50, 0.7), prior_strength=0.0, n_boot=20)
+    assert plain.value == pytest.approx(0.75) and plain.details["effective_stretches"] == 4
+    # two confidences: each level is its own weighted share, the headline their mix over the
+    # proposed windows. At 0.5: right (w 1), wrong (w 3) -> 0.25; at 0.9: right (w 2), right
+    # (w 1), wrong (w 1) -> 0.75; proposed windows half at each -> 0.5.
+    held = HeldOut(np.arange(5), np.ones(5, int), np.array([1, 0, 1, 1, 0]),
+                   np.array([0.5, 0.5, 0.9, 0.9, 0.9]), np.array([0, 1, 0, 1, 0]), np.arange(5))
+    est, cal = calibrated_accuracy(held, np.r_[np.full(10, 0.5), np.full(10, 0.9)],
+                                   weights=np.array([1, 3, 2, 1, 1.0]), prior_strength=0.0,
+                                   n_boot=20)
+    np.testing.assert_allclose(cal.predict([0.5, 0.9]), [0.25, 0.75])
+    assert est.value == pytest.approx(0.5, abs=1e-3)  # averaged through bins 1/2000 wide
+    assert est.low <= est.value <= est.high
+
+
+def test_audit_answers_are_scored_by_proposals_made_without_them():
+    # digits (scikit-learn; Alpaydin & Kaynak 1998): answers the proposals learned from are
+    # hidden in turn; the share they get right is close to the share the same proposals get right
+    # on windows nobody confirmed (the audit is a random sample of them).
+    W, t, y, sp = _digits_state(n_conf=80, seed=3)
+    rng = np.random.default_rng(5)
+    free = np.flatnonzero(y < 0)
+    audit = rng.choice(free, 150, replace=False)
+    y2 = y.copy()
+    y2[audit] = t[audit]
+    sp2 = LabelSpreader().fit(W, y2)
+    mask = np.zeros(t.size, dtype=bool)
+    mask[audit] = True
+    pred = audit_held_out(W, y2, mask, random_state=0)
+    assert (pred[~mask] == -1).all() and (pred[mask] >= 0).all()
+    held_right = (pred[audit] == t[audit]).mean()
+    rest = y2 < 0
+    true_right = (sp2.transduction_[rest] == t[rest]).mean()
+    assert abs(held_right - true_right) < 0.08
+    # scored as confirmations they would be always right: hiding them is what makes them count
+    assert (sp2.transduction_[audit] == t[audit]).mean() > held_right
+    # cross-validation leaves them to the audit, and the audit alone stands where it has no figure
+    cv, _ = proposal_accuracy(W, y2, exclude=mask, n_boot=20)
+    assert cv.n == int((y >= 0).sum())
+    a = stratified_accuracy(pred[audit] == t[audit], np.zeros(150, int), np.full(150, rest.sum()))
+    none = Estimate(float("nan"), 0.0, 1.0, "none", 0, note="no figure")
+    assert with_audit(none, a) is a and with_audit(cv, None) is cv
+    both = with_audit(cv, a)
+    assert both.basis == f"{cv.basis} + audit"
