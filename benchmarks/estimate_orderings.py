@@ -41,8 +41,8 @@ import time
 
 import numpy as np
 
-from labeler.estimate import (audit_held_out, draw_stratified_audit, proposal_accuracy,
-                              stratified_accuracy, with_audit)
+from labeler.estimate import (audit_accuracy, audit_held_out, draw_stratified_audit,
+                              proposal_accuracy, with_audit)
 from labeler.graph import build_graph
 from labeler.review import review_queue
 from labeler.service.proposals import QUEUE_FLOOR, QUEUE_POWER
@@ -145,9 +145,12 @@ def _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed):
                               n_boot=n_boot, random_state=seed, exclude=mask, **kw)
     if audit is None:
         return cv
-    idx, stratum, size = audit
-    pred = audit_held_out(W, y, mask, random_state=seed, **kw)[idx]
-    a = stratified_accuracy(pred == y[idx], stratum, size, level=level)
+    idx, stratum, size = audit  # idx sorted
+    h = audit_held_out(W, y, mask, random_state=seed, **kw)
+    j = np.searchsorted(idx, h.index)
+    a, _ = audit_accuracy(h.correct, h.confidence, stratum[j], size[j],
+                          sp.label_distributions_.max(axis=1)[y < 0], level=level,
+                          n_boot=n_boot, random_state=seed)
     return with_audit(cv, a, level=level)
 
 

@@ -301,28 +301,59 @@ AUDIT_FOLDS = 5
 
 def audit_held_out(graph, y, audit_mask, *, recording=None, seq=None, gap: int = DEFAULT_GAP,
                    spreader=None, init=None, init_classes=None, n_folds: int = AUDIT_FOLDS,
-                   random_state=0) -> np.ndarray:
-    """Label the proposals give each confirmed window of ``audit_mask`` when it is hidden (with
-    confirmed windows within ``gap`` steps, :func:`training_mask`) and the rest train: the answers
-    of an audit drawn from earlier proposals scored against the current ones, so an audit keeps
-    measuring the proposals as they improve. Returns one label per window (-1 outside the mask).
+                   random_state=0) -> HeldOut:
+    """The label and confidence the proposals give each confirmed window of ``audit_mask`` when
+    it is hidden (with confirmed windows within ``gap`` steps, :func:`training_mask`) and the
+    rest train: the answers of an audit drawn from earlier proposals scored against the current
+    ones, so an audit keeps measuring the proposals as they improve. Returns the held-out
+    predictions (:class:`HeldOut`; ``stretch`` is the window's index: each answer stands alone).
 
     The answers are dealt at random into at most ``n_folds`` groups, each hidden in turn.
     """
     y = _labels(y)
     m = np.asarray(audit_mask, dtype=bool) & (y >= 0)
-    out = np.full(y.size, -1, dtype=np.int64)
     idx = np.flatnonzero(m)
-    if idx.size == 0:
-        return out
     k = int(min(n_folds, idx.size))
     fold = np.full(y.size, -1, dtype=np.int64)
-    fold[idx] = np.random.default_rng(random_state).permutation(idx.size) % k
+    fold[idx] = np.random.default_rng(random_state).permutation(idx.size) % max(k, 1)
     plan = FoldPlan(fold, k, np.where(m, np.arange(y.size), -1), {}, 2)
-    held = held_out_predictions(graph, y, plan, recording=recording, seq=seq, gap=gap,
+    return held_out_predictions(graph, y, plan, recording=recording, seq=seq, gap=gap,
                                 spreader=spreader, init=init, init_classes=init_classes)
-    out[held.index] = held.predicted
-    return out
+
+
+def audit_accuracy(correct, confidence, stratum, stratum_size, proposed_confidence, *,
+                   level: float = 0.95, n_boot: int = 200,
+                   random_state=0) -> tuple[Estimate, ConfidenceCalibrator | None]:
+    """Accuracy of the proposed windows from answered audit windows, each scored by proposals
+    that did not learn from it (its own run's proposal, or :func:`audit_held_out`).
+
+    ``correct``/``confidence``: per answer, whether that proposal was right and its confidence;
+    ``stratum``/``stratum_size``: the confidence band it was drawn from and the band's size.
+    Each answer weighs ``N_h / n_h`` (its inverse chance of being drawn; Cochran 1977, ch. 5)
+    and the confidence is calibrated on the answers (:func:`calibrated_accuracy`, each answer its
+    own stretch), so the headline is the mean calibrated confidence over ``proposed_confidence``:
+    windows next to a confirmation, sure and right, count as what they are, though an answer
+    scored without its own label never is one. Returns the estimate and the calibration.
+    """
+    c = np.asarray(correct, dtype=bool)
+    x = np.asarray(confidence, dtype=np.float64)
+    s = np.asarray(stratum)
+    Nh = np.asarray(stratum_size, dtype=np.float64)
+    if not (c.ndim == 1 and x.shape == c.shape == s.shape == Nh.shape):
+        raise QualityInputError("correct, confidence, stratum and stratum_size must be 1-D of one "
+                                "length")
+    if c.size == 0:
+        return Estimate(float("nan"), 0.0, 1.0, "none", 0, note="no audited window answered yet"), None
+    _, inv, nh = np.unique(s, return_inverse=True, return_counts=True)
+    k = c.size
+    held = HeldOut(np.arange(k), np.ones(k, np.int64), c.astype(np.int64), x,
+                   np.arange(k) % 5, np.arange(k))
+    est, cal = calibrated_accuracy(held, proposed_confidence, weights=Nh / nh[inv], level=level,
+                                   n_boot=n_boot, random_state=random_state)
+    est.basis = "audit"
+    est.note = (f"audit: {k} window(s) drawn at random within {nh.size} confidence band(s) and "
+                "answered blind, confidence calibrated on them")
+    return est, cal
 
 
 # --------------------------------------------------------------------------- calibration
@@ -425,7 +456,7 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
 
     ``held`` are held-out predictions, ``proposed_confidence`` the current confidences of the
     windows whose accuracy is wanted, ``weights`` one importance weight per held-out window
-    (default 1). The interval is the percentile interval of ``n_boot`` refits on stretches drawn
+    (default 1); each stretch (``held.stretch``) weighs as one answer, shared by its windows. The interval is the percentile interval of ``n_boot`` refits on stretches drawn
     with replacement, widened to at least the binomial (Wilson) interval of the held-out windows
     scored at the estimate, so that a handful of answers never gives a narrow interval.
     """
@@ -435,6 +466,11 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
     if n == 0 or conf_p.size == 0:
         return Estimate(float("nan"), 0.0, 1.0, "none", n, note="no held-out window to score"), None
     w = np.ones(n) if weights is None else np.asarray(weights, dtype=np.float64)
+    # each stretch counts as one answer, whatever its length: its windows move together, and a
+    # long hidden stretch (an imported file, a long bout) would otherwise outweigh every other
+    # answer with predictions from proposals that lost most of their examples of its class
+    _, s_inv, s_n = np.unique(held.stretch, return_inverse=True, return_counts=True)
+    w = w / s_n[s_inv]
     cal = ConfidenceCalibrator(prior_strength).fit(held.confidence, held.correct, w)
     hist = _histogram(conf_p)
     value = float(np.dot(hist, cal.predict(_CENTRES)))
@@ -458,9 +494,9 @@ def calibrated_accuracy(held: HeldOut, proposed_confidence, *, weights=None, lev
     a = (1 - level) / 2
     lo, hi = (np.quantile(boots, [a, 1 - a]) if boots else (0.0, 1.0))
     # effective number of independent answers: stretches, not windows (windows of a stretch
-    # move together), each counted by its mean importance weight (Kish's effective size,
-    # (sum a)^2 / sum a^2: a few heavily weighted answers count as few)
-    a_s = np.bincount(st_inv, weights=ws) / np.bincount(st_inv)
+    # move together), each counted by its weight (its windows' mean importance weight; Kish's
+    # effective size, (sum a)^2 / sum a^2: a few heavily weighted answers count as few)
+    a_s = np.bincount(st_inv, weights=ws)
     n_eff = max(1.0, float(a_s.sum() ** 2 / np.dot(a_s, a_s)))
     wl, wh = _wilson_p(value, n_eff, z)
     # the shrinkage pulls blocks towards the overall rate; the interval reaches the unshrunk value

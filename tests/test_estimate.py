@@ -6,10 +6,11 @@ from sklearn.datasets import load_digits
 from sklearn.isotonic import IsotonicRegression
 
 from labeler.errors import InputError
-from labeler.estimate import (ConfidenceCalibrator, HeldOut, audit_held_out, blocked_folds,
-                              calibrate, calibrated_accuracy, combine, confirmed_stretches,
-                              draw_stratified_audit, importance_weighted_accuracy, missing_note,
-                              proposal_accuracy, stratified_accuracy, training_mask, with_audit)
+from labeler.estimate import (ConfidenceCalibrator, HeldOut, audit_accuracy, audit_held_out,
+                              blocked_folds, calibrate, calibrated_accuracy, combine,
+                              confirmed_stretches, draw_stratified_audit,
+                              importance_weighted_accuracy, missing_note, proposal_accuracy,
+                              stratified_accuracy, training_mask, with_audit)
 from labeler.graph import build_graph
 from labeler.quality import Estimate, wilson_interval
 from labeler.spreading import LabelSpreader
@@ -228,25 +229,41 @@ def test_audit_answers_are_scored_by_proposals_made_without_them():
     W, t, y, sp = _digits_state(n_conf=80, seed=3)
     rng = np.random.default_rng(5)
     free = np.flatnonzero(y < 0)
-    audit = rng.choice(free, 150, replace=False)
+    audit = np.sort(rng.choice(free, 150, replace=False))
     y2 = y.copy()
     y2[audit] = t[audit]
     sp2 = LabelSpreader().fit(W, y2)
     mask = np.zeros(t.size, dtype=bool)
     mask[audit] = True
-    pred = audit_held_out(W, y2, mask, random_state=0)
-    assert (pred[~mask] == -1).all() and (pred[mask] >= 0).all()
-    held_right = (pred[audit] == t[audit]).mean()
+    h = audit_held_out(W, y2, mask, random_state=0)
+    assert np.array_equal(np.sort(h.index), audit) and np.all(h.truth == t[h.index])
+    held_right = h.correct.mean()
     rest = y2 < 0
     true_right = (sp2.transduction_[rest] == t[rest]).mean()
     assert abs(held_right - true_right) < 0.08
     # scored as confirmations they would be always right: hiding them is what makes them count
     assert (sp2.transduction_[audit] == t[audit]).mean() > held_right
-    # cross-validation leaves them to the audit, and the audit alone stands where it has no figure
+    # one band holding every proposed window: the calibrated audit is close to the truth
+    conf = sp2.label_distributions_.max(axis=1)[rest]
+    a, cal = audit_accuracy(h.correct, h.confidence, np.zeros(150, int), np.full(150, rest.sum()),
+                            conf, n_boot=50)
+    assert a.basis == "audit" and a.low <= a.value <= a.high and cal is not None
+    assert abs(a.value - true_right) < 0.05
+    # cross-validation leaves the answers to the audit; the audit alone stands where it has none
     cv, _ = proposal_accuracy(W, y2, exclude=mask, n_boot=20)
     assert cv.n == int((y >= 0).sum())
-    a = stratified_accuracy(pred[audit] == t[audit], np.zeros(150, int), np.full(150, rest.sum()))
     none = Estimate(float("nan"), 0.0, 1.0, "none", 0, note="no figure")
     assert with_audit(none, a) is a and with_audit(cv, None) is cv
-    both = with_audit(cv, a)
-    assert both.basis == f"{cv.basis} + audit"
+    assert with_audit(cv, a).basis == f"{cv.basis} + audit"
+
+
+def test_audit_answers_weigh_by_their_inverse_chance_of_being_drawn():
+    # Cochran, "Sampling Techniques", 1977, ch. 5: an answer of band h weighs N_h / n_h. Worked
+    # by hand: band 0 (N = 90) 2 answers, 1 right; band 1 (N = 10) 2 answers, both right; all at
+    # one confidence, so the calibrated value is the weighted share:
+    # (45 * 1 + 5 * 2) / (45 * 2 + 5 * 2) = 55 / 100.
+    a, _ = audit_accuracy([True, False, True, True], np.full(4, 0.8), [0, 0, 1, 1],
+                          [90, 90, 10, 10], np.full(100, 0.8), n_boot=20)
+    assert a.value == pytest.approx(0.55)
+    with pytest.raises(InputError, match="one length"):
+        audit_accuracy([True], [0.5, 0.6], [0], [3], [0.5])

@@ -111,9 +111,12 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     # stratified estimator; tests/test_estimate.py checks it on a worked example)
     run1 = p.store.latest_run("proposals")["id"]
     assert e1.run_id == run1 and not e1.audit_runs
-    from labeler.estimate import stratified_accuracy
-    ref = stratified_accuracy((st["correct"] == True).to_numpy(), st["stratum"].to_numpy(int),  # noqa: E712
-                              st["stratum_size"].to_numpy(int))
+    from labeler.estimate import audit_accuracy
+    props = p.proposals()
+    ref, _ = audit_accuracy((st["correct"] == True).to_numpy(), st["confidence"].to_numpy(float),  # noqa: E712
+                            st["stratum"].to_numpy(int), st["stratum_size"].to_numpy(int),
+                            props.loc[~props["confirmed"], "confidence"].to_numpy(float),
+                            random_state=int(run1))
 
     def audit_part(e):
         return [s for s in e.estimate.details.get("sources", [e.estimate.as_dict()])
@@ -122,6 +125,7 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     now = p.accuracy_estimate()
     assert now.run_id == run1 and now.audit_runs == (run1,) and "audit" in now.basis
     assert audit_part(now)["value"] == pytest.approx(ref.value) and audit_part(now)["n"] == 35
+    assert (audit_part(now)["low"], audit_part(now)["high"]) == pytest.approx((ref.low, ref.high))
     assert f"scored against proposal run {run1}" in now.note and "hidden" not in now.note
     # the next proposals learned from the answers: each is scored by proposals made without it
     p.refresh_proposals()
@@ -133,7 +137,7 @@ def test_queue_audit_and_accuracy_estimate(project, sims):
     assert est.low <= est.value <= est.high
     assert est.training_set.value >= est.value
     assert p.accuracy_estimate().as_dict() == est.as_dict()  # the same when asked again
-    props = p.proposals().set_index("window_id")
+    props = props.set_index("window_id")
     assert set(st["window_id"]) <= set(props.index)
 
 

@@ -194,49 +194,52 @@ class Audits:
                               random_state=int(run["id"]))
         return {"cv": AccuracyReport(run_id=int(run["id"]), estimate=cv,
                                      calibration=None if cal is None else cal.as_dict()).as_dict(),
-                "audit_held": {str(int(ids[i])): int(held[i]) for i in np.flatnonzero(in_audit)}}
+                "audit_held": {str(int(ids[i])): [int(lab_), float(c_)]
+                               for i, lab_, c_ in zip(held.index, held.predicted, held.confidence)}}
 
     def _report(self, run: dict, part: dict) -> AccuracyReport:
         """The report of ``run`` from its stored part and the audit as answered now."""
-        from labeler.estimate import calibrate, stratified_accuracy, with_audit
+        from labeler.estimate import audit_accuracy, calibrate, with_audit
         from labeler.quality import training_set_estimate
 
         cv = AccuracyReport.from_dict(part["cv"])
-        held = {int(k): int(v) for k, v in part["audit_held"].items()}
+        held = {int(k): (int(v[0]), float(v[1])) for k, v in part["audit_held"].items()}
         p = self.proposals.latest_arrays()
         y = p["y"].astype(np.int64)
         ids = p["window_id"].astype(np.int64)
-        unconfirmed = dict(zip(ids[y < 0].tolist(), p["label"][y < 0].tolist()))
+        conf = p["confidence"].astype(np.float64)
+        unconfirmed = {int(w): (int(lab_), float(c_))
+                       for w, lab_, c_ in zip(ids[y < 0], p["label"][y < 0], conf[y < 0])}
         d = self._latest_audit(int(run["id"]))
         code = {str(v): int(k) for k, v in self.ledger.class_names().items()}
-        ok, keep, n_held = [], [], 0
+        rows, n_held = [], 0  # (correct, confidence, stratum, stratum size)
         for r in d.itertuples(index=False):
             wid = int(r.window_id)
-            if r.answer == ANSWERS["mixed"]:  # the proposal gave one activity to a window of two
-                ok.append(False)
-            elif held.get(wid, -1) >= 0:  # the run learned from it: scored without it
-                ok.append(held[wid] == code.get(str(r.answer), -1))
+            if wid in held:  # the run learned from it: scored by proposals made without it
+                lab_, c_ = held[wid]
                 n_held += 1
             elif wid in unconfirmed:  # answered since the run: the run's own proposal
-                ok.append(int(unconfirmed[wid]) == code.get(str(r.answer), -1))
+                lab_, c_ = unconfirmed[wid]
             else:
                 continue
-            keep.append(r)
-        audit, audit_runs = None, ()
-        if keep:
-            k = pd.DataFrame(keep)
-            if k["stratum"].notna().all():
-                audit = stratified_accuracy(np.array(ok), k["stratum"].to_numpy(np.int64),
-                                            k["stratum_size"].to_numpy(np.int64))
-            else:
-                from labeler.quality import audit_accuracy
-                audit = audit_accuracy(np.array(ok), np.ones(len(ok), dtype=bool))
-            audit.note = (f"audit: {len(keep)} window(s) drawn at random within confidence bands "
-                          f"from proposal run {int(k['run_id'].iloc[0])} and answered blind, "
-                          f"scored against proposal run {int(run['id'])}"
-                          + (f" ({n_held} of them hidden from it in turn, as it learned from them)"
-                             if n_held else ""))
-            audit_runs = (int(k["run_id"].iloc[0]),)
+            # "mixed" counts against the proposal: it gave one activity to a window of two
+            right = r.answer != ANSWERS["mixed"] and lab_ == code.get(str(r.answer), -1)
+            rows.append((right, c_, r.stratum, r.stratum_size, int(r.run_id)))
+        audit, audit_cal, audit_runs = None, None, ()
+        if rows:
+            c, x, st, size, drawn = (np.array(v, dtype=object) for v in zip(*rows))
+            if any(v is None or v != v for v in st):  # drawn without bands: one band of all
+                st, size = np.zeros(len(rows)), np.full(len(rows), max(len(unconfirmed), 1))
+            audit, audit_cal = audit_accuracy(c.astype(bool), x.astype(np.float64),
+                                              st.astype(np.int64), size.astype(np.int64),
+                                              conf[y < 0], random_state=int(run["id"]))
+            audit.note = (f"audit: {len(rows)} window(s) drawn at random within confidence bands "
+                          f"from proposal run {int(drawn[0])} and answered blind, scored against "
+                          f"proposal run {int(run['id'])}"
+                          + (f" ({n_held} of them hidden from it in turn, as it learned from "
+                             "them)" if n_held else "")
+                          + ", its confidence calibrated on them")
+            audit_runs = (int(drawn[0]),)
         est = with_audit(cv.estimate, audit)
         if est.basis == "none":
             est.note += ("; or answer a blind audit of about 30 windows: the figure then rests on "
@@ -245,8 +248,8 @@ class Audits:
                                 needs_audit=est.basis == "none")
         proposed = y < 0
         conf = p["confidence"].astype(np.float64)
-        if cv.calibration:
-            report.calibration = cv.calibration
+        if cv.calibration or (audit_cal is not None and est.basis == "audit"):
+            report.calibration = cv.calibration or audit_cal.as_dict()
             pc = calibrate(conf[proposed], report.calibration)
             report.expected_wrong = float((1 - pc).sum())
             report.likely_wrong = int((pc < 0.5).sum())
