@@ -267,3 +267,20 @@ def test_audit_answers_weigh_by_their_inverse_chance_of_being_drawn():
     assert a.value == pytest.approx(0.55)
     with pytest.raises(InputError, match="one length"):
         audit_accuracy([True], [0.5, 0.6], [0], [3], [0.5])
+
+
+def test_windows_more_likely_wrong_than_right_are_where_the_errors_are():
+    # digits (scikit-learn; Alpaydin & Kaynak 1998), 100 random confirmations: the proposals
+    # whose calibrated confidence is under one half (what `labeler propose` counts as "more
+    # likely wrong than right") are wrong far more often than the rest, and the expected number
+    # of wrong proposals (sum of one minus the calibrated confidence) is near the true one.
+    W, t, y, sp = _digits_state(n_conf=100, seed=0)
+    conf = sp.label_distributions_.max(axis=1)
+    est, cal = proposal_accuracy(W, y, conf, proposed_label=sp.transduction_, n_boot=20)
+    un = y < 0
+    wrong = sp.transduction_[un] != t[un]
+    pc = cal.predict(conf[un])
+    likely = pc < 0.5
+    assert likely.sum() >= 10
+    assert wrong[likely].mean() >= 3 * wrong.mean()
+    assert abs((1 - pc).sum() - wrong.sum()) <= 0.5 * wrong.sum()
