@@ -245,3 +245,16 @@ def test_cli_commands(project, sims):
     assert r.exit_code == 2 and "alpha" in r.output
     r = run("queue", path, "-n", "0")
     assert r.exit_code == 2 and "Invalid value for '-n'" in r.output
+
+
+def test_without_a_figure_the_app_says_how_to_get_one():
+    from labeler.app import words
+    from labeler.quality import Estimate
+    from labeler.results import AccuracyReport
+
+    none = Estimate(float("nan"), 0.0, 1.0, "none", 0, note="no figure yet: walking (1 stretch)")
+    text = words.estimate(AccuracyReport(run_id=3, estimate=none, needs_audit=True))
+    assert "No accuracy figure yet" in text and "press <b>Audit</b>" in text
+    assert "press" not in words.estimate(AccuracyReport(run_id=3, estimate=none))
+    back = AccuracyReport.from_dict(AccuracyReport(run_id=3, estimate=none, needs_audit=True).as_dict())
+    assert back.needs_audit
