@@ -351,6 +351,10 @@ def audit_accuracy(correct, confidence, stratum, stratum_size, proposed_confiden
     est, cal = calibrated_accuracy(held, proposed_confidence, weights=Nh / nh[inv], level=level,
                                    n_boot=n_boot, random_state=random_state)
     est.basis = "audit"
+    # a cross-fitted calibration error on a few dozen answers says more about the folds than
+    # about the calibration: none is reported
+    est.ece = None
+    est.details.pop("ece_raw", None)
     est.note = (f"audit: {k} window(s) drawn at random within {nh.size} confidence band(s) and "
                 "answered blind, confidence calibrated on them")
     return est, cal
