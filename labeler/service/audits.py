@@ -208,9 +208,13 @@ class Audits:
         y = p["y"].astype(np.int64)
         ids = p["window_id"].astype(np.int64)
         conf = p["confidence"].astype(np.float64)
-        unconfirmed = {int(w): (int(lab_), float(c_))
-                       for w, lab_, c_ in zip(ids[y < 0], p["label"][y < 0], conf[y < 0])}
-        d = self._latest_audit(int(run["id"]))
+        # no audit drawn: nothing to read (keeps `labeler accuracy` quick in a large project)
+        d = self._latest_audit(int(run["id"])) if self.ctx.store.audits() else pd.DataFrame(
+            columns=["window_id", "run_id", "answer", "stratum", "stratum_size"])
+        pos = np.searchsorted(ids, d["window_id"].to_numpy(np.int64))
+        pos = np.minimum(pos, max(ids.size - 1, 0))
+        unconfirmed = {int(w): (int(p["label"][i]), float(conf[i]))
+                       for w, i in zip(d["window_id"], pos) if ids[i] == w and y[i] < 0}
         code = {str(v): int(k) for k, v in self.ledger.class_names().items()}
         rows, n_held = [], 0  # (correct, confidence, stratum, stratum size)
         for r in d.itertuples(index=False):
@@ -229,7 +233,7 @@ class Audits:
         if rows:
             c, x, st, size, drawn = (np.array(v, dtype=object) for v in zip(*rows))
             if any(v is None or v != v for v in st):  # drawn without bands: one band of all
-                st, size = np.zeros(len(rows)), np.full(len(rows), max(len(unconfirmed), 1))
+                st, size = np.zeros(len(rows)), np.full(len(rows), max(int((y < 0).sum()), 1))
             audit, audit_cal = audit_accuracy(c.astype(bool), x.astype(np.float64),
                                               st.astype(np.int64), size.astype(np.int64),
                                               conf[y < 0], random_state=int(run["id"]))
