@@ -343,3 +343,63 @@ def test_a_ninth_class_takes_another_shape(driver, served):
         "return Array.from(r.glyph.marker.transform.v_compute([0, 7, 8, 15, 16, -1]));")
     assert shapes[0] == shapes[1] == "circle" and shapes[-1] == "circle"
     assert shapes[2] == shapes[3] != "circle" and shapes[4] not in ("circle", shapes[2])
+
+
+def _click_in(driver, name, css):
+    """A real click on an element inside a Div's shadow root."""
+    from selenium.webdriver.common.by import By
+
+    host = _wait(lambda: driver.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name(arguments[0]);"
+        "return Bokeh.index.get_one(m).el;", name), 20, f"the {name} panel")
+    _wait(lambda: host.shadow_root.find_element(By.CSS_SELECTOR, css), 20, css).click()
+
+
+def test_between_and_not_sure_answer_the_review_item(driver, served):
+    """The slip's 'between activities' button and the N key answer the review item: written to the
+    file with the answer's class and source queue, the review moves on, the feedback line says it;
+    U takes each back."""
+    srv, path = served
+    with Project.open(path, readonly=True) as p:
+        labeled = set(p.labels()["window_id"])
+        events_before = len(p.history())
+    _open(driver, srv.url)
+    driver.execute_script("document.activeElement && document.activeElement.blur()")
+    _key(driver, "r")
+    pos = 1
+    item = _wait(lambda: (lambda t: t if "Review 1 of" in t else None)(
+        _div_text(driver, "queue_item")), 20, "the first queue item")
+    wid = int(item.split("window ")[1].split(" ")[0])
+    while wid in labeled:                   # an answer to a window nobody labeled
+        _key(driver, "s")
+        pos += 1
+        item = _wait(lambda: (lambda t: t if f"Review {pos} of" in t else None)(
+            _div_text(driver, "queue_item")), 20, "the next queue item")
+        wid = int(item.split("window ")[1].split(" ")[0])
+    _click_in(driver, "queue_item", "button[data-cmd='answer:between']")
+
+    def last_events(k):
+        with Project.open(path, readonly=True) as p:
+            ev = p.history()
+        return ev.iloc[events_before:] if len(ev) >= events_before + k else None
+
+    new = _wait(lambda: last_events(1), 20, "the answer in the file")
+    assert new.iloc[-1]["window_id"] == wid and new.iloc[-1]["class"] == "(mixed)"
+    assert new.iloc[-1]["source"] == "queue"
+    _wait(lambda: "between activities" in _div_text(driver, "message") or None, 20,
+          "the feedback line")
+    item = _wait(lambda: (lambda t: t if f"Review {pos + 1} of" in t else None)(
+        _div_text(driver, "queue_item")), 20, "the review to move on")
+    nxt = int(item.split("window ")[1].split(" ")[0])
+    _key(driver, "n")
+    new = _wait(lambda: last_events(2), 20, "the second answer in the file")
+    assert new.iloc[-1]["window_id"] == nxt and new.iloc[-1]["class"] == "(not sure)"
+    _wait(lambda: "not sure" in _div_text(driver, "message") or None, 20, "the feedback line")
+    ARTIFACTS.mkdir(exist_ok=True)
+    driver.save_screenshot(str(ARTIFACTS / "app_answered.png"))
+    _key(driver, "u")
+    _wait(lambda: last_events(3), 20, "the first undo")
+    _key(driver, "u")
+    _wait(lambda: last_events(4), 20, "the second undo")
+    with Project.open(path, readonly=True) as p:
+        assert not ({wid, nxt} & set(p.labels()["window_id"]))

@@ -570,6 +570,63 @@ def test_map_encodes_class_by_colour_and_shape_confidence_by_size(app):
     assert renderer.glyph.fill_alpha == 1.0
 
 
-def test_answers_beyond_a_class_are_refused_until_offered(app):
+def test_answers_beyond_a_class_from_the_review_slip(app):
+    """B (between activities) and N (not sure) answer the review item: one event each with the
+    answer's reserved class and source queue, the review moves on, the slip and the keys help name
+    them, undo takes an answer back, and answered windows do not come back in the review queue."""
+    s = app.state
+    app.request_proposals()
+    app.press("r")
+    # windows nobody labeled (a conflict or a disagreement stays in the queue until the
+    # annotators agree, an answer included)
+    def three_free():
+        got = s.queue[s.queue_pos:s.queue_pos + 3]
+        return len(got) == 3 and all(s.confirmed[q.row] < 0 for q in got)
+
+    while s.current_item() is not None and not three_free():
+        app.press("s")
+    first = s.current_item()
+    assert first is not None
+    assert "data-cmd='answer:between'" in app.side.queue.text
+    assert "data-cmd='answer:unsure'" in app.side.queue.text
+    assert "B between activities" in app.side.keys.text
     app.press("b")
-    assert "no 'between' answer" in app.message
+    ev = _events(app.project.path)
+    assert ev.iloc[-1]["window_id"] == first.window_id
+    assert ev.iloc[-1]["class"] == "(mixed)" and ev.iloc[-1]["source"] == "queue"
+    assert "1 window → between activities" in app.side.message.text
+    assert "U undoes" in app.side.message.text
+    second = s.current_item()
+    assert second is not None and second is not first and app.target_rows.tolist() == [second.row]
+    app.press("answer:unsure")                       # the slip's button travels the key bus
+    ev = _events(app.project.path)
+    assert ev.iloc[-1]["window_id"] == second.window_id and ev.iloc[-1]["class"] == "(not sure)"
+    assert "not sure" in app.side.message.text
+    # drawn as answered (an outlined point of the answer's colour), never as an activity
+    code = s.class_code["(not sure)"]
+    assert app.map.src.data["cf"][second.row] == code
+    assert app.class_mapper.palette[code] == s.class_colours[code]
+    assert "(not sure)" not in app.side.class_pad.text
+    assert not s.learned()[[first.row, second.row]].any()
+    # undo takes the last answer back
+    app.press("u")
+    assert s.confirmed[second.row] == -1 and s.confirmed[first.row] == s.class_code["(mixed)"]
+    app.press("n")                                     # the current item now: answer it again
+    third = s.current_item()
+    # the answered windows do not come back in a new review queue
+    app.press("Escape")
+    app.press("r")
+    again = {q.window_id for q in s.queue}
+    assert first.window_id not in again
+    answered = _events(app.project.path).iloc[-1]["window_id"]
+    assert answered not in again and third is not None
+    # the proposals left them out: their rows are not taken as confirmations
+    with Project.open(app.project.path, readonly=True) as p:
+        assert set(p.answered().tolist()) >= {first.window_id, answered}
+
+
+def test_an_answer_names_its_fix_without_a_target(app):
+    app.press("b")
+    assert "nothing to answer" in app.message and "R" in app.message
+    app.press("answer:maybe")
+    assert "no answer 'maybe'" in app.message

@@ -10,10 +10,11 @@ from typing import Callable
 
 import numpy as np
 
+from labeler.app import words
 from labeler.errors import LabelerError
 
-#: answers of the look-next slip beyond a class (words.ANSWERS), once Project takes them
-ANSWER_KINDS: tuple[str, ...] = ()
+#: answers beyond a class: the page's command -> Project.answer's word
+ANSWER_KINDS: dict[str, str] = {cmd: kind for cmd, (_w, _k, kind) in words.ANSWERS.items()}
 
 
 def action(fn: Callable) -> Callable:
@@ -214,7 +215,21 @@ class Actions:
 
     @action
     def answer(self, kind: str) -> None:
-        """An answer of the slip beyond a class ("between", "unsure")."""
+        """An answer beyond a class ("between" activities, "unsure") for what is shown: the queue's
+        item, or the pick. Such windows count as looked at and leave the review queue; proposals
+        do not learn from them."""
         if kind not in ANSWER_KINDS:
-            raise LabelerError(f"this version takes no '{kind}' answer yet; S passes the window")
-
+            raise LabelerError(f"no answer '{kind}'; B says between activities, N not sure")
+        queue_target = (self.target_source in ("queue", "audit")
+                        and self.state.current_item() is not None)
+        if self.target_rows.size == 0:
+            raise LabelerError("nothing to answer: press R for the review queue, or pick windows "
+                               "on the map")
+        n = int(self.target_rows.size)
+        before = len(self.state.class_names)
+        changed = self.state.answer(self.target_rows, ANSWER_KINDS[kind], self.target_source)
+        if len(self.state.class_names) != before:      # the answer's class was made just now
+            self._classes_changed()
+        self.say(f"{n} window{'s' if n != 1 else ''} → {words.ANSWERS[kind][0]}", info=True,
+                 undo=True)
+        self._labels_changed(changed, next_item=queue_target)

@@ -367,7 +367,7 @@ class LabelerApp(Actions):
 
     def _refresh_queue(self) -> None:
         self.side.show_queue(self.state, self.state.current_item(), paused=self.picking(),
-                             answers=ANSWER_KINDS)
+                             answers=tuple(ANSWER_KINDS))
 
     def _prefetch(self, r: int) -> None:
         s = self.state

@@ -259,9 +259,28 @@ class SessionState:
         self.confirmed[hit], self.who[hit] = code, who
         return changed
 
+    def answer(self, rows, kind: str, source: str) -> np.ndarray:
+        """Answer windows "mixed" (they span activities) or "unsure" (cannot tell): one batch
+        (:meth:`Project.answer`); the answer's class is made on first use. The changed rows."""
+        rows = np.unique(np.asarray(rows, dtype=np.int64))
+        if rows.size == 0:
+            raise InputError("nothing to answer: take a queue item (R) or pick windows first")
+        batch = self.project.answer(self.ids[rows].tolist(), kind, source=source)
+        self.last_batch = batch
+        self.reload_classes()
+        return self.sync_labels()
+
     def undo(self) -> np.ndarray:
         self.project.undo()
         return self.sync_labels()
+
+    def answer_codes(self) -> np.ndarray:
+        """Codes of the classes that carry an answer (mixed, not sure), not an activity."""
+        return np.array([k for k, n in enumerate(self.class_names) if is_answer(n)], np.int32)
+
+    def learned(self) -> np.ndarray:
+        """Which windows proposals learn from: confirmed as an activity (an answer is not one)."""
+        return (self.confirmed >= 0) & ~np.isin(self.confirmed, self.answer_codes())
 
     # -------------------------------------------------------------- counts and estimate
     def counts(self) -> list[tuple[int, str, str, int, int]]:

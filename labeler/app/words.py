@@ -10,18 +10,21 @@ from html import escape
 
 import numpy as np
 
+from labeler.answers import ANSWERS as ANSWER_CLASSES, is_answer
+
 CAUTION = ("Proposed labels are suggestions. Where labels feed clinical or safety decisions, a "
            "qualified person reviews them; local rules and licensed practice come first.")
 
 KEYS_HELP = ("<b>Keys</b>: 1-9 call what is shown that class · Enter take the suggestion · "
-             "S pass · U undo · R review · Esc leave the pick, then the review")
+             "B between activities · N not sure · S pass · U undo · R review · "
+             "Esc leave the pick, then the review")
 
 #: the map's shapes (map_view.SHAPES) as characters, for the shelf and the slip
 SHAPE_MARKS = ("&#9679;", "&#9650;", "&#9670;", "&#9660;", "&#11042;", "&#9733;", "&#9688;",
                "&#10010;")
 
-#: answers of the slip beyond a class: (command, words, key)
-ANSWERS = {"between": ("between activities", "B"), "unsure": ("not sure", "N")}
+#: answers beyond a class: command -> (words, key, Project.answer's word)
+ANSWERS = {"between": ("between activities", "B", "mixed"), "unsure": ("not sure", "N", "unsure")}
 
 REASON_WORDS = {
     "conflict": "confirmed, but its neighbours point to another class — check the label",
@@ -41,6 +44,14 @@ GALLERY_EMPTY = "pick several windows: up to nine of them are drawn here"
 
 PICKED_FROM = {"map": "on the map", "timeline": "on the timeline", "queue": "from the review queue",
                "audit": "from the audit sample"}
+
+
+def answer_words(class_name: str) -> str:
+    """What the page calls a class: an answer's words ("between activities"), else its name."""
+    for text, _key, kind in ANSWERS.values():
+        if ANSWER_CLASSES[kind] == class_name:
+            return text
+    return class_name
 
 
 def span(cls: str, text: str) -> str:
@@ -102,7 +113,7 @@ def gallery_caption(state, r: int) -> str:
     """A gallery cell's caption (plain text: drawn on the canvas, never parsed as HTML)."""
     s = state
     if s.confirmed[r] >= 0:
-        return f"✓ {s.class_names[s.confirmed[r]]}"
+        return f"✓ {answer_words(s.class_names[s.confirmed[r]])}"
     p = s.proposals.proposed[r]
     return f"{s.class_names[p]} {s.proposals.confidence[r]:.2f}" if p >= 0 else "no proposal"
 
@@ -134,7 +145,10 @@ def window_label(state, r: int, hide_proposal: bool = False) -> str:
     s = state
     if s.confirmed[r] >= 0:
         who = s.annotators[s.who[r]] if s.who[r] >= 0 else "?"
-        return f"confirmed <b>{escape(s.class_names[s.confirmed[r]])}</b> by {escape(who)}"
+        name = s.class_names[s.confirmed[r]]
+        if is_answer(name):
+            return f"answered <b>{escape(answer_words(name))}</b> by {escape(who)}"
+        return f"confirmed <b>{escape(name)}</b> by {escape(who)}"
     if hide_proposal:
         return "proposal hidden (audit)"
     p = s.proposals.proposed[r]
@@ -172,6 +186,7 @@ def selection(state, n: int, source: str, proposals: list[tuple[int, int]] | Non
     more = f", {kinds - 4} more" if kinds > 4 else ""
     hint = (f"{keycap('Enter')} takes <b>{class_name(state, proposals[0][0])}</b> for all"
             if kinds == 1 and proposals[0][0] >= 0 else "a class key calls them all one class")
+    hint += f" · {keycap('B')} between activities · {keycap('N')} not sure"
     return (f"<div class='pick'>{head} · <b>{kinds}</b> different proposal"
             f"{'s' if kinds != 1 else ''}<div class='muted'>{parts}{more}</div>"
             f"<div class='muted'>{hint} · {keycap('Esc')} lets go</div></div>")

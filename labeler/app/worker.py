@@ -40,7 +40,7 @@ def proposals_current(project, state: SessionState) -> bool:
         return False
     was = np.zeros(state.n, bool)
     was[pos] = df["confirmed"].to_numpy(bool)
-    if not np.array_equal(was, state.confirmed >= 0):
+    if not np.array_equal(was, state.learned()):
         return False
     names = np.asarray(state.class_names, dtype=object)
     rows = np.flatnonzero(was)
