@@ -4,7 +4,7 @@
 in tests) and returns the :class:`LabelerApp` of the session. The panels live in their own modules
 (``map_view``, ``signal_view``, ``timeline``, ``side``); the words they show in ``words``; the page's
 HTML, CSS and JavaScript in ``templates/`` and ``static/``. Every write goes through
-:class:`labeler.project.Project`; proposals are recomputed by :class:`ProposalWorker` in a thread and
+:class:`labeler.project.Project`; proposals are recomputed by :class:`ProposalWorker` in a process and
 come back through ``doc.add_next_tick_callback``, so a callback never waits on the spreading.
 """
 
@@ -54,18 +54,31 @@ def _requested_draw(doc) -> str | None:
     return value if value in DRAW_BACKENDS else None
 
 
+def _served_without_draw(doc) -> bool:
+    """A served page whose address has no ``draw`` (its page reloads itself with one)."""
+    ctx = getattr(doc, "session_context", None)
+    request = getattr(ctx, "request", None) if ctx is not None else None
+    return request is not None and not (getattr(request, "arguments", None) or {}).get("draw")
+
+
 def build_document(doc, project_path: str | os.PathLike, annotator: str | None = None, *,
-                   project=None, background: bool = True, draw: str | None = None) -> "LabelerApp":
+                   project=None, background: bool = True,
+                   draw: str | None = None) -> "LabelerApp | None":
     """Build the app on ``doc`` over the project file; return the session's app object.
 
     ``project``: an already open :class:`Project` (the session then owns it); by default the file is
     opened once for this session. ``background=False`` computes proposals in the calling thread
     (tests). ``draw``: "webgl" (default) or "canvas" for the map; in a served session the page's
-    ``?draw=`` argument decides, and a browser without a GPU asks for the canvas by itself
-    (``templates/page.html``).
+    ``?draw=`` argument decides: the page asks for it by itself (``templates/page.html``), webgl
+    when the browser has a GPU, else canvas; a served page without it gets a placeholder (None).
     """
     from labeler.project import Project
 
+    if draw is None and _requested_draw(doc) is None and _served_without_draw(doc):
+        # the page asks again at once with ?draw= (templates/page.html): build nothing for this one
+        doc.template = template("page.html")
+        doc.add_root(Div(text="opening the project…", name="opening"))
+        return None
     draw = draw or _requested_draw(doc) or "webgl"
     if draw not in DRAW_BACKENDS:
         raise ValueError(f"draw must be one of {DRAW_BACKENDS}, got {draw!r}")

@@ -92,23 +92,51 @@ def stored_proposals(project) -> pd.DataFrame | None:
     return df if len(df) else None
 
 
-def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
+@dataclass
+class NamedProposals:
+    """Proposals of every window in window-id order, classes by name (no session's codes yet):
+    what the proposal worker hands to every page open on the file."""
+
+    names: list[str]              # the proposed classes
+    label: np.ndarray             # int32 index into names, -1 where nothing is proposed
+    confidence: np.ndarray        # float32 in [0, 1]
+    support: np.ndarray           # float32 in [0, 1]
+    note: str = ""
+
+    def coded(self, class_code: dict[str, int]) -> Proposals:
+        """The same proposals in a session's class codes (a class it does not know: none)."""
+        lut = np.array([class_code.get(c, -1) for c in self.names] + [-1], dtype=np.int32)
+        return Proposals(lut[self.label], self.confidence, self.support, self.note)
+
+
+def read_named_proposals(project) -> NamedProposals | None:
     """The project's stored proposals in window-id order, or None when there are none yet."""
     df = stored_proposals(project)
     if df is None:
         return None
-    pos = pd.Index(project.windows()["id"].to_numpy()).get_indexer(df["window_id"])
+    ids = project.windows()["id"].to_numpy()
+    n = ids.size
+    pos = pd.Index(ids).get_indexer(df["window_id"])
     ok = pos >= 0
-    proposed = np.full(n, -1, np.int32)
+    labels = df["label"].to_numpy(object)
+    known = np.array([isinstance(c, str) for c in labels], dtype=bool)
+    codes, names = pd.factorize(pd.Series(np.where(known, labels, None), dtype=object))
+    label = np.full(n, -1, np.int32)
     conf = np.zeros(n, np.float32)
     support = np.zeros(n, np.float32)
-    codes = np.array([class_code.get(c, -1) if isinstance(c, str) else -1 for c in df["label"]],
-                     dtype=np.int32)
-    proposed[pos[ok]] = codes[ok]
+    label[pos[ok]] = codes[ok]
     conf[pos[ok]] = df["confidence"].to_numpy(np.float32)[ok]
     support[pos[ok]] = df["support"].to_numpy(np.float32)[ok]
-    return Proposals(proposed, np.clip(np.nan_to_num(conf), 0, 1),
-                     np.clip(np.nan_to_num(support), 0, 1))
+    return NamedProposals([str(c) for c in names], label, np.clip(np.nan_to_num(conf), 0, 1),
+                          np.clip(np.nan_to_num(support), 0, 1))
+
+
+def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
+    """The project's stored proposals in window-id order, or None when there are none yet."""
+    got = read_named_proposals(project)
+    if got is None or got.label.size != n:
+        return None
+    return got.coded(class_code)
 
 
 # ---------------------------------------------------------------------------- the session state

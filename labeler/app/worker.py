@@ -1,5 +1,5 @@
 """Proposals off the page: read the stored proposals and the accuracy estimate, and recompute them in
-a thread of its own (:class:`ProposalWorker`) over a second Project on the same file.
+a process of its own (:class:`ProposalWorker`) over a second Project on the same file.
 
 No Bokeh here. Results go to a ``deliver`` function; the document hands them to the session's next
 tick, so a callback never waits on the spreading.
@@ -7,16 +7,19 @@ tick, so a callback never waits on the spreading.
 
 from __future__ import annotations
 
+import pickle
 import threading
 import time
 import traceback
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from labeler.app.state import SessionState, read_proposals, stored_proposals
+from labeler.app.state import (NamedProposals, SessionState, read_named_proposals,
+                               read_proposals, stored_proposals)
 from labeler.errors import LabelerError
 from labeler.results import AccuracyReport
 
@@ -58,20 +61,21 @@ def estimate_of(project) -> EstimateUpdate:
 
 # ---------------------------------------------------------------------------- background proposals
 
-def spread_and_estimate(project, class_code: dict[str, int], n: int, refresh: bool,
+def spread_and_estimate(project, class_code: dict[str, int] | None, n: int, refresh: bool,
                         deliver: Callable[[object], None], *,
                         on_start: Callable[[], None] | None = None,
                         more_waiting: Callable[[], bool] = lambda: False) -> None:
     """One run: spread the confirmations again (``refresh``) and hand the :class:`Proposals` to
-    ``deliver``; then, unless ``more_waiting()``, the accuracy estimate as an
-    :class:`EstimateUpdate`."""
+    ``deliver`` (:class:`NamedProposals` when ``class_code`` is None); then, unless
+    ``more_waiting()``, the accuracy estimate as an :class:`EstimateUpdate`."""
     t0 = time.perf_counter()
     project.reread()
     if refresh:
         if on_start:
             on_start()
         project.refresh_proposals()
-        got = read_proposals(project, class_code, n)
+        got = (read_named_proposals(project) if class_code is None
+               else read_proposals(project, class_code, n))
         if got is not None:
             got.note = f"{time.perf_counter() - t0:.1f} s"
         deliver(got)
@@ -81,76 +85,243 @@ def spread_and_estimate(project, class_code: dict[str, int], n: int, refresh: bo
         deliver(estimate_of(project))
 
 
+def serve_requests(requests, results, path: str) -> None:
+    """The worker process's loop: each request ``(seq, refresh, annotator)`` becomes one run of
+    :func:`spread_and_estimate` over a Project of its own on ``path``; requests waiting together
+    fold into one run. Sends ``("started",)``, ``("got", NamedProposals | EstimateUpdate |
+    None)``, ``("error", exception)`` and, when nothing waits, ``("idle", seq)``. Ends on ``None``
+    or when the serving process has gone (the pipe closed)."""
+    from labeler.project import Project
+
+    project = None
+
+    def send(*msg) -> None:
+        results.send(msg)
+
+    try:
+        while True:
+            msg = requests.recv()
+            if msg is None:
+                return
+            seq, refresh, annotator = msg
+            while requests.poll():                 # fold what waits into this run
+                more = requests.recv()
+                if more is None:
+                    return
+                seq, refresh = more[0], refresh or more[1]
+            try:
+                if project is None:
+                    project = Project.open(path, annotator=annotator)
+                spread_and_estimate(project, None, 0, refresh, lambda got: send("got", got),
+                                    on_start=lambda: send("started"),
+                                    more_waiting=requests.poll)
+            except (EOFError, OSError):
+                raise
+            except Exception as exc:  # reported in the status line, never lost silently
+                traceback.print_exc()
+                send("error", _picklable(exc))
+            if not requests.poll():
+                send("idle", seq)
+    except (EOFError, OSError):
+        return
+    finally:
+        if project is not None:
+            try:
+                project.close()
+            except Exception:
+                pass
+
+
+def worker_main(requests_fd: int, results_fd: int, path: str) -> None:
+    """The worker process's entry (see :meth:`_WorkerProcess._start`)."""
+    from multiprocessing.connection import Connection
+
+    serve_requests(Connection(requests_fd, writable=False), Connection(results_fd, readable=False),
+                   path)
+
+
+def _picklable(exc: Exception) -> Exception:
+    try:
+        pickle.loads(pickle.dumps(exc))
+        return exc
+    except Exception:
+        return RuntimeError(f"{type(exc).__name__}: {exc}")
+
+
+class _WorkerProcess:
+    """One process recomputing the proposals of one project file for every page open on it.
+
+    Spawned on the first request (a fresh interpreter: it shares neither the serving process's
+    SQLite connection nor its interpreter lock); what it sends back goes to every subscribed
+    :class:`ProposalWorker` from a reader thread. Stopped when its last page closes."""
+
+    def __init__(self, path: str):
+        self.path = path
+        self.lock = threading.Condition()
+        self.handles: list[ProposalWorker] = []
+        self.process = None
+        self.send = None
+        self.sent = 0              # requests sent
+        self.handled = 0           # the last request the process has finished with
+
+    def request(self, refresh: bool, annotator: str) -> None:
+        with self.lock:
+            if self.process is None:
+                self._start()
+            self.sent += 1
+            try:
+                self.send.send((self.sent, bool(refresh), annotator))
+            except (OSError, ValueError) as exc:
+                self.handled = self.sent
+                self._broadcast(RuntimeError(f"the proposal worker is gone ({exc})"))
+
+    def _start(self) -> None:
+        """A fresh interpreter (not a fork: no copy of the page's SQLite connection) running
+        :func:`worker_main`, the pipes' ends passed as file descriptors."""
+        import os
+        import subprocess
+        import sys
+        from multiprocessing.connection import Connection
+
+        import labeler
+
+        req_r, req_w = os.pipe()
+        res_r, res_w = os.pipe()
+        home = str(Path(labeler.__file__).resolve().parent.parent)
+        env = dict(os.environ)
+        env["PYTHONPATH"] = os.pathsep.join([home] + [p for p in env.get("PYTHONPATH", "")
+                                                      .split(os.pathsep) if p])
+        try:
+            process = subprocess.Popen(
+                [sys.executable, "-c", "import sys; from labeler.app.worker import worker_main; "
+                 "worker_main(int(sys.argv[1]), int(sys.argv[2]), sys.argv[3])",
+                 str(req_r), str(res_w), self.path],
+                pass_fds=(req_r, res_w), stdin=subprocess.DEVNULL, env=env, close_fds=True)
+        finally:
+            os.close(req_r)
+            os.close(res_w)
+        self.process, self.handled = process, self.sent
+        self.send = Connection(req_w, readable=False)
+        threading.Thread(target=self._read, args=(Connection(res_r, writable=False), process),
+                         daemon=True, name="labeler-proposals-reader").start()
+
+    def _broadcast(self, got) -> None:
+        for h in list(self.handles):
+            h._receive(got)
+
+    def _read(self, conn, process) -> None:
+        try:
+            while True:
+                try:
+                    msg = conn.recv()
+                except (EOFError, OSError):
+                    break
+                if msg[0] == "started":
+                    for h in list(self.handles):
+                        h._started()
+                elif msg[0] in ("got", "error"):
+                    self._broadcast(msg[1])
+                elif msg[0] == "idle":
+                    with self.lock:
+                        self.handled = max(self.handled, int(msg[1]))
+                        self.lock.notify_all()
+        finally:
+            conn.close()
+            with self.lock:
+                if self.process is process:            # gone: nothing more will come
+                    if self.handled < self.sent:
+                        self._broadcast(RuntimeError(
+                            f"the proposal worker stopped (exit code {process.wait()}); the "
+                            "next change starts another"))
+                    self.handled = self.sent
+                    self.process = self.send = None
+                self.lock.notify_all()
+
+    def wait(self, timeout: float) -> None:
+        end = time.monotonic() + timeout
+        with self.lock:
+            while self.handled < self.sent and time.monotonic() < end:
+                self.lock.wait(end - time.monotonic())
+
+    def stop(self) -> None:
+        with self.lock:
+            send, self.send = self.send, None
+            self.process = None
+            self.handled = self.sent
+            self.lock.notify_all()
+        if send is not None:
+            try:
+                send.send(None)                    # ends after the run it is in, if any
+            except (OSError, ValueError):
+                pass
+            send.close()
+
+
+_PROCESSES: dict[str, _WorkerProcess] = {}
+_PROCESSES_LOCK = threading.Lock()
+
+
 class ProposalWorker:
-    """Recomputes proposals in a thread of its own, over a Project opened on the same file.
+    """One page's handle on the proposal worker of its project file (:class:`_WorkerProcess`,
+    shared by every page open on the file in this process).
 
     ``request()`` returns at once; requests that arrive while a run is going fold into one more run.
     A run delivers the proposals as soon as they are spread, then the accuracy estimate (slower:
     cross-validation) as an :class:`EstimateUpdate`, unless newer confirmations are waiting, which
     are spread first. ``request(refresh=False)`` asks for the estimate only.
-    ``deliver(result_or_exception)`` is called from the worker thread; the document passes a function
-    that hands it to the session's next tick.
+    ``deliver(result_or_exception)`` is called from the reader thread, with the proposals in this
+    page's class codes (``class_code()``); the document passes a function that hands it to the
+    session's next tick. Every page on the file hears of every run.
     """
 
     def __init__(self, path, annotator: str, class_code: Callable[[], dict[str, int]], n: int,
                  deliver: Callable[[object], None], on_start: Callable[[], None] | None = None):
-        self.path, self.annotator = path, annotator
+        self.path, self.annotator = str(path), annotator
         self._class_code, self._n = class_code, n
         self._deliver, self._on_start = deliver, on_start
-        self._wanted = threading.Event()
-        self._lock = threading.Lock()
-        self._thread: threading.Thread | None = None
         self._closed = False
-        self._project = None
-        self._refresh = False
+        with _PROCESSES_LOCK:
+            self._shared = _PROCESSES.setdefault(self.path, _WorkerProcess(self.path))
+            with self._shared.lock:
+                self._shared.handles.append(self)
 
     def request(self, refresh: bool = True) -> None:
+        if not self._closed:
+            self._shared.request(refresh, self.annotator)
+
+    def _started(self) -> None:
+        if self._on_start and not self._closed:
+            self._on_start()
+
+    def _receive(self, got) -> None:
         if self._closed:
             return
-        self._refresh = self._refresh or refresh
-        self._wanted.set()
-        with self._lock:
-            if self._thread is None or not self._thread.is_alive():
-                self._thread = threading.Thread(target=self._run, name="labeler-proposals",
-                                                daemon=True)
-                self._thread.start()
-
-    def _run(self) -> None:
-        from labeler.project import Project
-
-        while self._wanted.is_set() and not self._closed:
-            self._wanted.clear()
-            refresh, self._refresh = self._refresh, False
-            try:
-                if self._project is None:
-                    self._project = Project.open(self.path, annotator=self.annotator)
-                # newer confirmations waiting: spread them first, estimate after them
-                spread_and_estimate(self._project, self._class_code(), self._n, refresh,
-                                    self._deliver, on_start=self._on_start,
-                                    more_waiting=lambda: self._wanted.is_set() and self._refresh)
-            except Exception as exc:  # reported in the status line, never lost silently
-                traceback.print_exc()
-                self._deliver(exc)
-        if self._closed:
-            self._close_project()
+        if isinstance(got, NamedProposals):
+            if got.label.size != self._n:
+                got = RuntimeError("recordings were added or removed: reload the page")
+            else:
+                got = got.coded(self._class_code())
+        self._deliver(got)
 
     def wait(self, timeout: float = 60.0) -> None:
-        t = self._thread
-        if t is not None:
-            t.join(timeout)
+        """Until the worker has finished every request sent so far (or ``timeout`` seconds)."""
+        self._shared.wait(timeout)
 
     def busy(self) -> bool:
-        return self._thread is not None and self._thread.is_alive()
+        return self._shared.handled < self._shared.sent
 
     def close(self) -> None:
+        """Leave the worker; the last page to leave stops it."""
+        if self._closed:
+            return
         self._closed = True
-        if not self.busy():
-            self._close_project()
-
-    def _close_project(self) -> None:
-        if self._project is not None:
-            try:
-                self._project.close()
-            except Exception:
-                pass
-            self._project = None
+        shared = self._shared
+        with _PROCESSES_LOCK:
+            with shared.lock:
+                if self in shared.handles:
+                    shared.handles.remove(self)
+                last = not shared.handles
+            if last and _PROCESSES.get(self.path) is shared:
+                del _PROCESSES[self.path]
+        if last:
+            shared.stop()

@@ -204,23 +204,27 @@ class Catalog:
                                   None if person is None else check_person(person))
 
     def recording_id(self, name_or_id: str | int) -> int:
-        recs = self.recordings()
+        return int(self._recording_row(name_or_id)["id"])
+
+    def _recording_row(self, name_or_id: str | int) -> dict:
+        """The store's row of a recording given by id or name (plain rows: no table is built,
+        as the signal of one window is read often)."""
+        recs = self.ctx.store.recordings()
+        hit = []
         if isinstance(name_or_id, (int, np.integer)) or str(name_or_id).isdigit():
-            hit = recs[recs["id"] == int(name_or_id)]
-            if len(hit) == 0:
-                hit = recs[recs["name"] == str(name_or_id)]
-        else:
-            hit = recs[recs["name"] == str(name_or_id)]
-        if len(hit) == 0:
-            known = ", ".join(recs["name"].head(8)) or "none yet"
+            hit = [r for r in recs if int(r["id"]) == int(name_or_id)]
+        if not hit:
+            hit = [r for r in recs if r["name"] == str(name_or_id)]
+        if not hit:
+            known = ", ".join(r["name"] for r in recs[:8]) or "none yet"
             raise InputError(f"no recording {name_or_id!r} in the project; recordings: {known}")
-        return int(hit["id"].iloc[0])
+        return hit[0]
 
     def signal(self, recording: str | int, start_s: float | None = None,
                stop_s: float | None = None) -> tuple[np.ndarray, np.ndarray, list[str]]:
         """(time in s, signal (n, channels) float32 with NaN in gaps, channel names) of a span."""
-        rid = self.recording_id(recording)
-        rec = self.recordings().set_index("id").loc[rid]
+        rec = self._recording_row(recording)
+        rid = int(rec["id"])
         rate = float(rec["rate"])
         a = 0 if start_s is None else max(0, int(np.floor(start_s * rate)))
         b = int(rec["n_samples"]) if stop_s is None else min(int(rec["n_samples"]),
