@@ -42,17 +42,24 @@ class Actions:
 
     @action
     def undo(self) -> None:
-        changed = self.state.undo()
+        s = self.state
+        changed = s.undo()
         self.say(f"undone: {changed.size} window{'s' if changed.size != 1 else ''} back as they "
                  "were", info=True)
-        self._labels_changed(changed)
+        back = s.queue[s.queue_pos - 1] if 0 < s.queue_pos <= len(s.queue) else None
+        again = back is not None and changed.tolist() == [back.row] and not self.picking()
+        if again:
+            s.queue_pos -= 1                  # the review item just answered: shown again
+        self._labels_changed(changed, show_item=again)
 
-    def _labels_changed(self, changed: np.ndarray, *, next_item: bool = False) -> None:
-        """The tail of every write of labels: send the changed rows, move the queue on (or redraw
-        its card), retitle the signal, recount, and ask for new proposals."""
+    def _labels_changed(self, changed: np.ndarray, *, next_item: bool = False,
+                        show_item: bool = False) -> None:
+        """The tail of every write of labels: send the changed rows, move the queue on
+        (``next_item``) or show its current item (``show_item``) or redraw its card, retitle the
+        signal, recount, and ask for new proposals."""
         self._send_rows(changed)
-        if next_item:
-            self._show_item(self.state.advance())
+        if next_item or show_item:
+            self._show_item(self.state.advance() if next_item else self.state.current_item())
         else:
             self._refresh_queue()
             self._refresh_selection()

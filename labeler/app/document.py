@@ -366,7 +366,9 @@ class LabelerApp(Actions):
         rows, src = self.target_rows, self.target_source
         props = self.state.pick_proposals(rows) if self.picking() else None
         self.side.selection.text = words.selection(self.state, int(rows.size), src, props,
-                                                   hidden=self._blind())
+                                                   hidden=self._blind(), rows=rows)
+        if self.picking():
+            self.gallery.recaption(self.state)
 
     def _refresh_counts(self) -> None:
         """The counts line and the shelf's per-class counts."""
@@ -487,6 +489,7 @@ class LabelerApp(Actions):
             self._send_rows(changed, "proposals")
             self.progress_text = words.proposals_ready(got.note)
             self._refresh_counts()
+            self._refresh_selection()
             self._refresh_queue()
             self._retitle_signal()
         self.side.progress.text = self.progress_text

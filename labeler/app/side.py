@@ -1,5 +1,5 @@
-"""The side panel: what is picked (with its gallery), the look-next slip, the class shelf, the
-class drawer (rename, merge, retire, recolour), the feedback line and where things stand.
+"""The side panel: what is picked (with its gallery), the feedback line, where things stand, the
+look-next slip, the class shelf and the class drawer (rename, merge, retire, recolour).
 
 The slip's answers and the shelf's rows are plain HTML buttons carrying a ``data-cmd``; the page's
 one listener (``static/keys.js``) sends them over the key bus like a key, so a click and its key take
@@ -59,16 +59,27 @@ class SidePanel:
                                     name="drawer_toggle")
         self.drawer_toggle.on_change("active", lambda _a, _o, new: setattr(
             self.drawer, "visible", bool(new)))
+        # the opened drawer is brought into sight (it opens under the fold at 1400x900)
+        self.drawer_toggle.js_on_change("active", CustomJS(args={"drawer": self.drawer}, code="""
+            if (!cb_obj.active) return;
+            const look = (k) => {
+              const v = Bokeh.index.get_one(drawer);
+              if (v && v.el && v.el.offsetHeight > 0) v.el.scrollIntoView({block: "nearest"});
+              else if (k < 40) setTimeout(() => look(k + 1), 50);
+            };
+            look(0);"""))
         for w in (self.add_class_btn, self.new_class, self.drawer_toggle):
             _release(w)
+        # where things stand first (always in sight), then the pick's gallery (only while a pick
+        # holds several windows), the review slip, the classes
         self.box = column(
             self.selection, gallery_fig, self.message,
+            div(text=words.section("Where things stand")), self.progress, self.counts,
+            self.estimate,
             div(text=words.section("Look next")), self.queue_mode, self.queue,
             div(text=words.section("Call it")), self.class_pad,
             row(self.new_class, self.add_class_btn, sizing_mode="stretch_width"),
-            self.drawer_toggle, self.drawer,
-            div(text=words.section("Where things stand")), self.progress, self.counts,
-            self.estimate, self.keys, width=SIDE_W, name="side")
+            self.drawer_toggle, self.drawer, self.keys, width=SIDE_W, name="side")
 
     def div(self, text: str = "", name: str | None = None) -> Div:
         return Div(text=text, sizing_mode="stretch_width", name=name, stylesheets=[self.css])

@@ -158,7 +158,7 @@ class Gallery:
                                        "tx": [], "ty": [], "caption": []})
         p = figure(height=176, sizing_mode="stretch_width", min_width=240, tools=[],
                    toolbar_location=None, x_range=Range1d(0, 3), y_range=Range1d(3, 0),
-                   name="gallery")
+                   name="gallery", visible=False)
         p.axis.visible = False
         p.grid.visible = False
         p.outline_line_color = None
@@ -211,11 +211,18 @@ class Gallery:
                 xs.append(u)
                 ys.append(q + 0.96 - 0.66 * (np.clip(v, lo, hi) - lo) / max(hi - lo, 1e-9))
                 colours.append(AXIS_COLOURS[j % 3])
-        if not self.rows:               # keep the panel's place; say what comes here
-            cells = {"left": [0.0], "right": [0.0], "top": [0.0], "bottom": [0.0], "lab": [-1],
-                     "tx": [0.05], "ty": [1.3], "caption": [words.GALLERY_EMPTY]}
+        self.fig.visible = bool(self.rows)     # no room taken when there is nothing to show
         self.cells.data = cells
         self.lines.data = {"xs": xs, "ys": ys, "colour": colours}
+
+    def recaption(self, state) -> None:
+        """Captions and class bands again (labels or proposals changed; the lines stay)."""
+        if not self.rows or len(self.cells.data["caption"]) != len(self.rows):
+            return
+        labs = [int(v) for v in state.display_label(self.rows)]
+        caps = [words.gallery_caption(state, r) for r in self.rows]
+        if labs != list(self.cells.data["lab"]) or caps != list(self.cells.data["caption"]):
+            self.cells.patch({"lab": list(enumerate(labs)), "caption": list(enumerate(caps))})
 
     def row_at(self, x: float, y: float) -> int | None:
         """The window of the cell under (x, y), if any."""

@@ -40,8 +40,6 @@ COLOUR_HINTS = {
     "recording": "one colour per recording (a scale of its own)",
 }
 
-GALLERY_EMPTY = "pick several windows: up to nine of them are drawn here"
-
 PICKED_FROM = {"map": "on the map", "timeline": "on the timeline", "queue": "from the review queue",
                "audit": "from the audit sample"}
 
@@ -171,11 +169,10 @@ def signal_title(state, r: int, hide_proposal: bool) -> str:
 
 
 def selection(state, n: int, source: str, proposals: list[tuple[int, int]] | None = None,
-              hidden: bool = False) -> str:
+              hidden: bool = False, rows=None) -> str:
     """The pick: how many windows, from where, and how many different proposals they hold."""
     if n == 0:
-        return span("muted", "Nothing picked. Drag on the map or the timeline, or press R for the "
-                             "review queue.")
+        return start_here(state)
     head = f"<b>{n} window{'s' if n != 1 else ''}</b> picked {PICKED_FROM[source]}"
     if source in ("queue", "audit") or not proposals:
         return f"<div class='pick'>{head}</div>"
@@ -189,7 +186,47 @@ def selection(state, n: int, source: str, proposals: list[tuple[int, int]] | Non
     hint += f" · {keycap('B')} between activities · {keycap('N')} not sure"
     return (f"<div class='pick'>{head} · <b>{kinds}</b> different proposal"
             f"{'s' if kinds != 1 else ''}<div class='muted'>{parts}{more}</div>"
+            f"{confirmed_in_pick(state, rows)}"
             f"<div class='muted'>{hint} · {keycap('Esc')} lets go</div></div>")
+
+
+def confirmed_in_pick(state, rows) -> str:
+    """How many of the picked windows carry a label already, and which."""
+    if rows is None:
+        return ""
+    got = state.confirmed[np.asarray(rows, dtype=np.int64)]
+    got = got[got >= 0]
+    if got.size == 0:
+        return ""
+    codes, k = np.unique(got, return_counts=True)
+    order = np.argsort(-k, kind="stable")
+    names = [answer_words(state.class_names[c]) for c in codes]
+    parts = ", ".join(f"{mark(state, int(codes[i]))} {escape(names[i])} {int(k[i])}"
+                      for i in order[:4])
+    more = f", {len(order) - 4} more" if len(order) > 4 else ""
+    return f"<div>already labeled: {parts}{more}</div>"
+
+
+def start_here(state) -> str:
+    """What to do next when nothing is picked."""
+    s = state
+    if not s.active_codes():
+        first = "type a class name in the box under <b>Call it</b> and press Enter, then"
+        return (f"<div class='pick'><b>Start here</b>: {first} drag a box on the map around "
+                "windows of that activity and press its number.</div>")
+    open_ = (s.confirmed < 0) & (s.proposals.proposed >= 0)
+    unsure = int((open_ & (s.proposals.confidence < 0.6)).sum())
+    none = int(((s.confirmed < 0) & (s.proposals.proposed < 0)).sum())
+    left = []
+    if unsure:
+        left.append(f"{unsure} proposals below 0.6 confidence")
+    if none:
+        left.append(f"{none} windows with no proposal")
+    tail = f"<div class='muted'>Still open: {', '.join(left)}.</div>" if left else ""
+    return (f"<div class='pick'><b>Next</b>: {keycap('R')} brings the windows worth a look, one "
+            f"at a time ({keycap('1')}-{keycap('9')} calls it, {keycap('Enter')} takes the "
+            f"suggestion, {keycap('B')} / {keycap('N')} when it is neither); or drag a box on "
+            f"the map and call the whole pick.{tail}</div>")
 
 
 def no_classes() -> str:
@@ -235,9 +272,13 @@ def queue_item(state, item, audit: bool, *, paused: bool = False,
 
 def counts(state) -> str:
     s = state
-    n_conf = int((s.confirmed >= 0).sum())
+    n_labeled = int((s.confirmed >= 0).sum())
+    n_conf = int(s.learned().sum())
     n_prop = int(((s.confirmed < 0) & (s.proposals.proposed >= 0)).sum())
-    return span("muted", f"{n_conf} of {s.n} windows confirmed · {n_prop} more proposed")
+    answered = (f" · {n_labeled - n_conf} answered between / not sure"
+                if n_labeled > n_conf else "")
+    return span("muted", f"{n_conf} of {s.n} windows confirmed{answered} · {n_prop} more "
+                         "proposed")
 
 
 def proposals_running(since: str) -> str:
@@ -272,16 +313,17 @@ def _pct(v) -> str:
 
 def estimate(est) -> str:
     """The accuracy block (a :class:`labeler.results.AccuracyReport`, the same object
-    `labeler accuracy` prints and the export's manifest carries): the headline with its interval
-    and what it rests on, or what is missing for a figure."""
+    `labeler accuracy` prints and the export's manifest carries): the headline with its interval,
+    and, folded under it, what it rests on (or what is missing for a figure)."""
     acc, lo, hi = est.value, est.low, est.high
     note = escape(str(est.note or ""))
     if est.basis == "none" or acc is None:
         todo = ("<br>For a figure now: press <b>Audit</b> and label each of the windows it shows; "
                 "the figure follows the answers." if getattr(est, "needs_audit", False) else "")
-        return "<b>No accuracy figure yet</b><br>" + span("muted", note) + todo
-    parts = [f"<b>Proposals are right about {_pct(acc)} of the time</b> (95% interval "
-             f"{_pct(lo)}–{_pct(hi)})"]
+        return (f"<details class='est'><summary><b>No accuracy figure yet</b> "
+                f"{span('muted', '(why)')}</summary>{span('muted', note)}</details>"
+                + todo.removeprefix("<br>"))
+    parts = []
     if est.expected_wrong is not None:
         parts.append(f"About {est.expected_wrong:.0f} proposals expected wrong")
     ts = est.training_set
@@ -289,5 +331,6 @@ def estimate(est) -> str:
         parts.append(f"Training set (confirmed windows counted right): {_pct(ts.value)} "
                      f"({_pct(ts.low)}–{_pct(ts.high)})")
     parts.append(span("muted", "rests on: " + note))
-    return "<br>".join(parts)
-
+    return (f"<details class='est'><summary><b>Proposals are right about {_pct(acc)} of the "
+            f"time</b> (95% interval {_pct(lo)}–{_pct(hi)})</summary>{'<br>'.join(parts)}"
+            "</details>")
