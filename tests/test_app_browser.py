@@ -257,6 +257,12 @@ def test_layout_fits_the_window(driver, served):
             "return [window.innerWidth, window.innerHeight, document.documentElement.scrollWidth]")
         sig, side, mp = _box(driver, "signal_box"), _box(driver, "side"), _box(driver, "map")
         assert sig[1] + sig[3] <= inner_h, (sig, inner_h)       # signal in the first viewport
+        # nothing picked: no empty gallery; what to do next, and where things stand in sight
+        assert _box(driver, "gallery")[3] == 0
+        assert "Next" in _div_text(driver, "selection")
+        for name in ("counts", "estimate", "queue_item"):
+            box = _box(driver, name)
+            assert box[3] > 0 and box[1] + box[3] <= inner_h, (name, box, inner_h)
         assert mp[1] >= 0 and mp[3] >= 300
         assert side[0] >= mp[0] + mp[2] - 1 and side[1] < sig[1]  # beside, not under
         assert scroll_w <= inner_w
@@ -404,3 +410,14 @@ def test_between_and_not_sure_answer_the_review_item(driver, served):
     _wait(lambda: last_events(4), 20, "the second undo")
     with Project.open(path, readonly=True) as p:
         assert not ({wid, nxt} & set(p.labels()["window_id"]))
+
+
+def test_opened_class_drawer_comes_into_sight(driver, served):
+    srv, _path = served
+    _open(driver, srv.url)
+    inner_h = driver.execute_script("return window.innerHeight")
+    _click_in(driver, "drawer_toggle", "button")
+    _wait(lambda: (lambda b: b if b[3] > 0 and b[1] >= 0 and b[1] + b[3] <= inner_h + 1
+                   else None)(_box(driver, "class_drawer")), 20, "the drawer in sight")
+    _click_in(driver, "drawer_toggle", "button")          # folded again
+    _wait(lambda: _box(driver, "class_drawer")[3] == 0 or None, 20, "the drawer folded")
