@@ -51,8 +51,11 @@ class AppServer:
         from labeler.project import Project
 
         self.project_path = Path(project_path)
-        with Project.open(self.project_path, annotator=annotator):  # fail early on a bad file
-            pass
+        from labeler.app.state import file_layout
+
+        # fail early on a bad file; read once what every page shares (the windows and the map)
+        with Project.open(self.project_path, annotator=annotator) as project:
+            file_layout(project)
         self.host = host
         self.port = int(port) or free_port(host if host not in ("0.0.0.0", "") else LOOPBACK)
         self.annotator = annotator

@@ -7,6 +7,7 @@ action returns the rows whose drawing changed, so the document sends only those.
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 
 import numpy as np
@@ -109,12 +110,13 @@ class NamedProposals:
         return Proposals(lut[self.label], self.confidence, self.support, self.note)
 
 
-def read_named_proposals(project) -> NamedProposals | None:
-    """The project's stored proposals in window-id order, or None when there are none yet."""
+def read_named_proposals(project, ids: np.ndarray | None = None) -> NamedProposals | None:
+    """The project's stored proposals in window-id order (``ids``: the project's window ids, when
+    the caller has them), or None when there are none yet."""
     df = stored_proposals(project)
     if df is None:
         return None
-    ids = project.windows()["id"].to_numpy()
+    ids = project.windows()["id"].to_numpy() if ids is None else ids
     n = ids.size
     pos = pd.Index(ids).get_indexer(df["window_id"])
     ok = pos >= 0
@@ -131,12 +133,63 @@ def read_named_proposals(project) -> NamedProposals | None:
                           np.clip(np.nan_to_num(support), 0, 1))
 
 
-def read_proposals(project, class_code: dict[str, int], n: int) -> Proposals | None:
+def read_proposals(project, class_code: dict[str, int], n: int,
+                   ids: np.ndarray | None = None) -> Proposals | None:
     """The project's stored proposals in window-id order, or None when there are none yet."""
-    got = read_named_proposals(project)
+    got = read_named_proposals(project, ids)
     if got is None or got.label.size != n:
         return None
     return got.coded(class_code)
+
+
+@dataclass(frozen=True)
+class FileLayout:
+    """What every page open on one file shares and no label changes: the windows (in window-id
+    order), the recordings, the map. Read once per served file (arrays read-only)."""
+
+    key: tuple
+    ids: np.ndarray
+    index: pd.Index
+    rec_names: tuple[str, ...]
+    rec_code: np.ndarray
+    start: np.ndarray
+    stop: np.ndarray
+    rec_duration: tuple[float, ...]
+    channels: tuple[str, ...]
+    x: np.ndarray
+    y: np.ndarray
+    map_kind: str
+
+
+_LAYOUTS: dict[str, FileLayout] = {}
+
+
+def file_layout(project) -> FileLayout:
+    """The :class:`FileLayout` of the project's file: read when first asked for, and again only
+    when recordings were added or removed or a newer map was stored (two cheap queries)."""
+    st = os.stat(project.path)                # opens nothing (a file made anew: another inode)
+    key = (st.st_dev, st.st_ino, tuple(project.change_mark()[2:]), project.map_run_id())
+    got = _LAYOUTS.get(str(project.path))
+    if got is not None and got.key == key:
+        return got
+    w = project.windows()
+    recs = project.recordings()
+    ids = w["id"].to_numpy(np.int64)
+    x, y, kind = read_map(project, ids.size)
+    arrays = {"ids": ids,
+              "rec_code": pd.Index(recs["id"]).get_indexer(w["recording_id"]).astype(np.int32),
+              "start": w["start_s"].to_numpy(np.float64), "stop": w["stop_s"].to_numpy(np.float64),
+              "x": np.asarray(x), "y": np.asarray(y)}
+    for a in arrays.values():
+        a.flags.writeable = False
+    got = FileLayout(key=key, index=pd.Index(ids),
+                     rec_names=tuple(str(r) for r in recs["name"]),
+                     rec_duration=tuple(float(d) for d in (recs["n_samples"] / recs["rate"]))
+                     if len(recs) else (),
+                     channels=tuple(recs["channels"].iloc[0]) if len(recs) else (),
+                     map_kind=kind, **arrays)
+    _LAYOUTS[str(project.path)] = got
+    return got
 
 
 # ---------------------------------------------------------------------------- the session state
@@ -146,17 +199,11 @@ class SessionState:
 
     def __init__(self, project):
         self.project = project
-        w = project.windows()
-        self.ids = w["id"].to_numpy(np.int64)
-        self.index = pd.Index(self.ids)
-        self.n = len(self.ids)
-        recs = project.recordings()
-        self.rec_names = [str(r) for r in recs["name"]]
-        self.rec_code = pd.Index(recs["id"]).get_indexer(w["recording_id"]).astype(np.int32)
-        self.start = w["start_s"].to_numpy(np.float64)
-        self.stop = w["stop_s"].to_numpy(np.float64)
-        self.rec_duration = [float(d) for d in (recs["n_samples"] / recs["rate"])] if len(recs) else []
-        self.channels = list(recs["channels"].iloc[0]) if len(recs) else []
+        lay = file_layout(project)
+        self.ids, self.index, self.n = lay.ids, lay.index, lay.ids.size
+        self.rec_names, self.rec_code = list(lay.rec_names), lay.rec_code
+        self.start, self.stop = lay.start, lay.stop
+        self.rec_duration, self.channels = list(lay.rec_duration), list(lay.channels)
         self.confirmed = np.full(self.n, -1, np.int32)
         self.who = np.full(self.n, -1, np.int32)
         self.annotators: list[str] = []
@@ -165,9 +212,9 @@ class SessionState:
         self.estimate: AccuracyReport | None = None   # the latest, computed off the page
         self.estimate_absent: str | None = None         # or why there is none
         self.reload_classes()
-        self.x, self.y, self.map_kind = read_map(project, self.n)
+        self.x, self.y, self.map_kind = lay.x, lay.y, lay.map_kind
         self.sync_labels()
-        got = read_proposals(project, self.class_code, self.n)
+        got = read_proposals(project, self.class_code, self.n, ids=self.ids)
         if got is not None:
             self.proposals = got
         self.last_batch: LabelBatch | None = None

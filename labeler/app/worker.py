@@ -7,7 +7,7 @@ tick, so a callback never waits on the spreading.
 
 from __future__ import annotations
 
-import pickle
+import json
 import threading
 import time
 import traceback
@@ -85,43 +85,96 @@ def spread_and_estimate(project, class_code: dict[str, int] | None, n: int, refr
         deliver(estimate_of(project))
 
 
+# what travels between the page's process and the worker: a JSON header per message
+# (Connection.send_bytes, nothing unpickled), the proposals' three arrays as raw bytes after theirs
+
+def put(conn, head: dict, *arrays: np.ndarray) -> None:
+    """Send one message: its JSON header, then each array's bytes."""
+    conn.send_bytes(json.dumps(head).encode("utf-8"))
+    for a in arrays:
+        conn.send_bytes(np.ascontiguousarray(a).tobytes())
+
+
+def encode(got) -> tuple[dict, tuple[np.ndarray, ...]]:
+    """A worker's result (NamedProposals, EstimateUpdate, None or an exception) as a header and
+    arrays for :func:`put`."""
+    if isinstance(got, NamedProposals):
+        return ({"kind": "proposals", "names": list(got.names), "note": got.note},
+                (got.label.astype(np.int32), got.confidence.astype(np.float32),
+                 got.support.astype(np.float32)))
+    if isinstance(got, EstimateUpdate):
+        return ({"kind": "estimate", "absent": got.absent,
+                 "report": None if got.estimate is None else got.estimate.as_dict()}, ())
+    if got is None:
+        return {"kind": "none"}, ()
+    return {"kind": "error", "text": f"{type(got).__name__}: {got}"
+            if not isinstance(got, LabelerError) else str(got)}, ()
+
+
+def take(conn) -> object:
+    """Receive one result sent by :func:`put` (of :func:`encode`): the result, or
+    ("started",) / ("idle", seq)."""
+    head = json.loads(conn.recv_bytes().decode("utf-8"))
+    kind = head["kind"]
+    if kind == "proposals":
+        label = np.frombuffer(conn.recv_bytes(), np.int32)
+        conf = np.frombuffer(conn.recv_bytes(), np.float32)
+        support = np.frombuffer(conn.recv_bytes(), np.float32)
+        return NamedProposals(head["names"], label, conf, support, head.get("note", ""))
+    if kind == "estimate":
+        rep = head["report"]
+        return EstimateUpdate(None if rep is None else AccuracyReport.from_dict(rep),
+                              head.get("absent"))
+    if kind == "none":
+        return None
+    if kind == "error":
+        return RuntimeError(head["text"])
+    if kind == "idle":
+        return ("idle", int(head["seq"]))
+    return ("started",)
+
+
 def serve_requests(requests, results, path: str) -> None:
-    """The worker process's loop: each request ``(seq, refresh, annotator)`` becomes one run of
-    :func:`spread_and_estimate` over a Project of its own on ``path``; requests waiting together
-    fold into one run. Sends ``("started",)``, ``("got", NamedProposals | EstimateUpdate |
-    None)``, ``("error", exception)`` and, when nothing waits, ``("idle", seq)``. Ends on ``None``
-    or when the serving process has gone (the pipe closed)."""
+    """The worker process's loop: each request ``{"seq", "refresh", "annotator"}`` becomes one run
+    of :func:`spread_and_estimate` over a Project of its own on ``path``; requests waiting together
+    fold into one run. Sends "started", the proposals (or none), the estimate or an error (see
+    :func:`encode`) and, when nothing waits, "idle" with the last request's number. Ends on a
+    ``{"stop": true}`` request or when the serving process has gone (the pipe closed)."""
     from labeler.project import Project
 
     project = None
 
-    def send(*msg) -> None:
-        results.send(msg)
+    def ask() -> dict:
+        return json.loads(requests.recv_bytes().decode("utf-8"))
+
+    def send(got) -> None:
+        head, arrays = encode(got)
+        put(results, head, *arrays)
 
     try:
         while True:
-            msg = requests.recv()
-            if msg is None:
+            msg = ask()
+            if msg.get("stop"):
                 return
-            seq, refresh, annotator = msg
+            seq, refresh = int(msg["seq"]), bool(msg["refresh"])
             while requests.poll():                 # fold what waits into this run
-                more = requests.recv()
-                if more is None:
+                more = ask()
+                if more.get("stop"):
                     return
-                seq, refresh = more[0], refresh or more[1]
+                seq, refresh = int(more["seq"]), refresh or bool(more["refresh"])
             try:
                 if project is None:
-                    project = Project.open(path, annotator=annotator)
-                spread_and_estimate(project, None, 0, refresh, lambda got: send("got", got),
-                                    on_start=lambda: send("started"),
+                    project = Project.open(path, annotator=msg["annotator"])
+                spread_and_estimate(project, None, 0, refresh, send,
+                                    on_start=lambda: put(results, {"kind": "started"}),
                                     more_waiting=requests.poll)
             except (EOFError, OSError):
                 raise
             except Exception as exc:  # reported in the status line, never lost silently
                 traceback.print_exc()
-                send("error", _picklable(exc))
+                send(exc)
             if not requests.poll():
-                send("idle", seq)
+                put(results, {"kind": "idle", "seq": seq})
     except (EOFError, OSError):
         return
     finally:
@@ -138,14 +191,6 @@ def worker_main(requests_fd: int, results_fd: int, path: str) -> None:
 
     serve_requests(Connection(requests_fd, writable=False), Connection(results_fd, readable=False),
                    path)
-
-
-def _picklable(exc: Exception) -> Exception:
-    try:
-        pickle.loads(pickle.dumps(exc))
-        return exc
-    except Exception:
-        return RuntimeError(f"{type(exc).__name__}: {exc}")
 
 
 class _WorkerProcess:
@@ -170,7 +215,8 @@ class _WorkerProcess:
                 self._start()
             self.sent += 1
             try:
-                self.send.send((self.sent, bool(refresh), annotator))
+                put(self.send, {"seq": self.sent, "refresh": bool(refresh),
+                                "annotator": annotator})
             except (OSError, ValueError) as exc:
                 self.handled = self.sent
                 self._broadcast(RuntimeError(f"the proposal worker is gone ({exc})"))
@@ -213,18 +259,18 @@ class _WorkerProcess:
         try:
             while True:
                 try:
-                    msg = conn.recv()
+                    msg = take(conn)
                 except (EOFError, OSError):
                     break
-                if msg[0] == "started":
+                if msg == ("started",):
                     for h in list(self.handles):
                         h._started()
-                elif msg[0] in ("got", "error"):
-                    self._broadcast(msg[1])
-                elif msg[0] == "idle":
+                elif isinstance(msg, tuple) and msg[0] == "idle":
                     with self.lock:
                         self.handled = max(self.handled, int(msg[1]))
                         self.lock.notify_all()
+                else:
+                    self._broadcast(msg)
         finally:
             conn.close()
             with self.lock:
@@ -251,7 +297,7 @@ class _WorkerProcess:
             self.lock.notify_all()
         if send is not None:
             try:
-                send.send(None)                    # ends after the run it is in, if any
+                put(send, {"stop": True})          # ends after the run it is in, if any
             except (OSError, ValueError):
                 pass
             send.close()
