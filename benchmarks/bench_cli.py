@@ -1,12 +1,14 @@
-"""Start-up of the everyday commands on a large project: `labeler status`, `queue`, `history`.
+"""Start-up of the everyday commands on a large project: `labeler status`, `queue`, `history`,
+`accuracy`.
 
 Builds a project of simulated recordings (the demo scenario, several pickers: 5 x 8 h is about
 112k windows), confirms 20 windows of each activity from the simulator's truth in a few batches,
-proposes once (so that the graph and the proposals are stored, as in daily use), and then runs
-each command as a new process (`python -m labeler.cli ...`), best of ``--repeats``. Beside each
-time it prints the bare start of Python with numpy imported (the floor no command goes below) and
-how much of the command is spent importing modules (from ``python -X importtime``).
-Goal: each command under 0.5 s.
+proposes once and asks for the accuracy estimate (so that the graph, the proposals and the
+estimate are stored, as after `labeler propose`), and then runs each command as a new process
+(`python -m labeler.cli ...`), best of ``--repeats``. Beside each time it prints the peers: a bare
+start of Python (`python -c pass`), Python opening SQLite (`import sqlite3`) and Python with numpy
+imported; and how much of the command is spent importing modules (from ``python -X importtime``)
+and whether pandas, scipy or scikit-learn were imported. Goal: each command under 0.5 s.
 
 Run: python benchmarks/bench_cli.py [--recordings 5] [--hours 8] [--repeats 3] [--keep FILE]
 """
@@ -25,7 +27,10 @@ from pathlib import Path
 import numpy as np
 
 GOAL = 0.5
-COMMANDS = (["status"], ["queue"], ["history"])
+COMMANDS = (["status"], ["queue"], ["history"], ["accuracy"])
+PEERS = (("python -c pass", "pass"), ("python -c 'import sqlite3'", "import sqlite3"),
+         ("python -c 'import numpy'", "import numpy"))
+HEAVY = ("pandas", "scipy", "sklearn", "pyarrow")
 
 
 def build(path: Path, recordings: int, hours: float) -> int:
@@ -52,6 +57,7 @@ def build(path: Path, recordings: int, hours: float) -> int:
                 pick = rng.choice(ids, size=min(4, ids.size), replace=False)
                 project.confirm(pick.tolist(), activity, source="cli", create_class=True)
         project.refresh_proposals()
+        project.accuracy_estimate()  # stored with the run, as `labeler propose` does
         return len(w)
     finally:
         project.close()
@@ -64,11 +70,14 @@ def run(args: list[str], env: dict) -> float:
     return time.perf_counter() - t0
 
 
-def import_seconds(args: list[str], env: dict) -> float:
-    """Seconds a command spends importing modules (the self times of ``-X importtime`` add up)."""
+def import_seconds(args: list[str], env: dict) -> tuple[float, list[str]]:
+    """Seconds a command spends importing modules (the self times of ``-X importtime`` add up),
+    and which of the heavy libraries it imported."""
     res = subprocess.run([sys.executable, "-X", "importtime", *args], env=env, check=True,
                          stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    return sum(int(m.group(1)) for m in re.finditer(r"import time:\s+(\d+) \|", res.stderr)) / 1e6
+    total = sum(int(m.group(1)) for m in re.finditer(r"import time:\s+(\d+) \|", res.stderr)) / 1e6
+    heavy = [h for h in HEAVY if re.search(rf"\|\s+{h}$", res.stderr, re.M)]
+    return total, heavy
 
 
 def main() -> None:
@@ -88,14 +97,20 @@ def main() -> None:
                   f"built in {time.perf_counter() - t0:.0f} s")
         else:
             print(f"project: {path} (reused)")
-        floor = min(run(["-c", "import numpy"], env) for _ in range(args.repeats))
-        print(f"python -c 'import numpy' (the floor): {floor:.2f} s")
+        print(f"load (uptime): {os.getloadavg()[0]:.2f} {os.getloadavg()[1]:.2f} "
+              f"{os.getloadavg()[2]:.2f} on {os.cpu_count()} cores")
+        peers = {}
+        for name, code in PEERS:
+            peers[name] = min(run(["-c", code], env) for _ in range(args.repeats))
+            print(f"peer {name:<28} {peers[name]:5.2f} s")
+        bare = peers["python -c pass"]
         for cmd in COMMANDS:
             argv = ["-m", "labeler.cli", *cmd, str(path)]
             best = min(run(argv, env) for _ in range(args.repeats))
-            imp = import_seconds(argv, env)
-            print(f"labeler {' '.join(cmd):<8} {best:5.2f} s  (imports {imp:.2f} s; "
-                  f"{best / floor:.1f}x the floor; goal < {GOAL} s: "
+            imp, heavy = import_seconds(argv, env)
+            print(f"labeler {' '.join(cmd):<8} {best:5.2f} s  (imports {imp:.2f} s, heavy: "
+                  f"{', '.join(heavy) or 'none'}; {best / bare:.1f}x python -c pass, "
+                  f"{best / peers[PEERS[1][0]]:.1f}x import sqlite3; goal < {GOAL} s: "
                   f"{'met' if best < GOAL else 'MISSED'})")
 
 

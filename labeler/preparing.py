@@ -7,13 +7,16 @@ Dask worker) and a single writer stores the result (:meth:`labeler.project.Proje
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from labeler import features as _features
 from labeler.errors import InputError
-from labeler.recordings import Recording
 from labeler.windows import cut_windows, window_samples
+
+if TYPE_CHECKING:
+    from labeler.recordings import Recording
 
 CHUNK_SECONDS = 60.0
 

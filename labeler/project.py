@@ -7,28 +7,31 @@ classes and labels, maps, proposals, audits, export). It holds no user interface
 
 from __future__ import annotations
 
+import functools
 import os
-from typing import Iterable, Sequence
+from typing import TYPE_CHECKING, Iterable, Sequence
 
 import numpy as np
-import pandas as pd
 
 import labeler
-from labeler import features as _features
 from labeler.errors import ProjectError
-from labeler.preparing import PreparedRecording
-from labeler.recordings import Recording
 from labeler.results import (AccuracyReport, ExportReport, ImportReport, LabelBatch, MapRun,
                              ProjectStatus, ProposalRun, RemovedRecording)
 from labeler.service.audits import Audits
 from labeler.service.catalog import CHUNK_SECONDS, AddedRecording, Catalog
 from labeler.service.context import Context, Progress, default_annotator
-from labeler.service.export import Exporter
 from labeler.service.ledger import PALETTE, SOURCES, Ledger
 from labeler.service.maps import Maps
 from labeler.service.proposals import Proposals
 from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, check_window_settings
 from storage import Store, StoreError
+
+if TYPE_CHECKING:  # pandas is imported by the use cases that hand back tables, when called
+    import pandas as pd
+
+    from labeler.preparing import PreparedRecording
+    from labeler.recordings import Recording
+    from labeler.service.export import Exporter
 
 __all__ = ["Project", "AddedRecording", "PALETTE", "SOURCES", "CHUNK_SECONDS", "Progress",
            "default_annotator"]
@@ -52,13 +55,19 @@ class Project:
         self._maps = Maps(self._ctx, self._catalog)
         self._proposals = Proposals(self._ctx, self._catalog, self._ledger)
         self._audits = Audits(self._ctx, self._catalog, self._ledger, self._proposals)
-        self._exporter = Exporter(self._ctx, self._catalog, self._ledger, self._proposals,
-                                  self._audits)
+
+    @functools.cached_property
+    def _exporter(self) -> "Exporter":
+        from labeler.service.export import Exporter
+
+        return Exporter(self._ctx, self._catalog, self._ledger, self._proposals, self._audits)
 
     # ------------------------------------------------------------------ create / open
     @classmethod
     def create(cls, path: str | os.PathLike, *, window_length_s: float = DEFAULT_LENGTH_S,
                window_step_s: float = DEFAULT_STEP_S, annotator: str | None = None) -> "Project":
+        from labeler import features as _features
+
         window_length_s, window_step_s = check_window_settings(window_length_s, window_step_s)
         settings = {"window_length_s": window_length_s, "window_step_s": window_step_s,
                     "feature_set_version": _features.FEATURE_SET_VERSION}
@@ -210,10 +219,13 @@ class Project:
         confirmed = int(self._ledger.labels()["window_id"].isin(mine).sum())
         return self._catalog.remove(rid, confirmed)
 
-    def window_names(self) -> pd.Series:
+    def window_names(self, window_ids: Iterable[int] | None = None) -> pd.Series | dict[int, str]:
         """"<recording>#<number>" of every window, those of removed recordings marked
-        " (removed)", indexed by window id (what the label history names)."""
-        return self._catalog.window_names()
+        " (removed)", indexed by window id (what the label history names). Given ``window_ids``:
+        a dict of just those windows (ids of no window left out), read without the rest."""
+        if window_ids is None:
+            return self._catalog.window_names()
+        return self._catalog.names_of(window_ids)
 
     def set_person(self, recording: str | int, person: str | None) -> None:
         """Who wore the sensor of a recording (None: unknown); exported for grouped splits."""
@@ -235,7 +247,7 @@ class Project:
 
     @property
     def n_windows(self) -> int:
-        return len(self._catalog.windows())
+        return self._catalog.n_windows()
 
     def features(self) -> tuple[np.ndarray, list[str]]:
         """(X float32 (n_windows, n_features), names), rows in window-id order."""
@@ -343,10 +355,13 @@ class Project:
 
     def history(self, *, annotator: str | None = None, class_name: str | None = None,
                 source: str | None = None, since: str | None = None,
-                until: str | None = None, batch_id: str | None = None) -> pd.DataFrame:
-        """Label events matching every filter given, oldest first (see :meth:`Ledger.history`)."""
-        return self._ledger.history(annotator=annotator, class_name=class_name, source=source,
-                                    since=since, until=until, batch_id=batch_id)
+                until: str | None = None, batch_id: str | None = None,
+                as_frame: bool = True) -> pd.DataFrame | list[dict]:
+        """Label events matching every filter given, oldest first (see :meth:`Ledger.history`);
+        ``as_frame=False``: a list of dicts, one per event, with the same keys."""
+        get = self._ledger.history if as_frame else self._ledger.history_rows
+        return get(annotator=annotator, class_name=class_name, source=source, since=since,
+                   until=until, batch_id=batch_id)
 
     def class_log(self, annotator: str | None = None) -> pd.DataFrame:
         """Changes of classes (add, rename, colour, merge, retire), oldest first."""
@@ -366,15 +381,15 @@ class Project:
         return self._ledger.counts()
 
     def status(self) -> ProjectStatus:
-        recs = self.recordings()
-        lab = self.labels()
+        recs = self._catalog.recording_summaries()
+        counts = self._ledger.class_counts()
         return ProjectStatus(
             path=str(self.path), annotator=self.annotator, recordings=len(recs),
-            hours=float((recs["n_samples"] / recs["rate"]).sum() / 3600) if len(recs) else 0.0,
+            hours=sum(r.n_samples / r.rate for r in recs) / 3600,
             windows=self.n_windows, window_length_s=self.window_length_s,
             window_step_s=self.window_step_s, feature_set_version=self.feature_set_version,
-            classes=self.active_classes(), confirmed=int(len(lab)),
-            annotators=sorted(lab["annotator"].unique().tolist()), counts=self.counts())
+            classes=self.active_classes(), confirmed=sum(c.confirmed for c in counts),
+            annotators=self._ledger.label_annotators(), counts=counts, recording_list=recs)
 
     def backup(self, dest: str | os.PathLike) -> None:
         try:
@@ -414,14 +429,15 @@ class Project:
         confirmed (whether the window was confirmed at that run). Empty when none yet."""
         return self._proposals.table()
 
-    def review_queue(self, n: int = 50, *, random_state=None) -> pd.DataFrame:
+    def review_queue(self, n: int = 50, *, random_state=None,
+                     as_frame: bool = True) -> pd.DataFrame | list[dict]:
         """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
         unexplored), score, proposed, confidence, recording, start_s. Windows drawn into an open
         audit are left out, so the audit stays blind. The windows are drawn at random, favouring
         high scores, and each one's probability of being drawn is kept for the accuracy
-        estimate."""
-        return self._proposals.review_queue(n, exclude=self._audits.open_windows(),
-                                            random_state=random_state)
+        estimate. ``as_frame=False``: a list of dicts, one per window, with the same keys."""
+        get = self._proposals.review_queue if as_frame else self._proposals.review_rows
+        return get(n, exclude=self._audits.open_windows(), random_state=random_state)
 
     def draw_audit(self, n: int = 30, *, random_state=None) -> pd.DataFrame:
         """Draw a random sample of proposed, unconfirmed windows (within bands of confidence) for

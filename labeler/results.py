@@ -217,6 +217,28 @@ class ExportReport:
     manifest: dict[str, Any]
 
 
+@dataclass(frozen=True)
+class ClassCount:
+    """How many windows carry a class as their current label."""
+    name: str
+    confirmed: int
+    retired: bool
+
+
+@dataclass(frozen=True)
+class RecordingSummary:
+    """One recording in a project's status: its name, length, rate, start and wearer."""
+    name: str
+    n_samples: int
+    rate: float
+    start_time: str | None       # ISO-8601 UTC, or None when the clock time is unknown
+    person: str | None
+
+    @property
+    def minutes(self) -> float:
+        return self.n_samples / self.rate / 60
+
+
 @dataclass
 class ProjectStatus:
     """What is in a project: recordings, windows, settings, classes and confirmations."""
@@ -231,4 +253,5 @@ class ProjectStatus:
     classes: list[str]           # active classes
     confirmed: int               # windows with a current label
     annotators: list[str]        # who set the current labels
-    counts: Any                  # DataFrame: class, confirmed, retired
+    counts: list[ClassCount]     # every class, retired ones included
+    recording_list: list[RecordingSummary] = field(default_factory=list)

@@ -26,11 +26,12 @@ import time
 import urllib.parse
 import uuid
 from pathlib import Path
-from typing import Any, Iterable, Iterator, Sequence
-
-import sqlite_utils
+from typing import TYPE_CHECKING, Any, Iterable, Iterator, Sequence
 
 from labeler.errors import LabelerError  # a leaf module: storage imports nothing else of labeler
+
+if TYPE_CHECKING:  # imported where the schema is written (a command that only reads starts faster)
+    import sqlite_utils
 
 APPLICATION_ID = 0x4C424C52  # marks a labeler project file (PRAGMA application_id)
 BUSY_TIMEOUT_S = 30.0
@@ -250,12 +251,25 @@ class Store:
     def __init__(self, path: Path, conn: sqlite3.Connection):
         self.path = path
         self.conn = conn
-        self.db = sqlite_utils.Database(conn)
         self._depth = 0
         self._readonly = False
         # how long this connection waited for the write lock (for benchmarks and diagnostics)
         self.lock_stats = {"transactions": 0, "retries": 0, "worst_wait_s": 0.0,
                            "total_wait_s": 0.0}
+
+    @functools.cached_property
+    def db(self) -> "sqlite_utils.Database":
+        """The connection through sqlite-utils (for writing the schema and whole rows)."""
+        import sqlite_utils
+
+        return sqlite_utils.Database(self.conn)
+
+    def _query(self, sql: str, args: Sequence[Any] = ()) -> Iterator[dict[str, Any]]:
+        """Rows of a query as dicts (column name -> value)."""
+        cur = self.conn.execute(sql, tuple(args))
+        names = [d[0] for d in cur.description]
+        for row in cur:
+            yield dict(zip(names, row))
 
     # ------------------------------------------------------------------ opening
     @staticmethod
@@ -280,6 +294,8 @@ class Store:
             raise store_error(path, exc) from exc
         try:
             conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+            import sqlite_utils
+
             db = sqlite_utils.Database(conn)
             with conn:
                 pass
@@ -556,7 +572,7 @@ class Store:
 
     def recordings(self, include_removed: bool = False) -> list[dict[str, Any]]:
         where = "" if include_removed else " WHERE removed_at IS NULL"
-        rows = [dict(r) for r in self.db.query(f"SELECT * FROM recordings{where} ORDER BY id")]
+        rows = [dict(r) for r in self._query(f"SELECT * FROM recordings{where} ORDER BY id")]
         for r in rows:
             for key in ("channels", "units", "repairs"):
                 r[key] = json.loads(r[key]) if r[key] else None
@@ -585,8 +601,28 @@ class Store:
         names = ["id", "recording_id", "seq", "start_sample", "stop_sample", "start_s", "stop_s"]
         return {n: [r[i] for r in rows] for i, n in enumerate(names)}
 
+    def count_windows(self) -> int:
+        """How many windows the recordings in the project have."""
+        return self.conn.execute(
+            "SELECT count(*) FROM windows WHERE recording_id IN (SELECT id FROM recordings "
+            "WHERE removed_at IS NULL)").fetchone()[0]
+
+    def window_names(self, window_ids: Iterable[int]) -> dict[int, tuple[str, int, bool]]:
+        """(recording name, sequence number, recording removed) of each window asked for that
+        exists, removed recordings' windows included."""
+        ids = sorted({int(i) for i in window_ids})
+        out: dict[int, tuple[str, int, bool]] = {}
+        for at in range(0, len(ids), 500):  # SQLite's bound on host parameters is 999 or more
+            part = ids[at:at + 500]
+            for wid, name, seq, removed in self.conn.execute(
+                    "SELECT w.id, r.name, w.seq, r.removed_at IS NOT NULL FROM windows w "
+                    "JOIN recordings r ON r.id = w.recording_id WHERE w.id IN "
+                    f"({','.join('?' * len(part))})", part):
+                out[int(wid)] = (name, int(seq), bool(removed))
+        return out
+
     def features(self) -> list[dict[str, Any]]:
-        rows = [dict(r) for r in self.db.query(
+        rows = [dict(r) for r in self._query(
             "SELECT recording_id, version, names, n_windows, n_features, data FROM features "
             "ORDER BY recording_id")]
         for r in rows:
@@ -629,10 +665,10 @@ class Store:
         sql = "SELECT * FROM classes"
         if not include_retired:
             sql += " WHERE retired_at IS NULL"
-        return [dict(r) for r in self.db.query(sql + " ORDER BY position, id")]
+        return [dict(r) for r in self._query(sql + " ORDER BY position, id")]
 
     def class_by_name(self, name: str) -> dict[str, Any] | None:
-        rows = list(self.db.query("SELECT * FROM classes WHERE name = ? COLLATE NOCASE", [name]))
+        rows = list(self._query("SELECT * FROM classes WHERE name = ? COLLATE NOCASE", [name]))
         return dict(rows[0]) if rows else None
 
     def add_class(self, name: str, colour: str, annotator: str) -> int:
@@ -675,7 +711,7 @@ class Store:
                             {"merged_into": merged_into})
 
     def class_log(self) -> list[dict[str, Any]]:
-        return [dict(r) for r in self.db.query("SELECT * FROM class_log ORDER BY id")]
+        return [dict(r) for r in self._query("SELECT * FROM class_log ORDER BY id")]
 
     # ------------------------------------------------------------------ label history
     def apply_batch(self, annotator: str, action: str, source: str,
@@ -734,20 +770,20 @@ class Store:
         if annotator is not None:
             sql += " WHERE annotator = ?"
             args.append(annotator)
-        return [dict(r) for r in self.db.query(sql + " ORDER BY rowid", args)]
+        return [dict(r) for r in self._query(sql + " ORDER BY rowid", args)]
 
     def batch(self, batch_id: str) -> dict[str, Any] | None:
-        rows = list(self.db.query("SELECT * FROM batches WHERE id = ?", [batch_id]))
+        rows = list(self._query("SELECT * FROM batches WHERE id = ?", [batch_id]))
         return dict(rows[0]) if rows else None
 
     def last_undoable_batch(self, annotator: str) -> dict[str, Any] | None:
-        rows = list(self.db.query(
+        rows = list(self._query(
             "SELECT * FROM batches WHERE annotator = ? AND undone_by IS NULL AND undoes IS NULL "
             "AND action != 'undo' ORDER BY rowid DESC LIMIT 1", [annotator]))
         return dict(rows[0]) if rows else None
 
     def batch_events(self, batch_id: str) -> list[dict[str, Any]]:
-        return [dict(r) for r in self.db.query(
+        return [dict(r) for r in self._query(
             "SELECT * FROM events WHERE batch_id = ? ORDER BY id", [batch_id])]
 
     def state_before(self, event_id: int, window_id: int, annotator: str) -> int | None:
@@ -758,7 +794,7 @@ class Store:
         return None if row is None else row[0]
 
     def annotation(self, window_id: int, annotator: str) -> dict[str, Any] | None:
-        rows = list(self.db.query("SELECT * FROM annotations WHERE window_id = ? AND annotator = ?",
+        rows = list(self._query("SELECT * FROM annotations WHERE window_id = ? AND annotator = ?",
                                   [window_id, annotator]))
         return dict(rows[0]) if rows else None
 
@@ -773,7 +809,7 @@ class Store:
         sql = "SELECT * FROM events"
         if used:
             sql += " WHERE " + " AND ".join(clause for clause, _ in used)
-        return [dict(r) for r in self.db.query(sql + " ORDER BY id", [v for _, v in used])]
+        return [dict(r) for r in self._query(sql + " ORDER BY id", [v for _, v in used])]
 
     def current_labels(self, include_removed: bool = False) -> list[tuple[int, int, str, str, str]]:
         """(window_id, class_id, annotator, at, source) of every labeled window (of the recordings
@@ -782,6 +818,17 @@ class Store:
             "SELECT window_id, class_id, annotator, at, source FROM current_labels"
             + ("" if include_removed else f" WHERE {_LIVE_WINDOW}") + " ORDER BY window_id"
         ).fetchall()
+
+    def label_counts(self) -> dict[int, int]:
+        """Class id -> how many windows (of the recordings in the project) it is the current
+        label of."""
+        return {int(c): int(n) for c, n in self.conn.execute(
+            f"SELECT class_id, count(*) FROM current_labels WHERE {_LIVE_WINDOW} GROUP BY class_id")}
+
+    def label_annotators(self) -> list[str]:
+        """Who set the current labels (of the recordings in the project), sorted."""
+        return [r[0] for r in self.conn.execute(
+            f"SELECT DISTINCT annotator FROM current_labels WHERE {_LIVE_WINDOW} ORDER BY annotator")]
 
     def label_batches(self) -> list[tuple[int, str]]:
         """(window_id, batch_id) of every labeled window: the batch of the event that set its
@@ -822,7 +869,7 @@ class Store:
         if kind is not None:
             sql += " WHERE kind = ?"
             args.append(kind)
-        rows = [dict(r) for r in self.db.query(sql + " ORDER BY id", args)]
+        rows = [dict(r) for r in self._query(sql + " ORDER BY id", args)]
         for r in rows:
             r["params"] = json.loads(r["params"]) if r["params"] else {}
             r["summary"] = json.loads(r["summary"]) if r["summary"] else {}
@@ -871,7 +918,7 @@ class Store:
         """Every audited window in the order drawn: id, run_id, window_id, position, drawn_at,
         drawn_by, proposed_class_id, confidence, stratum, stratum_size (None for a draw made
         without strata)."""
-        return [dict(r) for r in self.db.query(
+        return [dict(r) for r in self._query(
             "SELECT id, run_id, window_id, position, drawn_at, drawn_by, proposed_class_id, "
             "confidence, stratum, stratum_size FROM audits ORDER BY position, id")]
 
@@ -892,7 +939,7 @@ class Store:
     def queue_draws(self) -> list[dict[str, Any]]:
         """Every window's latest random draw by the review queue: window_id, run_id,
         probability, pool, drawn_at, drawn_by."""
-        return [dict(r) for r in self.db.query(
+        return [dict(r) for r in self._query(
             "SELECT window_id, run_id, probability, pool, drawn_at, drawn_by FROM queue_draws "
             "ORDER BY window_id")]
 

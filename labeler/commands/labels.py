@@ -253,24 +253,25 @@ def history_cmd(project, who, class_name, source, since, until, batch_id, last, 
         raise UserError(f"--source {source!r}: unknown; use one of {', '.join(SOURCES)}")
     with _open(project, readonly=True) as p:
         h = p.history(annotator=who, class_name=class_name, source=source,
-                      since=_utc_option(since, "--since"), until=_utc_option(until, "--until"))
+                      since=_utc_option(since, "--since"), until=_utc_option(until, "--until"),
+                      as_frame=False)
         if batch_id is not None:
-            h = h[h["batch_id"].str.startswith(batch_id)]
+            h = [ev for ev in h if ev["batch_id"].startswith(batch_id)]
         if last is not None:
-            h = h.tail(max(0, last))
-        if len(h) == 0:
+            h = h[len(h) - min(len(h), last):]
+        if not h:
             click.echo("no events match")
             return
-        names = p.window_names()
+        names = p.window_names([ev["window_id"] for ev in h])
         # annotator: whose label the event set; by: who acted (differs for undo and class merges)
         rows = [("event", "at (UTC)", "annotator", "by", "action", "window", "class", "source",
                  "batch")]
-        for ev in h.itertuples(index=False):
-            win = names.get(ev.window_id, str(ev.window_id))
-            label = "-" if ev.class_id is None or ev.class_id != ev.class_id else str(ev[6])
-            rows.append((str(ev.id), ev.at[:19].replace("T", " "), ev.annotator,
-                         ev.by if isinstance(ev.by, str) else "?", ev.action, win, label, ev.source,
-                         ev.batch_id[:8]))
+        for ev in h:
+            win = names.get(ev["window_id"], str(ev["window_id"]))
+            label = "-" if ev["class_id"] is None else str(ev["class"])
+            rows.append((str(ev["id"]), ev["at"][:19].replace("T", " "), ev["annotator"],
+                         ev["by"] if isinstance(ev["by"], str) else "?", ev["action"], win, label,
+                         ev["source"], ev["batch_id"][:8]))
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for r in rows:
         click.echo("  ".join(v.ljust(n) for v, n in zip(r, widths)).rstrip())

@@ -102,12 +102,12 @@ def propose_cmd(project, alpha, neighbors, temporal_weight, annotator):
 def queue_cmd(project, n, annotator):
     """Windows to review next, most useful first, with the reason for each."""
     with _open(project, annotator) as p:
-        q = p.review_queue(n)
+        q = p.review_queue(n, as_frame=False)
     click.echo(f"{'window':>8}  {'reason':12}  {'recording':20}  {'start s':>9}  proposal")
-    for r in q.itertuples(index=False):
-        prop = "-" if r.proposed is None or r.proposed != r.proposed else \
-            f"{r.proposed} ({r.confidence:.2f})"
-        click.echo(f"{r.window_id:>8}  {r.reason:12}  {str(r.recording):20}  {r.start_s:>9.2f}  {prop}")
+    for r in q:
+        prop = "-" if r["proposed"] is None else f"{r['proposed']} ({r['confidence']:.2f})"
+        click.echo(f"{r['window_id']:>8}  {r['reason']:12}  {r['recording']:20}  "
+                   f"{r['start_s']:>9.2f}  {prop}")
 
 
 @cli.command("audit")

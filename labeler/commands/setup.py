@@ -161,22 +161,19 @@ def _print_status(p) -> None:
                f"(feature set {s.feature_set_version})")
     click.echo(f"  {s.confirmed} window(s) confirmed"
                + (f" by {', '.join(s.annotators)}" if s.annotators else ""))
-    recs = p.recordings()
-    if len(recs):
+    recs = s.recording_list
+    if recs:
         click.echo("  recordings:")
-        width = max(len(n) for n in recs["name"])
-        for r in recs.itertuples(index=False):
-            start = f", from {r.start_time[:19].replace('T', ' ')} UTC" if isinstance(
-                r.start_time, str) else ""
-            who = f", person {r.person}" if isinstance(r.person, str) else ""
-            click.echo(f"    {r.name:<{width}}  {r.n_samples / r.rate / 60:7.1f} min at "
-                       f"{r.rate:g} Hz{start}{who}")
-    counts = s.counts
-    if len(counts):
-        width = max(len(c) for c in counts["class"])
-        for _, row in counts.iterrows():
-            mark = " (retired)" if row["retired"] else ""
-            click.echo(f"    {row['class']:<{width}}  {row['confirmed']:>6} confirmed{mark}")
+        width = max(len(r.name) for r in recs)
+        for r in recs:
+            start = f", from {r.start_time[:19].replace('T', ' ')} UTC" if r.start_time else ""
+            who = f", person {r.person}" if r.person else ""
+            click.echo(f"    {r.name:<{width}}  {r.minutes:7.1f} min at {r.rate:g} Hz{start}{who}")
+    if s.counts:
+        width = max(len(c.name) for c in s.counts)
+        for c in s.counts:
+            mark = " (retired)" if c.retired else ""
+            click.echo(f"    {c.name:<{width}}  {c.confirmed:>6} confirmed{mark}")
 
 
 @cli.group("recording", cls=_Group)

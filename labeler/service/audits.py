@@ -16,18 +16,20 @@ from __future__ import annotations
 
 import json
 import os
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from labeler.answers import ANSWERS
 from labeler.errors import InputError
-from labeler.exporting import json_ready
 from labeler.results import AccuracyReport
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context
 from labeler.service.ledger import Ledger
 from labeler.service.proposals import GRAPH_PARAMS, Proposals
+
+if TYPE_CHECKING:  # pandas is imported where a table is made
+    import pandas as pd
 
 AUDIT_COLUMNS = ["id", "run_id", "window_id", "position", "drawn_at", "drawn_by",
                  "proposed_class_id", "confidence", "stratum", "stratum_size"]
@@ -47,10 +49,9 @@ class Audits:
 
     def open_windows(self) -> np.ndarray:
         """Windows drawn into an audit and not answered yet."""
-        lab = set(self.ledger.labels()["window_id"].tolist())
-        live = set(self.catalog.windows()["id"].tolist())
-        return np.array(sorted((set(self.ctx.store.audited_window_ids()) & live) - lab),
-                        dtype=np.int64)
+        drawn = np.asarray(self.ctx.store.audited_window_ids(), dtype=np.int64)
+        live = drawn[np.isin(drawn, self.catalog.window_arrays()["id"])]
+        return np.setdiff1d(live, self.ledger.labeled_ids())
 
     def draw(self, n: int = 30, *, random_state=None) -> pd.DataFrame:
         """Draw ``n`` proposed, unconfirmed windows for an audit, at random within bands of
@@ -61,6 +62,8 @@ class Audits:
         Returns window_id, position, recording, start_s (in random order). Confirm the windows
         with source "audit".
         """
+        import pandas as pd
+
         from labeler.estimate import draw_stratified_audit
 
         if int(n) != n or n < 1:
@@ -94,6 +97,8 @@ class Audits:
     def status(self) -> pd.DataFrame:
         """Every audited window: window_id, run_id, proposed (at draw time), confidence, answer
         (its current label, None while unanswered), correct."""
+        import pandas as pd
+
         df = pd.DataFrame(self.ctx.store.audits(), columns=AUDIT_COLUMNS)
         df = df[df["window_id"].isin(self.catalog.windows()["id"])]  # not of removed recordings
         lab = self.ledger.labels()
@@ -126,6 +131,8 @@ class Audits:
         else:
             part = self.compute(run)
             if not self.ctx.store.readonly:  # read-only: computed, not kept
+                from labeler.exporting import json_ready
+
                 data = json.dumps(json_ready(part)).encode()
                 self.ctx.store.put_blob(ESTIMATE_BLOB, data,
                                         {"run_id": int(run["id"]), "form": ESTIMATE_FORM},
@@ -145,6 +152,8 @@ class Audits:
         """The slow part of the estimate of ``run`` (the latest proposal run; see the module
         docstring): cross-validation of the confirmations (the latest audit's answers left to the
         audit), and the label each audit answer the run learned from gets when it is hidden."""
+        import pandas as pd
+
         from labeler.estimate import audit_held_out, importance_weights, proposal_accuracy
         from labeler.spreading import LabelSpreader
 
@@ -199,6 +208,8 @@ class Audits:
 
     def _report(self, run: dict, part: dict) -> AccuracyReport:
         """The report of ``run`` from its stored part and the audit as answered now."""
+        import pandas as pd
+
         from labeler.estimate import audit_accuracy, calibrate, with_audit
         from labeler.quality import training_set_estimate
 

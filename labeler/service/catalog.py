@@ -11,19 +11,22 @@ import os
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Sequence
+from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
-import pandas as pd
 
 from labeler import features as _features
 from labeler.errors import InputError, ProjectError
 from labeler.preparing import CHUNK_SECONDS, PreparedRecording, prepare_recording  # noqa: F401
-from labeler.recordings import Recording, conform_channels, read_recording
-from labeler.results import RemovedRecording
+from labeler.results import RecordingSummary, RemovedRecording
 from labeler.service.context import Context, Progress
 from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, window_samples
 from storage import StoreError
+
+if TYPE_CHECKING:  # pandas is imported where a table is made
+    import pandas as pd
+
+    from labeler.recordings import Recording
 
 RECORDING_COLUMNS = ["id", "name", "source_path", "content_hash", "rate", "channels", "units",
                      "n_samples", "start_time", "added_at", "added_by", "repairs", "window_length",
@@ -67,6 +70,8 @@ class Catalog:
                    **read_options) -> list[Recording]:
         """Read and check recording files (nothing is written). ``read_options`` go to
         :func:`labeler.recordings.read_recording` (see :class:`labeler.profiles.ReadOptions`)."""
+        from labeler.recordings import read_recording
+
         if not paths:
             raise InputError("no recording files given; pass one or more CSV or Parquet files")
         recs: list[Recording] = []
@@ -82,6 +87,8 @@ class Catalog:
             ) -> list[AddedRecording]:
         """Add already-read recordings in one transaction: all of them or none (``dry_run``: check
         them and write nothing; ``person``: who wore the sensors, for grouped splits)."""
+        from labeler.recordings import conform_channels
+
         if person is not None:
             person = check_person(person)
         # one channel set per project: features of different channels cannot be compared
@@ -170,6 +177,8 @@ class Catalog:
     # ------------------------------------------------------------------ recordings
     def recordings(self, include_removed: bool = False) -> pd.DataFrame:
         """The recordings in the project (and removed ones, with ``removed_at``, if asked)."""
+        import pandas as pd
+
         return pd.DataFrame(self.ctx.store.recordings(include_removed=include_removed),
                             columns=RECORDING_COLUMNS)
 
@@ -187,9 +196,29 @@ class Catalog:
             self.ctx.store.conn.execute("PRAGMA wal_checkpoint(PASSIVE)")
         return RemovedRecording(id=rid, name=row["name"], windows=n_windows, confirmed=confirmed)
 
+    def recording_summaries(self) -> list[RecordingSummary]:
+        """Name, length, rate, start and wearer of each recording in the project."""
+        return [RecordingSummary(r["name"], int(r["n_samples"]), float(r["rate"]),
+                                 r["start_time"] if isinstance(r["start_time"], str) else None,
+                                 r["person"] if isinstance(r["person"], str) else None)
+                for r in self.ctx.store.recordings()]
+
+    def n_windows(self) -> int:
+        """How many windows the project has (counted by the file unless already read)."""
+        cached = self.ctx.cache.get("windows")
+        return len(cached) if cached is not None else int(self.ctx.store.count_windows())
+
+    def names_of(self, window_ids) -> dict[int, str]:
+        """"<recording>#<number>" of the windows asked for (those of removed recordings marked
+        " (removed)"), by window id; ids of no window are left out. Reads only those windows."""
+        return {wid: f"{name}#{seq}" + (" (removed)" if removed else "")
+                for wid, (name, seq, removed) in self.ctx.store.window_names(window_ids).items()}
+
     def window_names(self) -> pd.Series:
         """"<recording>#<number>" of every window, removed recordings' included (marked
         " (removed)"), indexed by window id: what the label history names."""
+        import pandas as pd
+
         cols = self.ctx.store.windows_columns(include_removed=True)
         recs = self.recordings(include_removed=True).set_index("id")
         rid = pd.Series(cols["recording_id"])
@@ -245,13 +274,28 @@ class Catalog:
 
         Ordered by id, which is also the row order of :meth:`features` and every per-window array.
         """
+        import pandas as pd
+
         cache = self.ctx.cache
         if "windows" not in cache:
-            df = pd.DataFrame(self.ctx.store.windows_columns())
-            names = dict(zip(*[self.recordings()[c] for c in ("id", "name")]))
+            df = pd.DataFrame(self.window_arrays())
+            names = {r["id"]: r["name"] for r in self.ctx.store.recordings()}
             df.insert(2, "recording", df["recording_id"].map(names))
             cache["windows"] = df
         return cache["windows"].copy()
+
+    def window_arrays(self) -> dict[str, np.ndarray]:
+        """The columns of :meth:`windows` but the recording's name, as arrays (read-only)."""
+        cache = self.ctx.cache
+        if "window_arrays" not in cache:
+            cols = self.ctx.store.windows_columns()
+            out = {k: np.array(cols[k], dtype=np.int64) for k in
+                   ("id", "recording_id", "seq", "start_sample", "stop_sample")}
+            out.update({k: np.array(cols[k], dtype=np.float64) for k in ("start_s", "stop_s")})
+            for a in out.values():
+                a.flags.writeable = False
+            cache["window_arrays"] = out
+        return dict(cache["window_arrays"])
 
     def features(self) -> tuple[np.ndarray, list[str]]:
         """(X float32 (n_windows, n_features), names), rows in window-id order."""
@@ -297,16 +341,15 @@ class Catalog:
     def window_sequence(self) -> tuple[np.ndarray, np.ndarray]:
         """(recording id, sequence) per window for temporal edges: consecutive windows of one
         recording are one window step apart; a gap in the recording adds a jump of 2."""
-        w = self.windows()
-        recs = self.recordings().set_index("id")
-        rid = w["recording_id"].to_numpy(np.int64)
-        start = w["start_sample"].to_numpy(np.int64)
-        seq = np.zeros(len(w), dtype=np.int64)
+        w = self.window_arrays()
+        steps = {r["id"]: int(r["window_step"]) for r in self.ctx.store.recordings()}
+        rid = w["recording_id"].copy()
+        start = w["start_sample"]
+        seq = np.zeros(rid.size, dtype=np.int64)
         for r in np.unique(rid):
             idx = np.flatnonzero(rid == r)
             idx = idx[np.argsort(start[idx], kind="stable")]
-            step = int(recs.loc[r, "window_step"])
-            jumps = np.where(np.diff(start[idx]) == step, 1, 2)
+            jumps = np.where(np.diff(start[idx]) == steps[int(r)], 1, 2)
             seq[idx] = np.concatenate([[0], np.cumsum(jumps)])
         return rid, seq
 

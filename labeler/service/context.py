@@ -35,7 +35,7 @@ def check_annotator(name: str) -> str:
 class Context:
     """The open project file, who acts, and arrays read from the file (dropped on change).
 
-    Cache keys: ``windows``, ``features``, ``map``, ``graph``, ``proposals``.
+    Cache keys: ``windows``, ``window_arrays``, ``features``, ``map``, ``graph``, ``proposals``.
     """
 
     def __init__(self, store: Store, annotator: str | None = None):

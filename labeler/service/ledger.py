@@ -9,17 +9,19 @@ from __future__ import annotations
 import os
 import re
 from pathlib import Path
-from typing import Iterable
+from typing import TYPE_CHECKING, Iterable
 
 import numpy as np
-import pandas as pd
 
 from labeler.answers import ANSWER_COLOUR, answer_class, is_answer, is_reserved
 from labeler.errors import InputError
-from labeler.results import ImportReport, ImportRow, LabelBatch, label_batch
+from labeler.results import ClassCount, ImportReport, ImportRow, LabelBatch, label_batch
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context
 from storage import StoreError
+
+if TYPE_CHECKING:  # pandas is imported where a table is made
+    import pandas as pd
 
 # Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
 # colorblind people", 2008: eight colours distinguishable with the common colour-vision deficiencies.
@@ -53,17 +55,19 @@ class Ledger:
 
     # ------------------------------------------------------------------ classes
     def classes(self, include_retired: bool = True) -> pd.DataFrame:
+        import pandas as pd
+
         return pd.DataFrame(self.ctx.store.classes(include_retired), columns=CLASS_COLUMNS)
 
     def class_names(self) -> dict[int, str]:
         """Class id -> name, retired classes included."""
-        cls = self.classes()
-        return dict(zip(cls["id"], cls["name"]))
+        return {int(r["id"]): r["name"] for r in self.ctx.store.classes()}
 
     def active_classes(self) -> list[str]:
         """Names of the classes that take confirmations (answers that are not an activity, such
         as "(mixed)", are not among them)."""
-        return [n for n in self.classes(include_retired=False)["name"] if not is_answer(n)]
+        return [r["name"] for r in self.ctx.store.classes(include_retired=False)
+                if not is_answer(r["name"])]
 
     def add_class(self, name: str, colour: str | None = None) -> int:
         name = check_class_name(name)
@@ -249,6 +253,8 @@ class Ledger:
 
     def labels(self) -> pd.DataFrame:
         """Current label of every labeled window: window_id, class, class_id, annotator, at, source."""
+        import pandas as pd
+
         rows = self.ctx.store.current_labels()
         df = pd.DataFrame(rows, columns=["window_id", "class_id", "annotator", "at", "source"])
         df.insert(1, "class", df["class_id"].map(self.class_names()))
@@ -258,6 +264,8 @@ class Ledger:
         """(y, class names): y[i] is the index into class names of window i's current label, -1 when
         unlabeled or answered (mixed, not sure: not an activity); rows in window-id order. Class
         names are the active classes plus any retired class that still carries labels."""
+        import pandas as pd
+
         w = self.catalog.windows()
         lab = self.labels()
         lab = lab[~lab["class"].map(is_answer).astype(bool)]
@@ -284,20 +292,34 @@ class Ledger:
         """Label events matching every filter given, oldest first: id, at, annotator (whose label
         the event set), action, window_id, class_id, class, source, batch_id, note, by (who acted:
         differs from annotator for undo and class merges)."""
+        import pandas as pd
+
+        rows = self.history_rows(annotator=annotator, class_name=class_name, source=source,
+                                 since=since, until=until, batch_id=batch_id)
+        columns = EVENT_COLUMNS[:6] + ["class"] + EVENT_COLUMNS[6:] + ["by"]
+        return pd.DataFrame(rows, columns=columns)
+
+    def history_rows(self, *, annotator: str | None = None, class_name: str | None = None,
+                     source: str | None = None, since: str | None = None,
+                     until: str | None = None, batch_id: str | None = None) -> list[dict]:
+        """:meth:`history` as a list of dicts, one per event (class and by None when unknown)."""
         cid = None if not class_name else self.class_id(class_name, allow_retired=True)
         rows = self.ctx.store.events(annotator=annotator or None, class_id=cid,
                                      source=source or None, since=since or None,
                                      until=until or None, batch_id=batch_id or None)
-        df = pd.DataFrame(rows, columns=EVENT_COLUMNS)
-        df.insert(6, "class", df["class_id"].map(self.class_names()))
+        names = self.class_names()
         by = {b["id"]: b["annotator"] for b in self.ctx.store.batches()}
-        df["by"] = df["batch_id"].map(by)
-        return df
+        for r in rows:
+            r["class"] = names.get(r["class_id"])
+            r["by"] = by.get(r["batch_id"])
+        return rows
 
     def class_log(self, annotator: str | None = None) -> pd.DataFrame:
         """Changes of classes, oldest first: at, annotator (who), action (add, rename, colour,
         merge, retire), class_id, class (its name now), detail (a dict; a merge names the class
         merged into by name under "into")."""
+        import pandas as pd
+
         import json
 
         names = self.class_names()
@@ -370,28 +392,51 @@ class Ledger:
 
     # ------------------------------------------------------------------ summaries
     def counts(self) -> pd.DataFrame:
-        """Confirmed windows per class (all classes, retired ones included)."""
-        lab = self.labels()
-        cls = self.classes()
-        confirmed = lab.groupby("class_id").size()
-        out = pd.DataFrame({"class": cls["name"], "confirmed": cls["id"].map(confirmed)
-                            .fillna(0).astype(int), "retired": cls["retired_at"].notna()})
-        return out.reset_index(drop=True)
+        """Confirmed windows per class (all classes, retired ones included): class, confirmed,
+        retired."""
+        import pandas as pd
+
+        rows = [(c.name, c.confirmed, c.retired) for c in self.class_counts()]
+        return pd.DataFrame(rows, columns=["class", "confirmed", "retired"]).astype(
+            {"confirmed": int, "retired": bool})
+
+    def label_annotators(self) -> list[str]:
+        """Who set the current labels, sorted."""
+        return self.ctx.store.label_annotators()
+
+    def class_counts(self) -> list[ClassCount]:
+        """Windows whose current label is each class (all classes, retired ones included, in
+        the classes' order)."""
+        per_class = self.ctx.store.label_counts()
+        return [ClassCount(r["name"], int(per_class.get(r["id"], 0)), r["retired_at"] is not None)
+                for r in self.ctx.store.classes()]
 
     # ------------------------------------------------------------------ several annotators
     def annotations(self) -> pd.DataFrame:
         """Every annotator's current label of every window they labeled: window_id, annotator,
         class_id, label."""
+        import pandas as pd
+
         df = pd.DataFrame(self.ctx.store.annotations(),
                           columns=["window_id", "annotator", "class_id"])
         df["label"] = df["class_id"].map(self.class_names())
         return df
 
     def disagreements(self) -> np.ndarray:
-        """Ids of windows whose annotators' current labels differ (for the review queue)."""
-        from labeler.agreement import disagreeing
+        """Ids of windows whose annotators' current labels differ (for the review queue),
+        sorted."""
+        seen: dict[int, set] = {}
+        for window_id, _who, class_id in self.ctx.store.annotations():
+            if class_id is not None:
+                seen.setdefault(int(window_id), set()).add(int(class_id))
+        return np.array(sorted(w for w, c in seen.items() if len(c) > 1), dtype=np.int64)
 
-        return disagreeing(self.annotations())
+    def labeled_ids(self, sources: Iterable[str] | None = None) -> np.ndarray:
+        """Ids of the windows with a current label (set through one of ``sources``, when
+        given), sorted."""
+        keep = None if sources is None else set(sources)
+        return np.array([r[0] for r in self.ctx.store.current_labels()
+                         if keep is None or r[4] in keep], dtype=np.int64)
 
     def agreement(self) -> dict:
         """Agreement between annotators on the windows several of them labeled: pairwise confusion

@@ -9,15 +9,19 @@ has a map places their windows into it as a new run (:meth:`Maps.place_new`); a 
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import io
 
 import numpy as np
-import pandas as pd
 
 from labeler.errors import InputError, ProjectError
 from labeler.results import MapRun
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
+
+if TYPE_CHECKING:  # pandas is imported where a table is made
+    import pandas as pd
 
 
 class Maps:
@@ -96,6 +100,8 @@ class Maps:
 
     def coordinates(self) -> pd.DataFrame:
         """Latest map: columns window_id, x, y (windows added since, if any, are placed)."""
+        import pandas as pd
+
         cache = self.ctx.cache
         if "map" not in cache:
             latest = self.latest()

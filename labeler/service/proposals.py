@@ -9,19 +9,23 @@ suggestions for a person to review.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import hashlib
 import io
 import json
 import time
 
 import numpy as np
-import pandas as pd
 
 from labeler.errors import InputError
 from labeler.results import ProposalRun
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
 from labeler.service.ledger import Ledger
+
+if TYPE_CHECKING:  # pandas is imported where a table is made
+    import pandas as pd
 
 GRAPH_BLOB = "proposals/graph"
 LATEST_BLOB = "proposals/latest"
@@ -32,6 +36,7 @@ GRAPH_PARAMS = ("n_neighbors", "temporal_weight", "pca_components")
 #: floor 0.05 and 0.974/0.982 at power 4 with floor 0.1, so the draw stays close to the ranking.
 QUEUE_POWER = 32.0
 QUEUE_FLOOR = 0.05
+QUEUE_COLUMNS = ["window_id", "reason", "score", "proposed", "confidence", "recording", "start_s"]
 PROPOSAL_COLUMNS = ["window_id", "label", "class_id", "confidence", "margin", "support", "conflict",
                     "confirmed"]
 
@@ -46,10 +51,10 @@ class Proposals:
 
     # ------------------------------------------------------------------ graph
     def _graph_key(self, params: dict) -> str:
-        recs = self.catalog.recordings()
-        ident = {"recordings": [[int(i), str(h)] for i, h in zip(recs["id"], recs["content_hash"])],
+        recs = self.ctx.store.recordings()
+        ident = {"recordings": [[int(r["id"]), str(r["content_hash"])] for r in recs],
                  "features": self.catalog.feature_set_version,
-                 "n_windows": len(self.catalog.windows()), **params}
+                 "n_windows": self.catalog.n_windows(), **params}
         return hashlib.sha256(json.dumps(ident, sort_keys=True).encode()).hexdigest()[:16]
 
     def graph(self, params: dict, progress: Progress | None = None):
@@ -179,6 +184,8 @@ class Proposals:
     def table(self) -> pd.DataFrame:
         """Latest proposals: window_id, label (class name), class_id, confidence, margin, support,
         conflict, confirmed (whether the window was confirmed at that run). Empty when none yet."""
+        import pandas as pd
+
         cache = self.ctx.cache
         if "proposals" in cache:
             return cache["proposals"].copy()
@@ -200,8 +207,20 @@ class Proposals:
     # ------------------------------------------------------------------ review queue
     def review_queue(self, n: int = 50, *, exclude: np.ndarray | None = None,
                      random_state=None) -> pd.DataFrame:
-        """Windows to look at next: window_id, reason (conflict, disagreement, uncertain,
-        unexplored), score, proposed label and its confidence. Uses the latest proposals; before
+        """:meth:`review_rows` as a table: window_id, reason, score, proposed, confidence,
+        recording, start_s."""
+        import pandas as pd
+
+        rows = self.review_rows(n, exclude=exclude, random_state=random_state)
+        df = pd.DataFrame(rows, columns=QUEUE_COLUMNS)
+        return df.astype({"window_id": np.int64, "score": np.float64, "confidence": np.float64,
+                          "start_s": np.float64})
+
+    def review_rows(self, n: int = 50, *, exclude: np.ndarray | None = None,
+                    random_state=None) -> list[dict]:
+        """Windows to look at next, one dict each: window_id, reason (conflict, disagreement,
+        uncertain, unexplored), score, proposed label and its confidence (None and NaN before
+        proposals), recording, start_s. Uses the latest proposals; before
         any confirmation it spreads its picks over the graph. ``exclude``: window ids left out
         (drawn into an open audit). Windows are drawn at random (``QUEUE_POWER``, see
         :mod:`labeler.review`; the seed follows the run and the label history unless
@@ -212,17 +231,16 @@ class Proposals:
 
         if int(n) != n or n < 1:
             raise InputError(f"queue length {n} must be a whole number >= 1")
-        w = self.catalog.windows()
-        if len(w) < 2:
+        w = self.catalog.window_arrays()
+        if w["id"].size < 2:
             raise InputError(f"{self.ctx.path}: the project has fewer than 2 windows; add "
                              "recordings first")
         W, key, _ = self.graph(self.graph_params())
-        ids = w["id"].to_numpy(np.int64)
-        lab = self.ledger.labels()
-        labeled = np.isin(ids, lab["window_id"].to_numpy())
+        ids = w["id"]
+        labeled = np.isin(ids, self.ledger.labeled_ids())
         # a window confirmed while looked at alone (queue or audit) is not raised as a conflict
         # again: the person has seen its signal and the proposal; bulk picks are where slips hide
-        looked = np.isin(ids, lab.loc[lab["source"].isin(("queue", "audit")), "window_id"])
+        looked = np.isin(ids, self.ledger.labeled_ids(("queue", "audit")))
         p = self.latest_arrays()
         outputs = None
         if p is not None and p["meta"].get("graph_key") == key and p["window_id"].size == ids.size:
@@ -246,14 +264,13 @@ class Proposals:
                                            zip(ids[q.index[drawn]], q.probability[drawn],
                                                q.pool[drawn]))
         names = self.ledger.class_names()
-        df = pd.DataFrame({"window_id": ids[q.index], "reason": q.reason, "score": q.score})
-        if outputs is not None:
-            df["proposed"] = pd.Series(outputs.label[q.index]).map(names).to_numpy()
-            df["confidence"] = outputs.confidence[q.index].astype(np.float64)
-        else:
-            df["proposed"] = None
-            df["confidence"] = np.nan
-        w_idx = w.set_index("id").loc[df["window_id"]]
-        df["recording"] = w_idx["recording"].to_numpy()
-        df["start_s"] = w_idx["start_s"].to_numpy()
-        return df
+        recordings = {r["id"]: r["name"] for r in self.ctx.store.recordings()}
+        rows = []
+        for k, i in enumerate(q.index):
+            rows.append({
+                "window_id": int(ids[i]), "reason": str(q.reason[k]), "score": float(q.score[k]),
+                "proposed": None if outputs is None else names.get(int(outputs.label[i])),
+                "confidence": float("nan") if outputs is None else float(outputs.confidence[i]),
+                "recording": recordings[int(w["recording_id"][i])],
+                "start_s": float(w["start_s"][i])})
+        return rows
