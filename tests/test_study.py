@@ -236,3 +236,82 @@ def test_cli_ingest_on_a_local_cluster_and_apply_on_a_given_scheduler(tmp_path, 
                            str(tmp_path / "out2")], env=env)
     assert res.exit_code == 2
     assert res.output.strip().endswith("nowhere: no such file or folder; check the path")
+
+
+def _few_confirmed_basic_motions(tmp_path, per_class=2):
+    """A project of the BasicMotions train split with ``per_class`` windows of each activity
+    confirmed (in as many recordings) and proposals made; returns (path, study folder, truth of the study)."""
+    train = _basic_motions_recordings(tmp_path / "train", "train")
+    test = _basic_motions_recordings(tmp_path / "study", "test")
+    path = tmp_path / "bm.labeler"
+    with Project.create(path, window_length_s=5.0, window_step_s=5.0, annotator="t") as p:
+        p.add_recordings(sorted((tmp_path / "train").glob("*.csv")))
+        w = p.windows()
+        series = (w["start_sample"] // 100).to_numpy()
+        labels = np.array([train[r][s] for r, s in zip(w["recording"], series)])
+        for c in np.unique(labels):  # the first window of the class in each of two recordings
+            first = w[labels == c].groupby("recording_id")["id"].min()
+            p.confirm(first.to_numpy()[:per_class], c, create_class=True)
+        p.refresh_proposals()
+    return path, tmp_path / "study", test
+
+
+def _accuracy(out, truth) -> float:
+    right = total = 0
+    for name, labels in truth.items():
+        got = pd.read_csv(out / name / "windows.csv")
+        right += int((got["label"].to_numpy()
+                      == labels[(got["start_s"].to_numpy() // 10).astype(int)]).sum())
+        total += len(got)
+    return right / total
+
+
+def test_apply_with_proposed_trains_on_the_confident_proposals_too(tmp_path):
+    # BasicMotions as above; 2 confirmed windows per activity (8 of 80) and the proposals spread
+    # from them. With proposals the model trains on the confirmed windows plus every proposal
+    # of confidence >= the threshold that is not confirmed, and says so in the manifest.
+    path, study, truth = _few_confirmed_basic_motions(tmp_path)
+    with Project.open(path, annotator="t") as p:
+        props = p.proposals()
+        # a threshold that leaves out about half of the proposals
+        threshold = round(float(props.loc[~props["confirmed"], "confidence"].median()), 2)
+        confident = int(((~props["confirmed"]) & (props["confidence"] >= threshold)
+                         & props["label"].notna()).sum())
+        assert 0 < confident < len(props) - 8
+        rep = p.apply_to_study([study], tmp_path / "with", include_proposed=True,
+                               min_confidence=threshold, backend="processes", workers=1)
+        only = p.apply_to_study([study], tmp_path / "only", backend="processes", workers=1)
+    assert len(rep.written) == len(truth) and not rep.refused
+    model = json.loads((tmp_path / "with" / "manifest.json").read_text())["model"]
+    assert model["training"] == {"confirmed_windows": 8, "proposed_windows": confident,
+                                 "proposed_min_confidence": threshold, "recordings": 4}
+    assert model["training_windows"] == 8 + confident
+    base = json.loads((tmp_path / "only" / "manifest.json").read_text())["model"]
+    assert base["training"]["proposed_windows"] == 0
+    assert base["training"]["proposed_min_confidence"] is None
+    assert base["training_windows"] == 8
+    # the study's labels stay good: published accuracies on BasicMotions are about 1.0 (from
+    # memory); 8 confirmations and their confident proposals must label 9 of 10 windows right
+    assert _accuracy(tmp_path / "with", truth) >= 0.9
+
+
+def test_cli_apply_with_proposed_passes_the_threshold_and_refuses_one_outside_0_1(tmp_path):
+    path, study, truth = _few_confirmed_basic_motions(tmp_path)
+    with Project.open(path, readonly=True) as p:
+        props = p.proposals()
+    threshold = round(float(props.loc[~props["confirmed"], "confidence"].quantile(0.25)), 2)
+    confident = int(((~props["confirmed"]) & (props["confidence"] >= threshold)).sum())
+    run = CliRunner()
+    env = {"LABELER_ANNOTATOR": "t"}
+    res = run.invoke(cli, ["apply", str(path), str(study), "--out", str(tmp_path / "out"),
+                           "--with-proposed", "--min-confidence", str(threshold), "--backend",
+                           "processes", "--workers", "1"], env=env)
+    assert res.exit_code == 0, res.output
+    model = json.loads((tmp_path / "out" / "manifest.json").read_text())["model"]
+    assert model["training"]["proposed_min_confidence"] == threshold
+    assert model["training"]["proposed_windows"] == confident > 0
+    res = run.invoke(cli, ["apply", str(path), str(study), "--out", str(tmp_path / "out2"),
+                           "--with-proposed", "--min-confidence", "1.5"], env=env)
+    assert res.exit_code == 2
+    assert res.output.strip() == ("Error: minimum confidence 1.5 is outside 0-1; give e.g. 0.9")
+    assert not (tmp_path / "out2").exists()
