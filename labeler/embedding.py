@@ -118,6 +118,14 @@ PLACE_CHUNK = 50_000
 
 _CALLBACK_EVERY = 25
 
+#: Iterations run between two looks at the map's span and its KL divergence.
+BLOCK_ITER = 50
+#: Interpolation intervals per axis of the FFT-accelerated gradient at most (openTSNE's default
+#: grid has one interval per unit of the map's span, at least 50).
+MAX_GRID_INTERVALS = 100
+#: The plain iterations stop once 50 of them lower the KL divergence by less than this fraction.
+KL_TOL = 0.01
+
 
 # --------------------------------------------------------------------------------------------------
 # parameter rules
@@ -280,8 +288,8 @@ def _place_reduced(state: MapState, Z: np.ndarray, stage: _Stage, n_jobs: int) -
 
 
 def _fit_tsne(Z: np.ndarray, *, perplexity: float, learning_rate: float, n_iter: int,
-              early_exaggeration_iter: int, random_state: int, n_jobs: int, stage: _Stage
-              ) -> tuple[np.ndarray, dict]:
+              early_exaggeration_iter: int, random_state: int, n_jobs: int, stage: _Stage,
+              kl_tol: float = KL_TOL) -> tuple[np.ndarray, dict]:
     from openTSNE import TSNEEmbedding, initialization
     from openTSNE.affinity import PerplexityBasedNN
     from openTSNE.nearest_neighbors import PrecomputedNeighbors
@@ -308,23 +316,56 @@ def _fit_tsne(Z: np.ndarray, *, perplexity: float, learning_rate: float, n_iter:
     total = early_exaggeration_iter + n_iter
     w_ee = early_exaggeration_iter / max(total, 1)
     run = stage.sub(0.3, 1.0)
+    done_ee = done = 0
     if early_exaggeration_iter:
-        emb = emb.optimize(early_exaggeration_iter, exaggeration=EARLY_EXAGGERATION, momentum=0.5,
-                           learning_rate=learning_rate, inplace=True,
-                           callbacks=_callback(run.sub(0.0, w_ee), "t-SNE (early exaggeration)",
-                                               early_exaggeration_iter),
-                           callbacks_every_iters=_CALLBACK_EVERY)
+        emb, done_ee = _optimize(emb, early_exaggeration_iter, run.sub(0.0, w_ee),
+                                 "t-SNE (early exaggeration)", tol=0.0,
+                                 exaggeration=EARLY_EXAGGERATION, momentum=0.5,
+                                 learning_rate=learning_rate)
     if n_iter:
-        emb = emb.optimize(n_iter, exaggeration=1.0, momentum=0.8, learning_rate=learning_rate,
-                           inplace=True,
-                           callbacks=_callback(run.sub(w_ee, 1.0), "t-SNE", n_iter),
-                           callbacks_every_iters=_CALLBACK_EVERY)
+        emb, done = _optimize(emb, n_iter, run.sub(w_ee, 1.0), "t-SNE", tol=kl_tol,
+                              exaggeration=1.0, momentum=0.8, learning_rate=learning_rate)
     Y = np.empty((n, 2), dtype=np.float32)
     Y[order] = np.asarray(emb, dtype=np.float32)
     info = {"neighbors": "exact" if index.n_cells == 1 else "cells", "n_cells": index.n_cells,
             "n_probe": index.n_probe if index.n_cells > 1 else 0, "k_neighbors": k,
-            "kl_divergence": None if emb.kl_divergence is None else float(emb.kl_divergence)}
+            "kl_divergence": None if emb.kl_divergence is None else float(emb.kl_divergence),
+            "n_iter_run": int(done), "gradient": "fft"}
     return Y, info
+
+
+def _optimize(emb, n_iter: int, stage: _Stage, message: str, *, tol: float,
+              **params):
+    """Run up to ``n_iter`` iterations of ``emb`` (an openTSNE embedding, in place) in blocks of
+    :data:`BLOCK_ITER`: (embedding, iterations run).
+
+    Before each block the interpolation grid is set to at most :data:`MAX_GRID_INTERVALS`
+    intervals per axis (openTSNE's ``ints_in_interval`` from the embedding's current span); the
+    cost of an FFT-accelerated gradient grows with the square of the intervals, and a map that
+    spreads out as t-SNE runs would otherwise pay most of its time there. With ``tol`` > 0 the
+    run stops once a block lowers the KL divergence by less than ``tol`` of its value.
+    """
+    done, before = 0, None
+    while done < n_iter:
+        m = min(BLOCK_ITER, n_iter - done)
+        span = float(np.ptp(np.asarray(emb), axis=0).max())
+        kl: list[float] = []
+
+        def cb(iteration, error, embedding, _at=done):
+            kl.append(float(error))
+            stage((_at + iteration) / max(n_iter, 1), f"{message} {_at + iteration}/{n_iter}")
+            return False
+
+        emb = emb.optimize(m, inplace=True, callbacks=cb,
+                           callbacks_every_iters=min(_CALLBACK_EVERY, m),
+                           ints_in_interval=max(1.0, span / MAX_GRID_INTERVALS), **params)
+        done += m
+        if not kl:
+            continue
+        if tol > 0 and before is not None and before - kl[-1] < tol * kl[-1]:
+            break
+        before = kl[-1]
+    return emb, done
 
 
 # --------------------------------------------------------------------------------------------------
