@@ -289,7 +289,7 @@ def _place_reduced(state: MapState, Z: np.ndarray, stage: _Stage, n_jobs: int) -
 
 def _fit_tsne(Z: np.ndarray, *, perplexity: float, learning_rate: float, n_iter: int,
               early_exaggeration_iter: int, random_state: int, n_jobs: int, stage: _Stage,
-              kl_tol: float = KL_TOL) -> tuple[np.ndarray, dict]:
+              kl_tol: float | None = None) -> tuple[np.ndarray, dict]:
     from openTSNE import TSNEEmbedding, initialization
     from openTSNE.affinity import PerplexityBasedNN
     from openTSNE.nearest_neighbors import PrecomputedNeighbors
@@ -316,14 +316,15 @@ def _fit_tsne(Z: np.ndarray, *, perplexity: float, learning_rate: float, n_iter:
     total = early_exaggeration_iter + n_iter
     w_ee = early_exaggeration_iter / max(total, 1)
     run = stage.sub(0.3, 1.0)
-    done_ee = done = 0
+    done = 0
     if early_exaggeration_iter:
-        emb, done_ee = _optimize(emb, early_exaggeration_iter, run.sub(0.0, w_ee),
-                                 "t-SNE (early exaggeration)", tol=0.0,
-                                 exaggeration=EARLY_EXAGGERATION, momentum=0.5,
-                                 learning_rate=learning_rate)
+        emb, _ = _optimize(emb, early_exaggeration_iter, run.sub(0.0, w_ee),
+                           "t-SNE (early exaggeration)", tol=0.0,
+                           exaggeration=EARLY_EXAGGERATION, momentum=0.5,
+                           learning_rate=learning_rate)
     if n_iter:
-        emb, done = _optimize(emb, n_iter, run.sub(w_ee, 1.0), "t-SNE", tol=kl_tol,
+        emb, done = _optimize(emb, n_iter, run.sub(w_ee, 1.0), "t-SNE",
+                              tol=KL_TOL if kl_tol is None else kl_tol,
                               exaggeration=1.0, momentum=0.8, learning_rate=learning_rate)
     Y = np.empty((n, 2), dtype=np.float32)
     Y[order] = np.asarray(emb, dtype=np.float32)

@@ -86,7 +86,7 @@ class Proposals:
         buf = io.BytesIO()
         from scipy import sparse
 
-        sparse.save_npz(buf, W)
+        sparse.save_npz(buf, W, compressed=False)  # read on every queue: no inflating
         self.ctx.store.put_blob(GRAPH_BLOB, buf.getvalue(), {"key": key, **params})
         self.ctx.cache["graph"] = (W, key)
         return W, key, True
