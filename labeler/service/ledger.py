@@ -318,9 +318,9 @@ class Ledger:
         """Changes of classes, oldest first: at, annotator (who), action (add, rename, colour,
         merge, retire), class_id, class (its name now), detail (a dict; a merge names the class
         merged into by name under "into")."""
-        import pandas as pd
-
         import json
+
+        import pandas as pd
 
         names = self.class_names()
         rows = []
