@@ -51,7 +51,11 @@ from numpy.lib.stride_tricks import sliding_window_view
 from labeler.channels import parse_channel, triads
 from labeler.errors import ValueInputError
 
-FEATURE_SET_VERSION = "1"
+#: Version of the feature set new projects compute. "1": the per-channel and per-triad features
+#: above; "2": those and, per triad, the orientation-free features of :mod:`labeler.invariants`
+#: appended. A project keeps the version it was created with, so its recordings stay comparable.
+FEATURE_SET_VERSION = "2"
+FEATURE_SET_VERSIONS = ("1", "2")
 
 # band edges in Hz; the last band runs to the Nyquist frequency
 BAND_EDGES = (0.0, 1.0, 3.0, 6.0, 10.0, math.inf)
@@ -93,16 +97,37 @@ def _channel_label(name: str) -> str:
     return ch.name if ch is not None else name.strip()
 
 
-def feature_names(channels: list[str]) -> list[str]:
+def _check_version(version: str) -> str:
+    version = str(version)
+    if version not in FEATURE_SET_VERSIONS:
+        raise ValueInputError(f"feature set version {version!r} is unknown; this labeler computes "
+                              f"{', '.join(FEATURE_SET_VERSIONS)}")
+    return version
+
+
+def feature_names(channels: list[str], version: str = FEATURE_SET_VERSION) -> list[str]:
     """Names of the columns ``window_features`` returns for these channels, in order."""
+    from labeler.invariants import invariant_names
+
+    version = _check_version(version)
     names = [f"{_channel_label(c)}.{f}" for c in channels for f in CHANNEL_FEATURES]
-    for site, kind, _ in triads(list(channels)):
+    tr = triads(list(channels))
+    for site, kind, _ in tr:
         prefix = f"{site}_{kind}"
         names += [f"{prefix}.{f}" for f in MAG_FEATURES]
         if kind == "acc":
             names += [f"{prefix}.{f}" for f in GRAVITY_FEATURES]
         names += [f"{prefix}.{f}" for f in CORR_FEATURES]
+    if version != "1":
+        names += invariant_names(tr, BAND_EDGES)
     return names
+
+
+def orientation_free(names: list[str]) -> np.ndarray:
+    """Positions of the columns that do not depend on how a sensor sits (the norms' features of
+    each triad and :mod:`labeler.invariants`), by name."""
+    return np.array([i for i, n in enumerate(names) if ".mag." in n or ".inv." in n],
+                    dtype=np.int64)
 
 
 class _Plan:
@@ -304,13 +329,15 @@ def _chunk_features(ws: _Workspace, plan: _Plan) -> np.ndarray:
 
 
 def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: float,
-                    channels: list[str], chunk_size: int = 4096) -> tuple[np.ndarray, list[str]]:
+                    channels: list[str], chunk_size: int = 4096,
+                    version: str = FEATURE_SET_VERSION) -> tuple[np.ndarray, list[str]]:
     """Features of the windows ``signal[s:s + length]`` for each s in ``starts``.
 
     ``signal`` is (n_samples, n_channels) in canonical units (g, deg/s), one column per name in
     ``channels``; ``starts`` are window start samples. Returns X float32 (n_windows, n_features)
-    and the column names (``feature_names(channels)``). Windows are processed ``chunk_size`` at a
-    time (fewer when windows are long or channels many, to bound memory).
+    and the column names (``feature_names(channels, version)``). Windows are processed
+    ``chunk_size`` at a time (fewer when windows are long or channels many, to bound memory).
+    ``version``: the feature set (:data:`FEATURE_SET_VERSIONS`).
     """
     signal = np.asarray(signal)
     if signal.ndim != 2:
@@ -328,7 +355,8 @@ def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: f
     if starts.size and (starts.min() < 0 or starts.max() + length > n_samples):
         raise ValueInputError("window out of range: every start must satisfy "
                          f"0 <= start <= n_samples - length ({n_samples} - {length})")
-    names = feature_names(channels)
+    version = _check_version(version)
+    names = feature_names(channels, version)
     X = np.empty((starts.size, len(names)), dtype=np.float32)
     if starts.size == 0:
         return X, names
@@ -349,5 +377,17 @@ def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: f
             ws.raw[:C] = every[:, int(chunk[0]):int(chunk[-1]) + 1:int(gaps[0])]
         else:
             ws.raw[:C] = every[:, chunk]  # whole windows gathered, not sample by sample
-        X[a:a + step] = _chunk_features(ws, plan)
+        base = _chunk_features(ws, plan)
+        X[a:a + step, :base.shape[1]] = base
+        if version != "1" and plan.triads:
+            X[a:a + step, base.shape[1]:] = _invariant_block(ws, plan)
     return X, names
+
+
+def _invariant_block(ws: _Workspace, plan: _Plan) -> np.ndarray:
+    """Orientation-free features (:mod:`labeler.invariants`) of the windows in ``ws.raw``."""
+    from labeler.invariants import invariant_features
+
+    wins = {(site, kind): ws.raw[list(idx)].transpose(1, 2, 0)
+            for site, kind, idx in plan.triads}
+    return invariant_features(wins, plan.triads, plan.rate, BAND_EDGES)

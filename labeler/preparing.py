@@ -71,10 +71,13 @@ def window_starts(rec: Recording, length_s: float, step_s: float) -> tuple[np.nd
     return starts, length, step
 
 
-def recording_features(rec: Recording, starts: np.ndarray, length: int) -> tuple[np.ndarray, list[str]]:
-    """(X float32 (n_windows, n_features), names) of a recording's windows; InputError when a
-    feature is not finite."""
-    X, names = _features.window_features(rec.signal, starts, length, rec.rate, rec.channels)
+def recording_features(rec: Recording, starts: np.ndarray, length: int,
+                       version: str = _features.FEATURE_SET_VERSION
+                       ) -> tuple[np.ndarray, list[str]]:
+    """(X float32 (n_windows, n_features), names) of a recording's windows in feature set
+    ``version``; InputError when a feature is not finite."""
+    X, names = _features.window_features(rec.signal, starts, length, rec.rate, rec.channels,
+                                         version=version)
     X = np.ascontiguousarray(X, dtype=np.float32)
     if not np.isfinite(X).all():
         bad = names[int(np.flatnonzero(~np.isfinite(X).all(axis=0))[0])]
@@ -83,11 +86,11 @@ def recording_features(rec: Recording, starts: np.ndarray, length: int) -> tuple
     return X, list(names)
 
 
-def prepare_recording(rec: Recording, length_s: float, step_s: float,
-                      added_by: str) -> PreparedRecording:
+def prepare_recording(rec: Recording, length_s: float, step_s: float, added_by: str,
+                      version: str = _features.FEATURE_SET_VERSION) -> PreparedRecording:
     """Windows (``length_s`` every ``step_s``, never across a gap), features and signal chunks."""
     starts, length, step = window_starts(rec, length_s, step_s)
-    X, names = recording_features(rec, starts, length)
+    X, names = recording_features(rec, starts, length, version)
     row = {"name": rec.name, "source_path": rec.source_path, "content_hash": rec.content_hash,
            "rate": rec.rate, "channels": rec.channels, "units": rec.units,
            "n_samples": rec.n_samples, "start_time": rec.start_time,
@@ -100,6 +103,6 @@ def prepare_recording(rec: Recording, length_s: float, step_s: float,
     wins = {"seq": np.arange(starts.size), "start_sample": starts,
             "stop_sample": starts + length, "start_s": starts / rec.rate,
             "stop_s": (starts + length) / rec.rate}
-    feats = {"version": _features.FEATURE_SET_VERSION, "names": names,
+    feats = {"version": str(version), "names": names,
              "n_windows": int(X.shape[0]), "n_features": int(X.shape[1]), "data": X.tobytes()}
     return PreparedRecording(row, chunks, wins, feats)

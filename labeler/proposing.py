@@ -46,7 +46,7 @@ from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _chec
 #: default: measured with the review queue (``--part tune-proposals --quick``, confirmations to
 #: 95 %), weight 0.3 gave 45 on 2 h of the simulator (45 without), 100 on the crew of six (70
 #: without), 45 on digits with weight 0.2 (45 without); 0.5 gave 50 on digits (45 without).
-DEFAULT_CLASSIFIER_WEIGHT = 0.0
+DEFAULT_CLASSIFIER_WEIGHT = 0.3
 #: Probability that a window's activity goes on in the next window (0 = no smoothing). Off by
 #: default: with smoothing (stay 0.9 or 0.97) the review queue did not reach 95 % within 150
 #: confirmations on 2 h of the simulator (70 without; random order 65 against 85): the smoothed
@@ -56,11 +56,39 @@ DEFAULT_STAY = 0.0
 DEFAULT_C = 1.0
 #: Power of the emissions in the smoothing (windows overlapping by half share their samples).
 DEFAULT_TEMPER = 0.5
+#: The classifier's principal axes (as the graph's) and the fewest orientation-free columns it
+#: takes alone (fewer: every column).
+CLASSIFIER_COMPONENTS = 30
+MIN_FREE_COLUMNS = 6
 _EPS = 1e-6
 
 
 class ProposingInputError(InputError, ValueError):
     """Bad input to the proposer (also a ValueError, as scikit-learn conventions expect)."""
+
+
+def classifier_view(X, names, n_components: int = CLASSIFIER_COMPONENTS) -> np.ndarray:
+    """The classifier's features of every window: the columns that do not depend on how a sensor
+    sits (:func:`labeler.features.orientation_free`) when there are at least
+    :data:`MIN_FREE_COLUMNS` of them, else every column; standardized and projected on at most
+    ``n_components`` principal axes (float64, n_windows x k).
+
+    The graph keeps every feature (posture, the direction of gravity in the sensor, tells
+    activities apart within one person); the classifier, trained on few confirmations, is to
+    carry them to other people, whose sensors may sit otherwise."""
+    from labeler.features import orientation_free
+    from labeler.graph import reduce, standardize
+
+    X = np.asarray(X)
+    names = list(names)
+    if X.ndim != 2 or X.shape[1] != len(names):
+        raise ProposingInputError(f"features must be (windows x {len(names)} named columns), got "
+                                  f"shape {X.shape}")
+    free = orientation_free(names)
+    if free.size >= MIN_FREE_COLUMNS:
+        X = X[:, free]
+    Z = standardize(X)
+    return reduce(Z, n_components if n_components < Z.shape[1] else None)
 
 
 def classifier_probabilities(Z, y, classes, *, C: float = DEFAULT_C) -> np.ndarray:
@@ -201,6 +229,8 @@ class Proposer(BaseEstimator):
     stay : probability that an activity goes on to the next window; 0 turns smoothing off.
     C : inverse regularization of the logistic regression.
     warm_start : spreading starts from the previous fit's label mass.
+    classifier_features : (n_windows, d) array or None; the classifier's features when ``fit``
+        is given none (so that a clone fits like the original, e.g. in held-out folds).
 
     Attributes
     ----------
@@ -213,7 +243,7 @@ class Proposer(BaseEstimator):
     def __init__(self, alpha: float = DEFAULT_ALPHA, *, classifier_weight: float =
                  DEFAULT_CLASSIFIER_WEIGHT, stay: float = DEFAULT_STAY,
                  temper: float = DEFAULT_TEMPER, uncertainty: str = "both", C: float = DEFAULT_C,
-                 warm_start: bool = True):
+                 warm_start: bool = True, classifier_features=None):
         self.alpha = alpha
         self.classifier_weight = classifier_weight
         self.stay = stay
@@ -221,6 +251,7 @@ class Proposer(BaseEstimator):
         self.uncertainty = uncertainty
         self.C = C
         self.warm_start = warm_start
+        self.classifier_features = classifier_features
 
     def fit(self, graph, y, *, features=None, recording=None, seq=None, init=None,
             init_classes=None):
@@ -241,6 +272,8 @@ class Proposer(BaseEstimator):
         if not (self.C > 0):
             raise ProposingInputError(f"C must be > 0, got {self.C!r}")
         y = _check_y(y)
+        if features is None:
+            features = self.classifier_features
         sp = getattr(self, "spreader_", None)
         if sp is None or not self.warm_start or sp.alpha != self.alpha:
             sp = LabelSpreader(alpha=self.alpha, warm_start=self.warm_start)

@@ -50,9 +50,14 @@ def test_names_and_shape(random_windows):
     names = feature_names(CH12)
     assert list(D) == names
     assert len(set(names)) == len(names)
-    # 21 per channel; per triad 6 magnitude + 3 correlations, + 3 gravity for acceleration
-    assert len(names) == 12 * len(CHANNEL_FEATURES) + 4 * 9 + 2 * 3 == 294
-    assert X.shape == (starts.size, 294) and X.dtype == np.float32
+    # set 1: 21 per channel; per triad 6 magnitude + 3 correlations, + 3 gravity for acceleration
+    assert len(feature_names(CH12, "1")) == 12 * len(CHANNEL_FEATURES) + 4 * 9 + 2 * 3 == 294
+    # set 2 adds per triad 16 orientation-free features, + 3 along gravity for acceleration and
+    # 1 for a gyroscope with an accelerometer at its site
+    assert FEATURE_SET_VERSION == "2"
+    assert len(names) == 294 + 4 * 16 + 2 * 3 + 2 * 1 == 366
+    assert names[:294] == feature_names(CH12, "1")
+    assert X.shape == (starts.size, 366) and X.dtype == np.float32
     for name in ("wrist_acc_x.mean", "wrist_acc.mag.std", "wrist_acc.gravity.x",
                  "wrist_acc.corr.xy", "hip_gyr_z.ac_lag", "hip_gyr.mag.ac_peak"):
         assert name in D

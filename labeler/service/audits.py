@@ -155,7 +155,6 @@ class Audits:
         import pandas as pd
 
         from labeler.estimate import audit_held_out, importance_weights, proposal_accuracy
-        from labeler.spreading import LabelSpreader
 
         p = self.proposals.latest_arrays()
         ids = self.catalog.windows()["id"].to_numpy(np.int64)
@@ -163,7 +162,7 @@ class Audits:
             raise InputError(f"{self.ctx.path}: the windows changed since the last proposals; run "
                              "`labeler propose` again")
         y = p["y"].astype(np.int64)  # the confirmations the run spread
-        W, _, _ = self.proposals.graph({k: run["params"][k] for k in GRAPH_PARAMS})
+        W, key, _ = self.proposals.graph({k: run["params"][k] for k in GRAPH_PARAMS})
         rid, seq = self.catalog.window_sequence()
         names = self.ledger.class_names()
         active = set(self.ledger.active_classes())
@@ -189,7 +188,9 @@ class Audits:
             batch[pos[ok]] = code[ok]
         audit = self._latest_audit(int(run["id"]))
         in_audit = np.isin(ids, audit["window_id"].to_numpy(np.int64)) & (y >= 0)
-        spreader = LabelSpreader(alpha=run["params"]["alpha"])
+        # the proposer as the run used it: the held-out folds score the proposals it stored
+        spreader = self.proposals.proposer(float(run["params"]["alpha"]),
+                                           float(run["params"].get("classifier_weight", 0.0)), key)
         cv, cal = proposal_accuracy(
             W, y, conf, recording=rid, seq=seq, weights=weights, batch=batch, spreader=spreader,
             init=p["F"].astype(np.float64), init_classes=p["classes"], classes=codes,

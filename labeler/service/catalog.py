@@ -150,6 +150,10 @@ class Catalog:
             if (int(p.row["window_length"]), int(p.row["window_step"])) != (length, step):
                 raise InputError(f"{p.source_path}: prepared with other window settings than "
                                  "the project's; prepare it again")
+            if str(p.features.get("version")) != self.feature_set_version:
+                raise InputError(f"{p.source_path}: prepared with feature set "
+                                 f"{p.features.get('version')}, the project uses "
+                                 f"{self.feature_set_version}; prepare it again")
             if list(p.row["channels"]) != channels:
                 raise InputError(f"{p.source_path}: its channels differ from the project's "
                                  f"({', '.join(channels[:6])} ...); map its columns to them with "
@@ -172,7 +176,8 @@ class Catalog:
         return added
 
     def _prepare(self, rec: Recording) -> PreparedRecording:
-        return prepare_recording(rec, self.window_length_s, self.window_step_s, self.ctx.annotator)
+        return prepare_recording(rec, self.window_length_s, self.window_step_s, self.ctx.annotator,
+                                 self.feature_set_version)
 
     # ------------------------------------------------------------------ recordings
     def recordings(self, include_removed: bool = False) -> pd.DataFrame:

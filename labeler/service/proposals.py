@@ -99,6 +99,28 @@ class Proposals:
         from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
         return {"n_neighbors": 10, "temporal_weight": DEFAULT_TEMPORAL_WEIGHT, "pca_components": 30}
 
+    def classifier_features(self, key: str) -> np.ndarray:
+        """The classifier's view of the window features (:func:`labeler.proposing.classifier_view`),
+        cached with the graph it goes with."""
+        from labeler.proposing import classifier_view
+
+        cached = self.ctx.cache.get("classifier_features")
+        if cached is not None and cached[1] == key:
+            return cached[0]
+        X, names = self.catalog.features()
+        Z = classifier_view(X, names)
+        self.ctx.cache["classifier_features"] = (Z, key)
+        return Z
+
+    def proposer(self, alpha: float, classifier_weight: float, key: str):
+        """An unfitted :class:`labeler.proposing.Proposer` as a run with these settings uses it
+        (also what the accuracy estimate refits in its held-out folds)."""
+        from labeler.proposing import Proposer
+
+        Z = self.classifier_features(key) if classifier_weight > 0 else None
+        return Proposer(alpha=alpha, classifier_weight=classifier_weight, stay=0.0,
+                        classifier_features=Z)
+
     # ------------------------------------------------------------------ runs
     def latest_arrays(self) -> dict | None:
         """The latest stored proposal arrays (npz) with their run, or None."""
@@ -118,7 +140,8 @@ class Proposals:
         Starts from the previous run's scores (warm start) when the graph is unchanged.
         """
         from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
-        from labeler.spreading import DEFAULT_ALPHA, LabelSpreader
+        from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT
+        from labeler.spreading import DEFAULT_ALPHA
 
         t0 = time.perf_counter()
         alpha = DEFAULT_ALPHA if alpha is None else float(alpha)
@@ -137,19 +160,21 @@ class Proposals:
             raise InputError(f"{self.ctx.path}: {exc}") from None
         if progress:
             progress(0.6, "spreading labels")
-        spreader = LabelSpreader(alpha=alpha)
+        cw = float(DEFAULT_CLASSIFIER_WEIGHT)
+        proposer = self.proposer(alpha, cw, key)
         prev = self.latest_arrays()
         same = prev is not None and prev["meta"].get("graph_key") == key \
             and prev["meta"].get("alpha") == alpha
         init = init_classes = None
         if same and prev["F"].shape[0] == y.size:
             init, init_classes = prev["F"].astype(np.float64), prev["classes"]
-        spreader.fit(W, y, init=init, init_classes=init_classes)
+        proposer.fit(W, y, init=init, init_classes=init_classes)
+        spreader = proposer.spreader_
         if same and "reference" in prev:
             reference = prev["reference"].astype(np.float64)
         else:
             reference = spreader.reference_mass()
-        out = spreader.outputs(y, reference=reference)
+        out = proposer.outputs(y, reference=reference)
         unconf = y < 0
         names = self.ledger.class_names()
         counts = {names[int(c)]: int((y == c).sum()) for c in spreader.classes_}
@@ -161,8 +186,12 @@ class Proposals:
                    "iterations": int(spreader.n_iter_), "warm_start": init is not None,
                    "graph_rebuilt": bool(rebuilt), "graph_edges": int(W.nnz // 2)}
         params = {"alpha": alpha, **gparams, "solver": spreader.solver, "tol": spreader.tol,
+                  "classifier_weight": cw,
                   "method": "label spreading (Zhou et al. 2004) on a kNN graph with local "
-                            "scaling (Zelnik-Manor & Perona 2004)", "graph_key": key}
+                            "scaling (Zelnik-Manor & Perona 2004)"
+                            + (f", times a logistic regression on the confirmed windows' "
+                               f"orientation-free features to the power {cw:g}" if cw > 0 else ""),
+                  "graph_key": key}
         buf = io.BytesIO()
         np.savez(buf, window_id=self.catalog.windows()["id"].to_numpy(np.int64),
                  F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,

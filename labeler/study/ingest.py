@@ -78,11 +78,14 @@ def study_files(sources: Sequence[str | os.PathLike]) -> list[str]:
 
 
 def prepare_file(path: str, read_options: dict, length_s: float, step_s: float,
-                 added_by: str) -> PreparedRecording | Refusal:
-    """Read, check, window and compute features of one file (runs on a worker)."""
+                 added_by: str, version: str | None = None) -> PreparedRecording | Refusal:
+    """Read, check, window and compute features (feature set ``version``, default the newest)
+    of one file (runs on a worker)."""
     try:
         rec = read_recording(path, **read_options)
-        return prepare_recording(rec, length_s, step_s, added_by)
+        if version is None:
+            return prepare_recording(rec, length_s, step_s, added_by)
+        return prepare_recording(rec, length_s, step_s, added_by, version)
     except LabelerError as exc:
         return Refusal(str(path), str(exc))
     except MemoryError:
@@ -134,7 +137,7 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
     handles = {}
     for i in todo:
         fut = runner.submit(prepare_file, paths[i], options, project.window_length_s,
-                            project.window_step_s, project.annotator)
+                            project.window_step_s, project.annotator, project.feature_set_version)
         handles[id(fut)] = (i, fut)
     results: dict[int, PreparedRecording | Refusal] = dict(early)
     added_ids: list[int] = []

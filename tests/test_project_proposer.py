@@ -1,0 +1,129 @@
+"""What Project proposes: label spreading times a logistic regression on orientation-free features.
+
+Outside references: the closed form of label spreading, F* = (1 - alpha) (I - alpha S)^-1 Y with
+S = D^-1/2 W D^-1/2 (Zhou et al., "Learning with local and global consistency", 2004), solved
+here with scipy's sparse direct solver; scikit-learn's StandardScaler, PCA and LogisticRegression
+(Pedregosa et al., "Scikit-learn: machine learning in Python", 2011) on the same columns; an L2
+penalized logistic regression does not change under a rotation of its inputs, so the principal
+axes' signs do not matter (common practice, no source).
+"""
+
+from __future__ import annotations
+
+import io
+import warnings
+
+import numpy as np
+import pytest
+from scipy import sparse
+from scipy.sparse.linalg import spsolve
+from sklearn.decomposition import PCA
+from sklearn.linear_model import LogisticRegression
+from sklearn.preprocessing import StandardScaler
+
+from labeler.features import FEATURE_SET_VERSION
+from labeler.project import Project
+from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT
+from labeler.recordings import recording_from_frame
+from labeler.synthetic import simulate_recording, window_truth
+
+
+def _rec(seed, person, minutes=8):
+    sim = simulate_recording(minutes * 60, seed=seed, person=person)
+    rec = recording_from_frame(sim.frame, where=sim.name, content_hash=f"q{seed}-{person}",
+                               name=sim.name)
+    return rec, sim.truth
+
+
+@pytest.fixture(scope="module")
+def sims():
+    return [_rec(15, 1), _rec(16, 2)]
+
+
+def _truth(p, sims):
+    w = p.windows()
+    out = np.empty(len(w), dtype=object)
+    for rec, truth in sims:
+        sel = (w["recording"] == rec.name).to_numpy()
+        out[sel] = window_truth(truth, w["start_s"][sel], w["stop_s"][sel])
+    return out
+
+
+def _confirm(p, ids, truth):
+    w = p.windows()["id"].to_numpy()
+    ids = np.asarray(ids)
+    t = truth[np.searchsorted(w, ids)]
+    for c in sorted(set(t)):
+        p.confirm(ids[t == c], c, create_class=True)
+
+
+def _reference(p, alpha, weight):
+    """Label, confidence and distribution of every window from the outside references."""
+    X, names = p.features()
+    got = p.store.get_blob("proposals/graph")
+    W = sparse.load_npz(io.BytesIO(got[0])).tocsr()
+    codes = p._ledger.class_codes()
+    lab = codes >= 0
+    classes = np.unique(codes[lab])
+    Y = np.zeros((codes.size, classes.size))
+    Y[np.flatnonzero(lab), np.searchsorted(classes, codes[lab])] = 1.0
+    W = W.copy()
+    W.setdiag(0)
+    d = np.asarray(W.sum(axis=1)).ravel()
+    Dm = sparse.diags(1.0 / np.sqrt(d))
+    S = Dm @ W @ Dm
+    A = (sparse.identity(codes.size) - alpha * S).tocsc()
+    F = np.column_stack([spsolve(A, (1 - alpha) * Y[:, k]) for k in range(classes.size)])
+    Pg = np.maximum(F, 0) / np.maximum(F, 0).sum(axis=1, keepdims=True)
+    free = [i for i, n in enumerate(names) if ".mag." in n or ".inv." in n]
+    Z = StandardScaler().fit_transform(X[:, free].astype(np.float64))
+    Z = PCA(n_components=30).fit_transform(Z)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        clf = LogisticRegression(C=1.0, max_iter=300).fit(Z[lab], codes[lab])
+    Pc = clf.predict_proba(Z)
+    L = (1 - weight) * np.log(np.maximum(Pg, 1e-6)) + weight * np.log(np.maximum(Pc, 1e-6))
+    P = np.exp(L - L.max(axis=1, keepdims=True))
+    P /= P.sum(axis=1, keepdims=True)
+    P[lab] = 0.0
+    P[np.flatnonzero(lab), np.searchsorted(classes, codes[lab])] = 1.0
+    label = classes[P.argmax(axis=1)]
+    return label, P.max(axis=1)
+
+
+def test_warm_refresh_equals_the_closed_forms_of_spreading_and_logistic_regression(tmp_path, sims):
+    assert DEFAULT_CLASSIFIER_WEIGHT > 0
+    with Project.create(tmp_path / "p.labeler", annotator="t") as p:
+        p.add_recording_data([r for r, _ in sims])
+        truth = _truth(p, sims)
+        _confirm(p, p.review_queue(30)["window_id"], truth)
+        first = p.refresh_proposals()
+        assert not first.warm_start
+        _confirm(p, p.review_queue(10)["window_id"], truth)
+        run = p.refresh_proposals()
+        assert run.warm_start  # started from the previous run's label mass
+        params = p.store.runs("proposals")[-1]["params"]
+        assert params["classifier_weight"] == DEFAULT_CLASSIFIER_WEIGHT
+        label, conf = _reference(p, params["alpha"], DEFAULT_CLASSIFIER_WEIGHT)
+        props = p.proposals()
+        assert (props["class_id"].to_numpy() == label).mean() > 0.995
+        # both logistic regressions stop at lbfgs' tolerance (1e-4), from other principal axes
+        np.testing.assert_allclose(props["confidence"].to_numpy(), conf, atol=5e-3)
+        # the classifier changes proposals: spreading alone would differ somewhere
+        acc = float((props["label"].to_numpy() == truth).mean())
+        assert acc > 0.7, acc
+
+
+def test_a_project_of_feature_set_1_keeps_computing_it(tmp_path, sims):
+    assert FEATURE_SET_VERSION == "2"
+    with Project.create(tmp_path / "old.labeler", annotator="t") as p:
+        p.store.set_setting("feature_set_version", "1")  # as a project made before set 2
+        p.add_recording_data([sims[0][0]])
+        p.add_recording_data([sims[1][0]])
+        X, names = p.features()
+        assert p.feature_set_version == "1" and X.shape[1] == 294
+        assert not any(".inv." in n for n in names)
+        truth = _truth(p, sims)
+        _confirm(p, p.review_queue(20)["window_id"], truth)
+        run = p.refresh_proposals()  # the classifier takes the norms' features of set 1
+        assert run.proposed == p.n_windows - 20
