@@ -1,13 +1,18 @@
 """Benchmark of the proposals: a simulated annotator, refresh speed, graph build time.
 
-Run:  python benchmarks/bench_proposals.py [--part confirmations|annotator|speed|tune|estimate|all]
-      [--quick]
+Run:  python benchmarks/bench_proposals.py [--part confirmations|start|annotator|speed|tune|
+      estimate|all] [--quick] [--seeds N]
 
-confirmations: the table of confirmations to 90 / 95 % for the review queue and random order on
-    the 8-hour recording, the crew of six (labeler.crew), BasicMotions and digits, per proposal
-    method (spreading with temporal edges of weight 0.5, the default, and 2).
-tune-proposals: the same for variants of labeler.proposing.Proposer (classifier weight, smoothing
-    along time, temporal weight); not part of "all" (a long grid).
+confirmations: confirmations to 90 / 95 % for the review queue (drawn as Project draws it) and
+    random order on the 8-hour recording, the crew of six (labeler.crew), the demo shift,
+    BasicMotions and digits, mean of --seeds seeds (a new simulated shift per seed; a new order and
+    queue draw for the open data sets), for "before" (spreading on feature set 1) and "project"
+    (what Project proposes now). Code in benchmarks/carry_over.py.
+start: one bout of each class confirmed on the first recording (what a user imports first), then
+    the accuracy of the proposals on the windows not confirmed, at that start and after 25 / 50 /
+    100 answers from the review queue; same data sets and methods.
+tune-proposals: both measures for variants of the proposals (classifier weight and columns,
+    temporal weight, smoothing along time); not part of "all" (a long grid).
 
 annotator: an oracle answers from ground truth. From zero confirmations it confirms the top
     unconfirmed windows of an ordering (batch of 5 per round), proposals refresh (warm start), and
@@ -247,67 +252,13 @@ def part_annotator(quick: bool):
 
 # ---------------------------------------------------------------- confirmations to 90 / 95 %
 
-class SpreadOnly:
-    """Proposals as Project makes them: label spreading alone on the window graph (temporal edges
-    of weight 0.5 unless told)."""
+def _carry():
+    import os
 
-    name = "spreading"
+    sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+    import carry_over
 
-    def __init__(self, X, rec, seq, temporal_weight=0.5):
-        self.graph = build_graph(X, recording=rec, seq=seq, temporal_weight=temporal_weight,
-                                 pca_components=PCA if X.shape[1] > PCA else None)
-        self.spreader = LabelSpreader(warm_start=True)
-
-    def __call__(self, y):
-        self.spreader.fit(self.graph, y)
-        return self.spreader.outputs(y)
-
-
-class Combined:
-    """Proposals as Project makes them now (labeler.proposing.Proposer): spreading and a
-    classifier on the confirmed windows, smoothed along time."""
-
-    name = "combined"
-
-    def __init__(self, X, rec, seq, temporal_weight=None, **kw):
-        from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
-        from labeler.proposing import Proposer
-
-        pca = PCA if X.shape[1] > PCA else None
-        tw = DEFAULT_TEMPORAL_WEIGHT if temporal_weight is None else temporal_weight
-        self.graph = build_graph(X, recording=rec, seq=seq, pca_components=pca, temporal_weight=tw)
-        self.features = reduce(standardize(X), pca)
-        self.rec, self.seq = rec, seq
-        self.proposer = Proposer(**kw)
-
-    def __call__(self, y):
-        self.proposer.fit(self.graph, y, features=self.features, recording=self.rec, seq=self.seq)
-        return self.proposer.outputs(y)
-
-
-def run_order(method, t, rec, seq, order: str, budget: int, seed: int = 0, batch: int = BATCH):
-    """Confirmations so far and accuracy of (confirmed + proposed) after each round of ``batch``
-    oracle answers, the windows picked by the review queue or in random order."""
-    n = t.size
-    y = np.full(n, -1)
-    random_order = np.random.default_rng(seed).permutation(n)
-    outputs = None
-    counts, accs = [0], [0.0]
-    while (y >= 0).sum() < budget:
-        labeled = y >= 0
-        if order == "queue":
-            pick = review_queue(method.graph, outputs, labeled, rec, seq, n=batch,
-                                exclude=labeled).index
-        else:
-            pick = [i for i in random_order if not labeled[i]][:batch]
-        if len(pick) == 0:
-            break
-        pick = np.asarray(pick)
-        y[pick] = t[pick]
-        outputs = method(y)
-        counts.append(int((y >= 0).sum()))
-        accs.append(float((outputs.label == t).mean()))
-    return np.array(counts), np.array(accs)
+    return carry_over
 
 
 def carry_over(X, t, rec):
@@ -335,79 +286,51 @@ def carry_over(X, t, rec):
     return inside, float(np.mean(np.concatenate(other))), float(np.mean(np.concatenate(same)))
 
 
-def confirmation_sets(quick: bool):
-    return [("8-hour recording", lambda: synthetic(2.0 if quick else 8.0), 150 if quick else 400),
-            ("crew of six", lambda: crew_of_six(1 / 6 if quick else 1 / 3), 250 if quick else 400),
-            ("BasicMotions", basic_motions, 60),
-            ("digits", digits, 300)]
-
-
-def confirmation_methods():
-    """Spreading on the window graph with temporal edges of weight 0.5 (the default) and 2."""
-    from functools import partial
-
-    return {"tw 0.5": partial(SpreadOnly, temporal_weight=0.5),
-            "tw 2": partial(SpreadOnly, temporal_weight=2.0)}
-
-
-def part_confirmations(quick: bool, methods=None):
-    """Confirmations to 90 / 95 % for the review queue and random order, per data set and method."""
-    methods = confirmation_methods() if methods is None else methods
-    print(f"== confirmations to 90 / 95 % window accuracy (oracle answers, {BATCH} per round) ==")
-    head = (f"{'data set':18s} {'windows':>7s} {'method':8s} {'queue 90':>8s} {'queue 95':>8s} "
-            f"{'random 90':>9s} {'random 95':>9s} {'q95 / n':>7s} {'r95 / q95':>9s}")
-    rows = []
-    for name, load, budget in confirmation_sets(quick):
-        X, t, rec, seq = load()
-        if rec is not None and np.unique(rec).size > 1:
-            inside, other, same = carry_over(X, t, rec)
-            print(f"{name}: {inside:.0%} of the edge weight inside one recording; nearest window "
-                  f"of another recording right {other:.1%}, of the same recording {same:.1%}")
-        for mname, make in methods.items():
-            t0 = time.perf_counter()
-            m = make(X, rec, seq)
-            res = {}
-            for order in ("queue", "random"):
-                counts, accs = run_order(m, t, rec, seq, order, budget)
-                res[order] = (needed(counts, accs, 0.90), needed(counts, accs, 0.95))
-            q95, r95 = res["queue"][1], res["random"][1]
-            share = f"{q95 / t.size:.1%}" if q95 is not None else "-"
-            ratio = (f"{r95 / q95:.1f}x" if r95 is not None and q95 else
-                     f">{budget / q95:.1f}x" if q95 else "-")
-            rows.append(f"{name:18s} {t.size:7d} {mname:8s} {fmt(res['queue'][0], budget):>8s} "
-                        f"{fmt(q95, budget):>8s} {fmt(res['random'][0], budget):>9s} "
-                        f"{fmt(r95, budget):>9s} {share:>7s} {ratio:>9s}")
-            print(f"  {rows[-1]}   ({time.perf_counter() - t0:.0f} s)", flush=True)
+def part_confirmations(quick: bool, seeds: int = 3, methods=("before", "project")):
+    """Confirmations to 90 / 95 % for the review queue and random order, per data set and method,
+    averaged over seeds (benchmarks/carry_over.py)."""
+    co = _carry()
+    print(f"== confirmations to 90 / 95 % window accuracy (oracle answers, {co.BATCH} per round, "
+          f"mean of {seeds} seeds) ==")
+    for name in ("crew",):
+        d = co.data_sets(quick)[name][0](0)
+        inside, other, same = carry_over(d.X, d.t, d.rec)
+        print(f"{d.name}: {inside:.0%} of the edge weight inside one recording; nearest window "
+              f"of another recording right {other:.1%}, of the same recording {same:.1%}")
+    rows = co.measure(["long", "crew", "demo", "basicmotions", "digits"], list(methods), seeds,
+                      quick, parts=("zero",))
     print()
-    print(head)
+    print(co.HEAD)
     for r in rows:
-        print(r)
+        print(co.format_row(r))
     print("goals: queue to 95 % with <= 1 % of the windows on the 8-hour recording, <= 2 % on the "
           "crew; random order needs >= 2x the queue's confirmations")
 
 
-def part_tune_proposals(quick: bool):
-    """Queue and random confirmations to 95 % for variants of the combined proposals."""
-    from functools import partial
+def part_start(quick: bool, seeds: int = 3, methods=("before", "project")):
+    """The first-bouts start: one bout per class from the first recording, then the queue."""
+    co = _carry()
+    print(f"== first bouts of each class from one recording, then the review queue: accuracy of "
+          f"the proposals on unconfirmed windows (mean of {seeds} seeds) ==")
+    rows = co.measure(["demo", "crew", "long", "basicmotions", "digits"], list(methods), seeds,
+                      quick, parts=("start",))
+    print()
+    print(co.HEAD)
+    for r in rows:
+        print(co.format_row(r))
 
-    print("== tuning the combined proposals: confirmations to 95 % (queue / random) ==")
-    grid = [dict(classifier_weight=w, stay=s, temporal_weight=tw)
-            for w in (0.0, 0.3, 0.5) for s in (0.0, 0.9, 0.97) for tw in (0.5, 2.0)]
-    for name, load, budget in confirmation_sets(quick):
-        X, t, rec, seq = load()
-        seen = set()
-        for kw in grid:
-            if rec is None:
-                kw = dict(kw, stay=0.0, temporal_weight=0.0)
-            key = tuple(sorted(kw.items()))
-            if key in seen:
-                continue
-            seen.add(key)
-            m = partial(Combined, **kw)(X, rec, seq)
-            got = [needed(*run_order(m, t, rec, seq, order, budget), 0.95)
-                   for order in ("queue", "random")]
-            print(f"  {name:18s} " + " ".join(f"{k}={v:g}" for k, v in kw.items())
-                  + f"  queue {fmt(got[0], budget)} random {fmt(got[1], budget)}", flush=True)
+
+def part_tune_proposals(quick: bool, seeds: int = 3):
+    """Both measures for variants of the proposals (classifier weight, its columns, temporal
+    weight, smoothing)."""
+    co = _carry()
+    names = [m for m in co.methods()]
+    print("== tuning the proposals: both measures, every variant ==")
+    rows = co.measure(["demo", "crew", "long", "basicmotions", "digits"], names, seeds, quick)
+    print()
+    print(co.HEAD)
+    for r in rows:
+        print(co.format_row(r))
 
 
 # ---------------------------------------------------------------- speed
@@ -536,18 +459,21 @@ def part_estimate(quick: bool):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--part", default="all", choices=["confirmations", "tune-proposals",
+    ap.add_argument("--part", default="all", choices=["confirmations", "start", "tune-proposals",
                                                       "annotator", "speed", "tune", "estimate",
                                                       "all"],
                     help="all runs every part but tune-proposals (a long grid)")
     ap.add_argument("--quick", action="store_true", help="smaller data, for a smoke run")
+    ap.add_argument("--seeds", type=int, default=3,
+                    help="seeds to average over (confirmations, start, tune-proposals)")
     a = ap.parse_args(argv)
-    for part, fn in (("confirmations", part_confirmations), ("tune-proposals", part_tune_proposals),
-                     ("tune", part_tune),
+    seeded = {"confirmations", "start", "tune-proposals"}
+    for part, fn in (("confirmations", part_confirmations), ("start", part_start),
+                     ("tune-proposals", part_tune_proposals), ("tune", part_tune),
                      ("annotator", part_annotator), ("speed", part_speed),
                      ("estimate", part_estimate)):
         if a.part == part or (a.part == "all" and part != "tune-proposals"):
-            fn(a.quick)
+            fn(a.quick, a.seeds) if part in seeded else fn(a.quick)
             print(flush=True)
 
 

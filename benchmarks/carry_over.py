@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from labeler.graph import build_graph, reduce, standardize
+from labeler.graph import build_graph
 from labeler.review import review_queue
 from labeler.spreading import LabelSpreader
 
@@ -46,8 +46,8 @@ class Data:
     rec: np.ndarray | None
     seq: np.ndarray | None
     start: np.ndarray  # window indices of the "first bouts" start
-    X_inv: np.ndarray | None = None  # orientation-free extras (labeler.invariants)
-    names: list | None = None
+    names: list | None = None  # feature names (None: not sensor data)
+    n_v1: int | None = None  # the first n_v1 columns are feature set 1
 
 
 # ---------------------------------------------------------------- data
@@ -82,7 +82,7 @@ def _from_sims(name, sims, salt):
     from labeler.synthetic import window_truth
     from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
 
-    Xs, truths, recs, seqs, Is = [], [], [], [], []
+    Xs, truths, recs, seqs = [], [], [], []
     for k, sim in enumerate(sims):
         rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{salt}-{k}",
                                    name=sim.name)
@@ -90,7 +90,6 @@ def _from_sims(name, sims, salt):
         starts = cut_windows(rec.valid, length, step)
         X, names = window_features(rec.signal, starts, length, rec.rate, rec.channels)
         Xs.append(X)
-        Is.append(_inv(rec.signal, starts, length, rec.rate, rec.channels))
         truths.append(window_truth(sim.truth, starts / rec.rate,
                                    (starts + length) / rec.rate).astype(str))
         recs.append(np.full(len(starts), k, dtype=np.int64))
@@ -99,7 +98,13 @@ def _from_sims(name, sims, salt):
     rec, seq = np.concatenate(recs), np.concatenate(seqs)
     start = _first_bouts(truth, rec, seq)
     _, t = np.unique(truth, return_inverse=True)
-    return Data(name, np.vstack(Xs), t, rec, seq, start, np.vstack(Is), names)
+    return Data(name, np.vstack(Xs), t, rec, seq, start, names, _n_v1(sims[0].frame.columns[1:]))
+
+
+def _n_v1(channels):
+    from labeler.features import feature_names
+
+    return len(feature_names(list(channels), "1"))
 
 
 def demo_shift(seed: int, minutes: float = 40.0, people: int = 3) -> Data:
@@ -142,24 +147,8 @@ def basic_motions(seed: int) -> Data:
     channels = ["dev_acc_x", "dev_acc_y", "dev_acc_z", "dev_gyr_x", "dev_gyr_y", "dev_gyr_z"]
     X, names = window_features(signal, np.arange(n) * L, L, 10.0, channels)
     _, t = np.unique(np.concatenate([ya, yb]), return_inverse=True)
-    return Data("BasicMotions", X, t, None, None, _one_per_class(t, seed),
-                _inv(signal, np.arange(n) * L, L, 10.0, channels), names)
-
-
-def _inv(signal, starts, length, rate, channels):
-    from numpy.lib.stride_tricks import sliding_window_view
-
-    from labeler.channels import triads
-    from labeler.features import BAND_EDGES
-    from labeler.invariants import invariant_features
-
-    tr = triads(list(channels))
-    sig = np.nan_to_num(np.asarray(signal, dtype=np.float64))
-    wins = {}
-    for site, kind, idx in tr:
-        v = sliding_window_view(sig[:, list(idx)], length, axis=0)  # (n_starts, 3, length)
-        wins[(site, kind)] = v[starts].transpose(0, 2, 1)
-    return invariant_features(wins, tr, rate, BAND_EDGES)
+    return Data("BasicMotions", X, t, None, None, _one_per_class(t, seed), names,
+                _n_v1(channels))
 
 
 def digits(seed: int) -> Data:
@@ -183,63 +172,19 @@ def data_sets(quick: bool):
 # ---------------------------------------------------------------- methods
 
 def features_of(d: Data, variant: str) -> np.ndarray:
-    """The features a method sees: "base" (Project's), "plus" (base and the orientation-free
-    extras), "free" (orientation-free only: the magnitudes' features and the extras)."""
-    if variant == "base" or d.X_inv is None:
-        return d.X
-    if variant == "plus":
-        return np.hstack([d.X, d.X_inv])
-    if variant == "free":
-        mag = [i for i, n in enumerate(d.names) if ".mag." in n]
-        return np.hstack([d.X[:, mag], d.X_inv])
-    raise ValueError(variant)
-
-
-def _graph(d: Data, X, temporal_weight, cross, second=None, second_weight=0.0):
-    pca = PCA if X.shape[1] > PCA else None
-    W = build_graph(X, recording=d.rec, seq=d.seq, temporal_weight=temporal_weight,
-                    pca_components=pca)
-    if second is not None and second_weight > 0 and d.X_inv is not None:
-        X2 = features_of(d, second)
-        W = W + second_weight * build_graph(X2, temporal_weight=0.0,
-                                            pca_components=PCA if X2.shape[1] > PCA else None)
-    if cross and d.rec is not None and np.unique(d.rec).size > 1:
-        W = W + cross_edges(reduce(standardize(X), pca), d.rec, cross)
-    return W.tocsr()
-
-
-def cross_edges(Z, rec, k):
-    """Each window joined to its k nearest windows of other recordings (local scaling by the
-    distance to the k-th of them), symmetric."""
-    from scipy import sparse
-    from sklearn.neighbors import NearestNeighbors
-
-    n = Z.shape[0]
-    rows, cols, dists = [], [], []
-    for r in np.unique(rec):
-        mine = np.flatnonzero(rec == r)
-        rest = np.flatnonzero(rec != r)
-        dist, j = NearestNeighbors(n_neighbors=k).fit(Z[rest]).kneighbors(Z[mine])
-        rows.append(np.repeat(mine, k))
-        cols.append(rest[j].ravel())
-        dists.append(dist)
-    rows, cols = np.concatenate(rows), np.concatenate(cols)
-    dist = np.concatenate([dd for dd in dists])
-    sigma = np.empty(n)
-    sigma[np.concatenate([np.flatnonzero(rec == r) for r in np.unique(rec)])] = dist[:, -1]
-    sigma = np.maximum(sigma, 1e-12)
-    w = np.exp(-dist.ravel() ** 2 / (sigma[rows] * sigma[cols]))
-    C = sparse.csr_matrix((w, (rows, cols)), shape=(n, n))
-    return C.maximum(C.T)
+    """The features a method sees: "2" (feature set 2, what new projects compute), "1" (set 1)."""
+    if variant == "1" and d.n_v1 is not None:
+        return d.X[:, :d.n_v1]
+    return d.X
 
 
 class Spreading:
-    """Label spreading alone on the window graph (what Project does by default)."""
+    """Label spreading alone on the window graph (what Project did before the classifier)."""
 
-    def __init__(self, d: Data, temporal_weight: float = 0.5, features: str = "base",
-                 cross: int = 0, second=None, second_weight=0.0):
-        self.graph = _graph(d, features_of(d, features), temporal_weight, cross, second,
-                            second_weight)
+    def __init__(self, d: Data, temporal_weight: float = 0.5, features: str = "2"):
+        X = features_of(d, features)
+        self.graph = build_graph(X, recording=d.rec, seq=d.seq, temporal_weight=temporal_weight,
+                                 pca_components=PCA if X.shape[1] > PCA else None)
         self.spreader = LabelSpreader(warm_start=True)
 
     def __call__(self, y):
@@ -248,16 +193,19 @@ class Spreading:
 
 
 class Proposing:
-    """labeler.proposing.Proposer: spreading with a classifier and/or smoothing along time."""
+    """labeler.proposing.Proposer as Project runs it: the graph on every feature, the classifier
+    on the orientation-free ones (labeler.proposing.classifier_view), optional smoothing."""
 
-    def __init__(self, d: Data, temporal_weight: float = 0.5, features: str = "base",
-                 cross: int = 0, clf_features=None, second=None, second_weight=0.0, **kw):
-        from labeler.proposing import Proposer
+    def __init__(self, d: Data, temporal_weight: float = 0.5, features: str = "2",
+                 all_columns: bool = False, **kw):
+        from labeler.proposing import Proposer, classifier_view
 
         X = features_of(d, features)
-        self.graph = _graph(d, X, temporal_weight, cross, second, second_weight)
-        Xc = features_of(d, clf_features or features)
-        self.features = reduce(standardize(Xc), PCA if Xc.shape[1] > PCA else None)
+        self.graph = build_graph(X, recording=d.rec, seq=d.seq, temporal_weight=temporal_weight,
+                                 pca_components=PCA if X.shape[1] > PCA else None)
+        names = [f"c{i}" for i in range(X.shape[1])] if all_columns or d.names is None \
+            else d.names[:X.shape[1]]
+        self.features = classifier_view(X, names)
         self.rec, self.seq = d.rec, d.seq
         self.proposer = Proposer(**kw)
 
@@ -267,25 +215,22 @@ class Proposing:
 
 
 def methods():
+    """Named proposal methods. "before": spreading on feature set 1 (the earlier default);
+    "project": what Project does now."""
     from functools import partial
 
-    out = {"spread": Spreading,
-           "spread tw2": partial(Spreading, temporal_weight=2.0),
-           "clf 0.3": partial(Proposing, classifier_weight=0.3),
-           "clf 0.5": partial(Proposing, classifier_weight=0.5)}
-    for f in ("plus", "free"):
-        out[f"spread {f}"] = partial(Spreading, features=f)
-        out[f"clf.3 {f}"] = partial(Proposing, features=f, classifier_weight=0.3)
-    for k in (3, 5):
-        out[f"spread x{k}"] = partial(Spreading, cross=k)
-        out[f"spread plus x{k}"] = partial(Spreading, features="plus", cross=k)
-    for w in (0.5, 1.0):
-        out[f"two-view {w:g}"] = partial(Spreading, features="plus", second="free", second_weight=w)
-        out[f"clf.3 tv {w:g}"] = partial(Proposing, features="plus", second="free",
-                                         second_weight=w, classifier_weight=0.3)
-    for w in (0.3, 0.5):
-        out[f"clf{w:g} on free"] = partial(Proposing, features="plus", clf_features="free",
-                                           classifier_weight=w)
+    from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT as W
+
+    out = {"before": partial(Spreading, features="1"),
+           "spread set2": Spreading,
+           "project": partial(Proposing, classifier_weight=W)}
+    for w in (0.2, 0.3, 0.5):
+        out[f"clf {w:g}"] = partial(Proposing, classifier_weight=w)
+        out[f"clf {w:g} tw2"] = partial(Proposing, classifier_weight=w, temporal_weight=2.0)
+        out[f"clf {w:g} allcols"] = partial(Proposing, classifier_weight=w, all_columns=True)
+        out[f"clf {w:g} set1"] = partial(Proposing, classifier_weight=w, features="1")
+    out["clf 0.3 stay.9"] = partial(Proposing, classifier_weight=0.3, stay=0.9)
+    out["spread tw2"] = partial(Spreading, temporal_weight=2.0)
     return out
 
 

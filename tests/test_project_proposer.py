@@ -80,7 +80,7 @@ def _reference(p, alpha, weight):
     Z = PCA(n_components=30).fit_transform(Z)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        clf = LogisticRegression(C=1.0, max_iter=300).fit(Z[lab], codes[lab])
+        clf = LogisticRegression(C=1.0, max_iter=1000, tol=1e-8).fit(Z[lab], codes[lab])
     Pc = clf.predict_proba(Z)
     L = (1 - weight) * np.log(np.maximum(Pg, 1e-6)) + weight * np.log(np.maximum(Pc, 1e-6))
     P = np.exp(L - L.max(axis=1, keepdims=True))
@@ -107,8 +107,11 @@ def test_warm_refresh_equals_the_closed_forms_of_spreading_and_logistic_regressi
         label, conf = _reference(p, params["alpha"], DEFAULT_CLASSIFIER_WEIGHT)
         props = p.proposals()
         assert (props["class_id"].to_numpy() == label).mean() > 0.995
-        # both logistic regressions stop at lbfgs' tolerance (1e-4), from other principal axes
-        np.testing.assert_allclose(props["confidence"].to_numpy(), conf, atol=5e-3)
+        # 30 principal axes of about 100 columns: where the 30th and 31st variances lie close,
+        # the two subspaces differ a little, so a few windows differ by up to a few thousandths
+        got = props["confidence"].to_numpy()
+        np.testing.assert_allclose(got, conf, atol=6e-3)
+        assert np.abs(got - conf).mean() < 1e-3
         # the classifier changes proposals: spreading alone would differ somewhere
         acc = float((props["label"].to_numpy() == truth).mean())
         assert acc > 0.7, acc

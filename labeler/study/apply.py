@@ -95,13 +95,14 @@ def train_from_project(project, *, include_proposed: bool = False,
     on proposed windows of confidence >= ``min_confidence``)."""
     if not 0.0 <= float(min_confidence) <= 1.0:
         raise InputError(f"minimum confidence {min_confidence} is outside 0-1; give e.g. 0.9")
-    from labeler.features import FEATURE_SET_VERSION
+    from labeler.features import FEATURE_SET_VERSIONS
 
-    if project.feature_set_version != FEATURE_SET_VERSION:
+    # every set this labeler computes holds the columns of the sets before it, under their names
+    if project.feature_set_version not in FEATURE_SET_VERSIONS:
         raise InputError(f"{project.path}: its features were computed by feature set "
                          f"{project.feature_set_version}, this labeler computes "
-                         f"{FEATURE_SET_VERSION}; new recordings would not be comparable; use the "
-                         "labeler version that made the project")
+                         f"{', '.join(FEATURE_SET_VERSIONS)}; new recordings would not be "
+                         "comparable; use the labeler version that made the project")
     X, names = project.features()
     w = project.windows()
     if len(w) == 0:
