@@ -28,20 +28,21 @@ def simulated(recordings: int, hours: float):
     from labeler.synthetic import simulate_recording, window_truth
     from labeler.windows import cut_windows, window_samples
 
-    X, truth, rec, seq = [], [], [], []
+    X, truth, rec, seq, names = [], [], [], [], None
     for k in range(recordings):
         sim = simulate_recording(hours * 3600, seed=10 + k, person=k)
         r = recording_from_frame(sim.frame, where="simulator", content_hash=str(k), name=str(k))
         length, step = window_samples(r.rate, 2.56, 1.28)
         starts = cut_windows(r.valid, length, step)
-        X.append(window_features(r.signal, starts, length, r.rate, r.channels)[0])
+        F, names = window_features(r.signal, starts, length, r.rate, r.channels)
+        X.append(F)
         truth.append(window_truth(sim.truth, starts / r.rate, (starts + length) / r.rate).astype(str))
         rec.append(np.full(starts.size, k))
         # consecutive windows are `step` samples apart; a gap breaks the sequence
         seq.append(np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))]))
     truth = np.concatenate(truth)
     codes = np.unique(truth, return_inverse=True)[1]
-    return np.concatenate(X), codes, np.concatenate(rec), np.concatenate(seq)
+    return np.concatenate(X), codes, np.concatenate(rec), np.concatenate(seq), names
 
 
 def main() -> None:
@@ -50,7 +51,7 @@ def main() -> None:
     ap.add_argument("--hours", type=float, default=8.0)
     ap.add_argument("--refreshes", type=int, default=5)
     args = ap.parse_args()
-    X, t, rec, seq = simulated(args.recordings, args.hours)
+    X, t, rec, seq, names = simulated(args.recordings, args.hours)
     n = t.size
     t0 = time.perf_counter()
     W = build_graph(X, recording=rec, seq=seq, pca_components=30)
@@ -85,6 +86,27 @@ def main() -> None:
           f"{w:.3f} s, {int(np.median(iters))} iterations (goal <= 0.2 s)")
     print(f"same refresh checking the graph and solving every class again: {a:.3f} s "
           f"(ratio {w / a:.2f})")
+    # what Project refreshes: the spreading times the logistic regression on the confirmed windows
+    from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, Proposer, classifier_view
+
+    t0 = time.perf_counter()
+    Z = classifier_view(X, names)
+    print(f"classifier's features (orientation-free columns, 30 principal axes; once per graph): "
+          f"{time.perf_counter() - t0:.2f} s")
+    pr = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, classifier_features=Z)
+    pr.fit(W, y)
+    reference = pr.spreader_.reference_mass()
+    times = []
+    for _ in range(args.refreshes):
+        j = int(rng.choice(np.flatnonzero(y < 0)))
+        y[j] = t[j]
+        t0 = time.perf_counter()
+        pr.fit(W, y)
+        pr.outputs(y, reference=reference)
+        times.append(time.perf_counter() - t0)
+    print(f"Project's refresh (spreading warm, classifier weight {DEFAULT_CLASSIFIER_WEIGHT:g}, "
+          f"{int((y >= 0).sum())} confirmed), median of {args.refreshes}: "
+          f"{float(np.median(times)):.3f} s")
 
 
 if __name__ == "__main__":

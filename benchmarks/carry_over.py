@@ -197,12 +197,13 @@ class Proposing:
     on the orientation-free ones (labeler.proposing.classifier_view), optional smoothing."""
 
     def __init__(self, d: Data, temporal_weight: float = 0.5, features: str = "2",
-                 all_columns: bool = False, **kw):
+                 all_columns: bool = False, graph_features: str | None = None, **kw):
         from labeler.proposing import Proposer, classifier_view
 
         X = features_of(d, features)
-        self.graph = build_graph(X, recording=d.rec, seq=d.seq, temporal_weight=temporal_weight,
-                                 pca_components=PCA if X.shape[1] > PCA else None)
+        G = features_of(d, graph_features or features)
+        self.graph = build_graph(G, recording=d.rec, seq=d.seq, temporal_weight=temporal_weight,
+                                 pca_components=PCA if G.shape[1] > PCA else None)
         names = [f"c{i}" for i in range(X.shape[1])] if all_columns or d.names is None \
             else d.names[:X.shape[1]]
         self.features = classifier_view(X, names)
@@ -229,7 +230,13 @@ def methods():
         out[f"clf {w:g} tw2"] = partial(Proposing, classifier_weight=w, temporal_weight=2.0)
         out[f"clf {w:g} allcols"] = partial(Proposing, classifier_weight=w, all_columns=True)
         out[f"clf {w:g} set1"] = partial(Proposing, classifier_weight=w, features="1")
+    for w in (0.2, 0.3):
+        out[f"g1 clf {w:g}"] = partial(Proposing, classifier_weight=w, graph_features="1")
     out["clf 0.3 stay.9"] = partial(Proposing, classifier_weight=0.3, stay=0.9)
+    for u in ("experts", "disagree"):
+        out[f"clf 0.3 {u}"] = partial(Proposing, classifier_weight=0.3, uncertainty=u)
+        out[f"g1 clf 0.3 {u}"] = partial(Proposing, classifier_weight=0.3, uncertainty=u,
+                                         graph_features="1")
     out["spread tw2"] = partial(Spreading, temporal_weight=2.0)
     return out
 

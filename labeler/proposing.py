@@ -61,6 +61,10 @@ DEFAULT_TEMPER = 0.5
 CLASSIFIER_COMPONENTS = 30
 MIN_FREE_COLUMNS = 6
 _EPS = 1e-6
+#: What a window's margin (its uncertainty for the review queue) is taken from: "smoothed" the
+#: final distribution; "both" also the distribution before smoothing; "experts" also the graph's
+#: and the classifier's own; "disagree" also zero where the graph and the classifier differ.
+UNCERTAINTIES = ("both", "smoothed", "experts", "disagree")
 
 
 class ProposingInputError(InputError, ValueError):
@@ -269,9 +273,9 @@ class Proposer(BaseEstimator):
             raise ProposingInputError(f"stay must lie in [0, 1), got {self.stay!r}")
         if not (0.0 < self.temper <= 1.0):
             raise ProposingInputError(f"temper must lie in (0, 1], got {self.temper!r}")
-        if self.uncertainty not in ("both", "smoothed"):
-            raise ProposingInputError(f"uncertainty must be 'both' or 'smoothed', got "
-                                      f"{self.uncertainty!r}")
+        if self.uncertainty not in UNCERTAINTIES:
+            raise ProposingInputError(f"uncertainty must be one of {', '.join(UNCERTAINTIES)}, "
+                                      f"got {self.uncertainty!r}")
         if not (self.C > 0):
             raise ProposingInputError(f"C must be > 0, got {self.C!r}")
         y = _check_y(y)
@@ -283,13 +287,16 @@ class Proposer(BaseEstimator):
         sp.fit(graph, y, init=init, init_classes=init_classes)
         classes = sp.classes_
         P = sp.label_distributions_
+        self.graph_distributions_ = P
+        self.classifier_distributions_ = None
         if features is not None and self.classifier_weight > 0 and classes.size > 1:
             Z = np.asarray(features)
             if Z.ndim != 2 or Z.shape[0] != y.size:
                 raise ProposingInputError(f"features must have one row per window ({y.size}), "
                                           f"got shape {Z.shape}")
-            P = combine(P, classifier_probabilities(Z, y, classes, C=self.C),
-                        float(self.classifier_weight))
+            Pc = classifier_probabilities(Z, y, classes, C=self.C)
+            self.classifier_distributions_ = Pc
+            P = combine(P, Pc, float(self.classifier_weight))
         lab = y >= 0
         # a confirmed window emits its own label
         P = np.where(lab[:, None], 0.0, P)
@@ -313,8 +320,18 @@ class Proposer(BaseEstimator):
         label = self.transduction_
         confidence = P[np.arange(n), np.searchsorted(self.classes_, label)]
         margin = _margin(P)
-        if self.uncertainty == "both":
+        if self.uncertainty != "smoothed":
             # a window is uncertain when its own evidence or its time context is unsure
             margin = np.minimum(margin, _margin(self.local_distributions_))
+        Pc = self.classifier_distributions_
+        if self.uncertainty in ("experts", "disagree") and Pc is not None:
+            # ... or when one of the two experts is unsure
+            margin = np.minimum(margin, np.minimum(_margin(self.graph_distributions_),
+                                                   _margin(Pc)))
+            if self.uncertainty == "disagree":  # ... or when they disagree
+                reached = self.graph_distributions_.sum(axis=1) > 0
+                differ = reached & (np.argmax(self.graph_distributions_, axis=1)
+                                    != np.argmax(Pc, axis=1))
+                margin = np.where(differ & (y < 0), 0.0, margin)
         return WindowOutputs(self.classes_, label, P, confidence, margin, base.support,
                              base.conflict)

@@ -81,3 +81,29 @@ def test_one_nn_cross_validated_accuracy():
     model = make_pipeline(StandardScaler(), KNeighborsClassifier(n_neighbors=1))
     scores = cross_val_score(model, F, y, cv=StratifiedKFold(5, shuffle=True, random_state=0))
     assert scores.mean() >= 0.9, scores
+
+
+def test_one_series_per_class_carries_to_the_rest():
+    """Proposals as Project makes them (label spreading on the window graph times a logistic
+    regression on the orientation-free features), from one confirmed series of each activity:
+    the other 76 series must be proposed right at least 85 % of the time on average over ten
+    draws. Our threshold; measured 0.959 (spreading alone: 0.976)."""
+    from labeler.graph import build_graph
+    from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, Proposer, classifier_view
+
+    X, y = _load()
+    F, names = _features(X)
+    _, t = np.unique(y, return_inverse=True)
+    W = build_graph(F, pca_components=30)
+    Z = classifier_view(F, names)
+    rng = np.random.default_rng(0)
+    accs = []
+    for _ in range(10):
+        pick = np.array([rng.choice(np.flatnonzero(t == c)) for c in range(4)])
+        codes = np.full(t.size, -1)
+        codes[pick] = t[pick]
+        p = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, classifier_features=Z)
+        got = p.fit(W, codes).transduction_
+        rest = codes < 0
+        accs.append(float((got[rest] == t[rest]).mean()))
+    assert np.mean(accs) >= 0.85, accs
