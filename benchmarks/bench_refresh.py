@@ -54,7 +54,9 @@ def main() -> None:
     X, t, rec, seq, names = simulated(args.recordings, args.hours)
     n = t.size
     t0 = time.perf_counter()
-    W = build_graph(X, recording=rec, seq=seq, pca_components=30)
+    from labeler.features import graph_columns
+
+    W = build_graph(X[:, graph_columns(names)], recording=rec, seq=seq, pca_components=30)
     print(f"{n} windows ({args.recordings} simulated recordings of {args.hours:g} h); graph "
           f"{time.perf_counter() - t0:.1f} s")
     rng = np.random.default_rng(0)

@@ -224,7 +224,7 @@ def methods():
 
     out = {"before": partial(Spreading, features="1"),
            "spread set2": Spreading,
-           "project": partial(Proposing, classifier_weight=W)}
+           "project": partial(Proposing, classifier_weight=W, graph_features="1")}
     for w in (0.2, 0.3, 0.5):
         out[f"clf {w:g}"] = partial(Proposing, classifier_weight=w)
         out[f"clf {w:g} tw2"] = partial(Proposing, classifier_weight=w, temporal_weight=2.0)

@@ -104,6 +104,16 @@ def test_warm_refresh_equals_the_closed_forms_of_spreading_and_logistic_regressi
         assert run.warm_start  # started from the previous run's label mass
         params = p.store.runs("proposals")[-1]["params"]
         assert params["classifier_weight"] == DEFAULT_CLASSIFIER_WEIGHT
+        # the graph is built from the columns of feature set 1 (the orientation-free extras
+        # go to the classifier)
+        from labeler.graph import build_graph
+
+        X, names = p.features()
+        stored = sparse.load_npz(io.BytesIO(p.store.get_blob("proposals/graph")[0]))
+        rid, seq = p._catalog.window_sequence()
+        again = build_graph(X[:, :294], recording=rid, seq=seq, n_neighbors=10,
+                            temporal_weight=params["temporal_weight"], pca_components=30)
+        assert abs(stored - again).max() < 1e-9
         label, conf = _reference(p, params["alpha"], DEFAULT_CLASSIFIER_WEIGHT)
         props = p.proposals()
         assert (props["class_id"].to_numpy() == label).mean() > 0.995

@@ -72,7 +72,11 @@ class Proposals:
             W = sparse.load_npz(io.BytesIO(got[0])).tocsr()
             self.ctx.cache["graph"] = (W, key)
             return W, key, False
-        X, _ = self.catalog.features()
+        from labeler.features import graph_columns
+
+        X, names = self.catalog.features()
+        if X.shape[1]:
+            X = X[:, graph_columns(names)]
         if X.shape[0] < 2:
             raise InputError(f"{self.ctx.path}: proposals need at least 2 windows; add recordings "
                              "first with `labeler add`")
