@@ -22,12 +22,15 @@ graph has not reached (no label mass) take the classifier alone. The forward-bac
 textbook one (Rabiner, "A tutorial on hidden Markov models and selected applications in speech
 recognition", 1989), with scaling per step.
 
-Defaults were measured with ``benchmarks/bench_proposals.py --part tune-proposals`` on the demo
-simulator, the crew of six (``labeler.crew``), BasicMotions and scikit-learn's digits: neither
-the classifier nor the smoothing won on all of them, so both are off by default (the proposer is
-then label spreading alone) and Project does not use them yet. Each figure next to a default is
-one run with temporal edges of weight 2; single runs swing by tens of confirmations with small
-changes of the graph, so only the large differences (the smoothing) are clear.
+What Project proposes (:meth:`labeler.project.Project.refresh_proposals`): the graph built from
+every feature but the orientation-free extras of feature set 2, times the classifier with weight
+:data:`DEFAULT_CLASSIFIER_WEIGHT` on the orientation-free features alone
+(:func:`classifier_view`), no smoothing. The classifier on features that do not change when a
+sensor turns is what carries a few confirmed bouts of one person to the others; the graph, with
+the direction of gravity in each sensor, tells postures apart within a person. Measured with
+``benchmarks/bench_proposals.py --part tune-proposals`` / ``benchmarks/carry_over.py`` (mean of 3
+seeds; the figures are in DEVELOPERS.md, "Proposals across people"); single runs swing by tens of
+confirmations, so only averages are compared.
 
 Proposed labels are suggestions: a qualified person reviews them before they are used.
 """
@@ -42,10 +45,14 @@ from sklearn.base import BaseEstimator
 from labeler.errors import InputError
 from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _check_y
 
-#: Weight of the classifier against the graph (0 = graph alone, 1 = classifier alone). Off by
-#: default: measured with the review queue (``--part tune-proposals --quick``, confirmations to
-#: 95 %), weight 0.3 gave 45 on 2 h of the simulator (45 without), 100 on the crew of six (70
-#: without), 45 on digits with weight 0.2 (45 without); 0.5 gave 50 on digits (45 without).
+#: Weight of the classifier against the graph (0 = graph alone, 1 = classifier alone). Measured
+#: with one bout of each class confirmed on the first recording (accuracy on the other windows at
+#: that start, then after 25 / 50 / 100 queue answers, mean of 3 seeds): on the crew of six 0.2
+#: gave 0.771 / 0.906 / 0.945 / 0.970, 0.3 gave 0.790 / 0.915 / 0.942 / 0.964, 0.5 gave
+#: 0.779 / 0.881 / 0.924 / 0.950 (spreading alone 0.497 / 0.843 / 0.907 / 0.960); on the demo shift
+#: 0.643 / 0.963 / 0.983 / 0.991, 0.707 / 0.955 / 0.980 / 0.991 and 0.778 / 0.944 / 0.964 / 0.985
+#: (alone 0.564 / 0.927 / 0.967 / 0.981). An earlier classifier on every column (not only the
+#: orientation-free ones) made the crew worse.
 DEFAULT_CLASSIFIER_WEIGHT = 0.3
 #: Probability that a window's activity goes on in the next window (0 = no smoothing). Off by
 #: default: with smoothing (stay 0.9 or 0.97) the review queue did not reach 95 % within 150
@@ -64,6 +71,9 @@ _EPS = 1e-6
 #: What a window's margin (its uncertainty for the review queue) is taken from: "smoothed" the
 #: final distribution; "both" also the distribution before smoothing; "experts" also the graph's
 #: and the classifier's own; "disagree" also zero where the graph and the classifier differ.
+#: "both" (the default) kept: "experts" and "disagree" needed 77 confirmations to 95 % on the crew
+#: of six against 60 (mean of 3 seeds) and were behind after 25 queue answers from the first bouts
+#: (0.884 / 0.888 against 0.915).
 UNCERTAINTIES = ("both", "smoothed", "experts", "disagree")
 
 
