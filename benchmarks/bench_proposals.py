@@ -294,7 +294,7 @@ def part_confirmations(quick: bool, seeds: int = 3, methods=("before", "project"
           f"mean of {seeds} seeds) ==")
     for name in ("crew",):
         d = co.data_sets(quick)[name][0](0)
-        inside, other, same = carry_over(d.X, d.t, d.rec)
+        inside, other, same = carry_over(co.features_of(d, "1"), d.t, d.rec)  # Project's graph
         print(f"{d.name}: {inside:.0%} of the edge weight inside one recording; nearest window "
               f"of another recording right {other:.1%}, of the same recording {same:.1%}")
     rows = co.measure(["long", "crew", "demo", "basicmotions", "digits"], list(methods), seeds,
