@@ -46,7 +46,9 @@ from labeler.estimate import (audit_accuracy, audit_held_out, draw_stratified_au
 from labeler.graph import build_graph
 from labeler.review import review_queue
 from labeler.service.proposals import QUEUE_FLOOR, QUEUE_POWER
+from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, Proposer
 from labeler.spreading import LabelSpreader
+from sklearn.base import clone
 
 CHECKPOINTS = (25, 50, 100, 200)
 ORDERS = ("random", "queue", "map")
@@ -65,10 +67,10 @@ def simulator(hours: float = 1.0, seed: int = 1, person: int = 0):
                                name=sim.name)
     length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
     starts = cut_windows(rec.valid, length, step)
-    X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
+    X, names = window_features(rec.signal, starts, length, rec.rate, rec.channels)
     truth = window_truth(sim.truth, starts / rec.rate, (starts + length) / rec.rate).astype(str)
     seq = np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))])
-    return X, truth, np.zeros(truth.size, dtype=np.int64), seq
+    return X, truth, np.zeros(truth.size, dtype=np.int64), seq, names
 
 
 def crew(people: int = 3, hours: float = 0.5, seed: int = 11):
@@ -77,7 +79,7 @@ def crew(people: int = 3, hours: float = 0.5, seed: int = 11):
     truth = np.concatenate([p[1] for p in parts])
     rec = np.concatenate([np.full(p[1].size, k) for k, p in enumerate(parts)])
     seq = np.concatenate([p[3] for p in parts])
-    return X, truth, rec, seq
+    return X, truth, rec, seq, parts[0][4]
 
 
 def basic_motions(per_series: int = 5):
@@ -98,34 +100,43 @@ def basic_motions(per_series: int = 5):
     signal = S.transpose(0, 2, 1).reshape(n * L, c)
     starts = (np.arange(n)[:, None] * L + np.arange(per_series)[None, :] * step).ravel()
     channels = ["dev_acc_x", "dev_acc_y", "dev_acc_z", "dev_gyr_x", "dev_gyr_y", "dev_gyr_z"]
-    X, _ = window_features(signal, starts, length, 10.0, channels)
+    X, names = window_features(signal, starts, length, 10.0, channels)
     y = np.repeat(np.concatenate([ya, yb]), per_series)
     rec = np.repeat(np.arange(n), per_series)
     seq = np.tile(np.arange(per_series), n)
-    return X, y.astype(str), rec, seq
+    return X, y.astype(str), rec, seq, names
 
 
 def digits():
     from sklearn.datasets import load_digits
 
     X, t = load_digits(return_X_y=True)
-    return X, t.astype(str), None, None
+    return X, t.astype(str), None, None, [f"pixel{i}" for i in range(X.shape[1])]
 
 
 DATASETS = {"simulator": simulator, "crew": crew, "BasicMotions": basic_motions, "digits": digits}
 
 
 def prepare(name: str, quick: bool = False):
-    X, truth, rec, seq = (simulator(0.5) if (quick and name == "simulator")
-                          else crew(3, 0.25) if (quick and name == "crew") else DATASETS[name]())
+    """The data set's graph, truth, time and 2-D map, and the classifier's features as the
+    project makes them (the graph from :func:`labeler.features.graph_columns`, the classifier's
+    view from :func:`labeler.proposing.classifier_view`)."""
+    from labeler.features import graph_columns
+    from labeler.proposing import classifier_view
+
+    X, truth, rec, seq, names = (simulator(0.5) if (quick and name == "simulator")
+                                 else crew(3, 0.25) if (quick and name == "crew")
+                                 else DATASETS[name]())
     _, t = np.unique(truth, return_inverse=True)
+    Zc = classifier_view(X, names)
+    X = X[:, graph_columns(names)]
     W = build_graph(X, recording=rec, seq=seq, pca_components=PCA if X.shape[1] > PCA else None)
     from sklearn.decomposition import PCA as _PCA
     from sklearn.preprocessing import StandardScaler
 
     Z = StandardScaler().fit_transform(np.nan_to_num(X.astype(np.float64)))
     xy = _PCA(2, random_state=0).fit_transform(Z)
-    return {"W": W, "t": t, "rec": rec, "seq": seq, "xy": xy}
+    return {"W": W, "t": t, "rec": rec, "seq": seq, "xy": xy, "Zc": Zc}
 
 
 AUDIT = 30  # answers of the blind audit the estimate asks for when it has no figure
@@ -138,8 +149,9 @@ def _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed):
     mask = np.zeros(y.size, dtype=bool)
     if audit is not None:
         mask[audit[0]] = True
-    kw = dict(recording=rec, seq=seq, spreader=LabelSpreader(), init=sp.label_mass_,
-              init_classes=sp.classes_)
+    base = getattr(sp, "spreader_", sp)  # the spreading inside the proposer
+    kw = dict(recording=rec, seq=seq, spreader=clone(sp), init=base.label_mass_,
+              init_classes=base.classes_)
     cv, _ = proposal_accuracy(W, y, sp.label_distributions_.max(axis=1), weights=weight,
                               proposed_label=sp.transduction_, batch=batch, level=level,
                               n_boot=n_boot, random_state=seed, exclude=mask, **kw)
@@ -155,19 +167,26 @@ def _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed):
 
 
 def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float = 0.95,
-        n_boot: int = 200, audit_size: int = AUDIT):
+        n_boot: int = 200, audit_size: int = AUDIT, proposer: str = "project"):
     """One simulated annotator; returns rows (confirmed, truth, estimate, low, high, basis,
     audited). Where the estimate has no figure the annotator answers the blind audit it asks for
     (``audit_size`` windows drawn within confidence bands; 0: never) and the figure is read
     again; ``audited``: an audit has been answered by then (its answers are not counted in
-    ``confirmed``)."""
+    ``confirmed``). ``proposer``: "project" (what Project proposes: the spreading times a
+    logistic regression on the orientation-free features) or "spreading" (the spreading alone)."""
     W, t, rec, seq, xy = data["W"], data["t"], data["rec"], data["seq"], data["xy"]
     n = t.size
     rng = np.random.default_rng(seed)
     y = np.full(n, -1)
     weight = np.ones(n)
     batch = np.full(n, -1)  # the round (one user action) that confirmed each window
-    sp = LabelSpreader(warm_start=True)
+    if proposer == "project":
+        sp = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, stay=0.0, warm_start=True,
+                      classifier_features=data["Zc"])
+    elif proposer == "spreading":
+        sp = LabelSpreader(warm_start=True)
+    else:
+        raise ValueError(f"proposer must be 'project' or 'spreading', got {proposer!r}")
     out = None
     audit = None  # (index, stratum, stratum size) of the answered audit
     rows = []
@@ -220,12 +239,13 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
 
 
 def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out=print,
-          audit_size: int = AUDIT):
+          audit_size: int = AUDIT, proposer: str = "project"):
     out("== accuracy estimate against the truth, per data set and order of confirmation ==")
     out(f"   {repeats} repeat(s) each; cells: mean(estimate - truth) / mean |estimate - truth| / "
         "share of 95 % intervals holding the truth; (N none): runs without a figure; "
         f"(N aud): runs where the annotator had answered the blind audit of {audit_size} the "
-        "estimate asked for when it had no figure (not counted in the confirmations)")
+        "estimate asked for when it had no figure (not counted in the confirmations); "
+        f"proposals: {proposer}")
     head = f"  {'data':13s} {'order':7s}" + "".join(f"{c:>30d}" for c in checkpoints)
     out(head)
     summary = {}
@@ -237,7 +257,8 @@ def table(names, orders, repeats: int, quick: bool, checkpoints=CHECKPOINTS, out
             for r in range(repeats):
                 for k, truth, v, lo, hi, basis, audited in run(data, order, seed=r,
                                                                checkpoints=checkpoints,
-                                                               audit_size=audit_size):
+                                                               audit_size=audit_size,
+                                                               proposer=proposer):
                     c = min(checkpoints, key=lambda c: abs(c - k))
                     per[c].append((v - truth if basis != "none" else np.nan,
                                    basis != "none" and lo <= truth <= hi, audited))
@@ -323,6 +344,9 @@ def main(argv=None):
     ap.add_argument("--repeats", type=int, default=None)
     ap.add_argument("--data", nargs="*", default=list(DATASETS))
     ap.add_argument("--orders", nargs="*", default=list(ORDERS))
+    ap.add_argument("--proposer", choices=["project", "spreading"], default="project",
+                    help="what proposes: as Project does (spreading and classifier) or the "
+                         "spreading alone")
     ap.add_argument("--audit", type=int, default=AUDIT, metavar="N",
                     help="size of the audit answered where the estimate has no figure (0: never)")
     ap.add_argument("--speed", type=int, default=None, metavar="N",
@@ -331,7 +355,8 @@ def main(argv=None):
     if a.speed:
         speed(a.speed)
         return
-    table(a.data, a.orders, a.repeats or (3 if a.quick else 10), a.quick, audit_size=a.audit)
+    table(a.data, a.orders, a.repeats or (3 if a.quick else 10), a.quick, audit_size=a.audit,
+          proposer=a.proposer)
 
 
 if __name__ == "__main__":
