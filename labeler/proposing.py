@@ -51,8 +51,9 @@ from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _chec
 #: gave 0.771 / 0.906 / 0.945 / 0.970, 0.3 gave 0.790 / 0.915 / 0.942 / 0.964, 0.5 gave
 #: 0.779 / 0.881 / 0.924 / 0.950 (spreading alone 0.497 / 0.843 / 0.907 / 0.960); on the demo shift
 #: 0.643 / 0.963 / 0.983 / 0.991, 0.707 / 0.955 / 0.980 / 0.991 and 0.778 / 0.944 / 0.964 / 0.985
-#: (alone 0.564 / 0.927 / 0.967 / 0.981). An earlier classifier on every column (not only the
-#: orientation-free ones) made the crew worse.
+#: (alone 0.564 / 0.927 / 0.967 / 0.981); measured with the graph on every column of set 2, before
+#: the graph left the orientation-free extras out. An earlier classifier on every column (not only
+#: the orientation-free ones) made the crew worse.
 DEFAULT_CLASSIFIER_WEIGHT = 0.3
 #: Probability that a window's activity goes on in the next window (0 = no smoothing). Off by
 #: default: with smoothing (stay 0.9 or 0.97) the review queue did not reach 95 % within 150
