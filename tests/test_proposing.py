@@ -127,3 +127,30 @@ def test_bad_parameters_are_refused_with_their_name(kw, word):
     y = np.r_[0, 1, [-1] * 18]
     with pytest.raises(ProposingInputError, match=word):
         Proposer(**kw).fit(W, y)
+
+
+def test_queue_margins_from_the_experts():
+    """"experts": the margin is at most each expert's own; "disagree": zero where the graph's and
+    the classifier's top classes differ (scikit-learn's digits; Alpaydin & Kaynak 1998, from
+    memory)."""
+    from sklearn.datasets import load_digits
+
+    from labeler.proposing import _margin
+
+    X, t = load_digits(return_X_y=True)
+    W = build_graph(X)
+    y = np.full(t.size, -1)
+    y[::60] = t[::60]
+    out = {}
+    for u in ("both", "experts", "disagree"):
+        p = Proposer(classifier_weight=0.3, uncertainty=u).fit(W, y, features=X)
+        out[u] = p.outputs(y).margin
+    g, c = p.graph_distributions_, p.classifier_distributions_
+    assert np.all(out["experts"] <= np.minimum(_margin(g), _margin(c)) + 1e-12)
+    assert np.all(out["experts"] <= out["both"] + 1e-12)
+    differ = (np.argmax(g, axis=1) != np.argmax(c, axis=1)) & (y < 0)
+    assert differ.any() and not differ.all()
+    assert np.all(out["disagree"][differ] == 0)
+    np.testing.assert_allclose(out["disagree"][~differ], out["experts"][~differ])
+    with pytest.raises(ProposingInputError, match="uncertainty must be one of"):
+        Proposer(uncertainty="loud").fit(W, y)
