@@ -220,3 +220,57 @@ def training_set_estimate(est: Estimate, n_confirmed: int, n_proposed: int) -> E
     return Estimate(conf + w * est.value, conf + w * est.low, conf + w * est.high, est.basis, est.n,
                     scope="training set", level=est.level, ece=est.ece,
                     note=est.note + "; confirmed windows counted as right")
+
+
+def normal_quantile(level: float) -> float:
+    """z such that a standard normal lies within +-z with probability ``level``
+    (``statistics.NormalDist``: no scipy.stats import on the way to a stored figure)."""
+    if not 0 < level < 1:
+        raise QualityInputError(f"level must lie strictly between 0 and 1, got {level}")
+    from statistics import NormalDist
+
+    return float(NormalDist().inv_cdf(0.5 + level / 2))
+
+
+def calibrate(confidence, calibration: dict) -> np.ndarray:
+    """Apply a stored calibration (:meth:`ConfidenceCalibrator.as_dict`) to confidences."""
+    xs = np.asarray(calibration["confidence"], dtype=np.float64)
+    ys = np.asarray(calibration["probability"], dtype=np.float64)
+    if xs.size == 0 or xs.shape != ys.shape:
+        raise QualityInputError("calibration must list confidences and probabilities of one length")
+    return np.interp(np.asarray(confidence, dtype=np.float64), xs, ys)
+
+
+def with_audit(cross_validation: Estimate, audit: Estimate | None, *, level: float = 0.95) -> Estimate:
+    """The headline from cross-validation and an answered audit scored on other windows: the
+    audit alone where cross-validation has no figure, both joined by :func:`combine` where it has
+    one, cross-validation alone without an audit."""
+    if audit is None or audit.basis == "none":
+        return cross_validation
+    if cross_validation.basis == "none":
+        return audit
+    return combine([cross_validation, audit], level=level)
+
+
+def combine(estimates, *, level: float = 0.95) -> Estimate:
+    """One headline from independent estimates of one accuracy: inverse-variance weights, the
+    variance of each read off its interval (half-width / z). The note lists the sources."""
+    z = normal_quantile(level)
+    ok = [e for e in estimates if e is not None and e.basis != "none" and np.isfinite(e.value)]
+    if not ok:
+        notes = [e.note for e in estimates if e is not None and e.note]
+        return Estimate(float("nan"), 0.0, 1.0, "none", 0,
+                        note=notes[0] if notes else "no estimate yet: confirm windows of two classes")
+    if len(ok) == 1:
+        return ok[0]
+    var = np.array([max(((e.high - e.low) / (2 * z)) ** 2, 1e-6) for e in ok])
+    w = (1 / var) / (1 / var).sum()
+    value = float(np.dot(w, [e.value for e in ok]))
+    half = z * float(np.sqrt(1 / (1 / var).sum()))
+    parts = [f"{e.basis} {e.value:.3f} on {e.n} window(s) (weight {wi:.2f}): {e.note}"
+             for e, wi in zip(ok, w)]
+    return Estimate(value, max(0.0, value - half), min(1.0, value + half),
+                    " + ".join(e.basis for e in ok), int(sum(e.n for e in ok)), level=level,
+                    ece=next((e.ece for e in ok if e.ece is not None), None),
+                    note="combined by inverse-variance weights: " + "; ".join(parts),
+                    details={"sources": [e.as_dict() for e in ok]})

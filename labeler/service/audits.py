@@ -209,10 +209,7 @@ class Audits:
 
     def _report(self, run: dict, part: dict) -> AccuracyReport:
         """The report of ``run`` from its stored part and the audit as answered now."""
-        import pandas as pd
-
-        from labeler.estimate import audit_accuracy, calibrate, with_audit
-        from labeler.quality import training_set_estimate
+        from labeler.quality import calibrate, training_set_estimate, with_audit
 
         cv = AccuracyReport.from_dict(part["cv"])
         held = {int(k): (int(v[0]), float(v[1])) for k, v in part["audit_held"].items()}
@@ -220,29 +217,31 @@ class Audits:
         y = p["y"].astype(np.int64)
         ids = p["window_id"].astype(np.int64)
         conf = p["confidence"].astype(np.float64)
-        # no audit drawn: nothing to read (keeps `labeler accuracy` quick in a large project)
-        d = self._latest_audit(int(run["id"])) if self.ctx.store.audits() else pd.DataFrame(
-            columns=["window_id", "run_id", "answer", "stratum", "stratum_size"])
-        pos = np.searchsorted(ids, d["window_id"].to_numpy(np.int64))
-        pos = np.minimum(pos, max(ids.size - 1, 0))
-        unconfirmed = {int(w): (int(p["label"][i]), float(conf[i]))
-                       for w, i in zip(d["window_id"], pos) if ids[i] == w and y[i] < 0}
-        code = {str(v): int(k) for k, v in self.ledger.class_names().items()}
         rows, n_held = [], 0  # (correct, confidence, stratum, stratum size)
-        for r in d.itertuples(index=False):
-            wid = int(r.window_id)
-            if wid in held:  # the run learned from it: scored by proposals made without it
-                lab_, c_ = held[wid]
-                n_held += 1
-            elif wid in unconfirmed:  # answered since the run: the run's own proposal
-                lab_, c_ = unconfirmed[wid]
-            else:
-                continue
-            # "mixed" counts against the proposal: it gave one activity to a window of two
-            right = r.answer != ANSWERS["mixed"] and lab_ == code.get(str(r.answer), -1)
-            rows.append((right, c_, r.stratum, r.stratum_size, int(r.run_id)))
+        # no audit drawn: nothing to read (keeps `labeler accuracy` quick in a large project)
+        d = self._latest_audit(int(run["id"])) if self.ctx.store.audits() else None
+        if d is not None:
+            pos = np.searchsorted(ids, d["window_id"].to_numpy(np.int64))
+            pos = np.minimum(pos, max(ids.size - 1, 0))
+            unconfirmed = {int(w): (int(p["label"][i]), float(conf[i]))
+                           for w, i in zip(d["window_id"], pos) if ids[i] == w and y[i] < 0}
+            code = {str(v): int(k) for k, v in self.ledger.class_names().items()}
+            for r in d.itertuples(index=False):
+                wid = int(r.window_id)
+                if wid in held:  # the run learned from it: scored by proposals made without it
+                    lab_, c_ = held[wid]
+                    n_held += 1
+                elif wid in unconfirmed:  # answered since the run: the run's own proposal
+                    lab_, c_ = unconfirmed[wid]
+                else:
+                    continue
+                # "mixed" counts against the proposal: it gave one activity to a window of two
+                right = r.answer != ANSWERS["mixed"] and lab_ == code.get(str(r.answer), -1)
+                rows.append((right, c_, r.stratum, r.stratum_size, int(r.run_id)))
         audit, audit_cal, audit_runs = None, None, ()
         if rows:
+            from labeler.estimate import audit_accuracy
+
             c, x, st, size, drawn = (np.array(v, dtype=object) for v in zip(*rows))
             if any(v is None or v != v for v in st):  # drawn without bands: one band of all
                 st, size = np.zeros(len(rows)), np.full(len(rows), max(int((y < 0).sum()), 1))
@@ -281,5 +280,6 @@ class Audits:
         cal = self.accuracy_estimate().calibration
         if not cal:
             return None
-        from labeler.estimate import calibrate
+        from labeler.quality import calibrate
+
         return calibrate(confidence, cal)
