@@ -41,10 +41,13 @@ const tick = () => {
 tick();
 """
 
-# select rows, press "1", wait until the map source holds the confirmed class and a frame is drawn
+# select k rows not confirmed yet (of the candidates: a project may be reused), press "1", wait until
+# the map source holds the confirmed class and a frame is drawn
 _CONFIRM_JS = """
-const done = arguments[arguments.length - 1]; const rows = arguments[0];
+const done = arguments[arguments.length - 1];
 const s = Bokeh.documents[0].get_model_by_name('map_source');
+const rows = arguments[0].filter((r) => s.data.cf[r] < 0).slice(0, arguments[1]);
+if (rows.length < arguments[1]) { done(-2); return; }
 const sel = Bokeh.documents[0].get_model_by_name('selection');
 const before = sel.text; const tsel = performance.now();
 s.selected.indices = rows;
@@ -214,9 +217,12 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
         confirm = []
         for k in range(3):
             # a different count each time, so the selection panel's text changes with each pick
-            rows = sorted(rng.choice(n, 50 + k, replace=False).tolist())
-            confirm.append(d.execute_async_script(_CONFIRM_JS, rows))
+            rows = sorted(rng.choice(n, 400, replace=False).tolist())
+            confirm.append(d.execute_async_script(_CONFIRM_JS, rows, 50 + k))
             time.sleep(0.3)
+        if min(confirm) < 0:
+            raise RuntimeError("a confirm did not recolour its windows within 30 s, or too few "
+                               "of the drawn windows were still unconfirmed")
         # while the last confirm's proposals are recomputed in the background:
         zoom = wheel_zoom(d)
         trips = [d.execute_async_script(_ROUNDTRIP_JS, int(r))
@@ -311,7 +317,7 @@ def measure_bare(path: Path, n: int, seed: int) -> dict:
         confirm = []
         for k in range(3):
             confirm.append(d.execute_async_script(
-                _CONFIRM_JS, sorted(rng.choice(n, 50 + k, replace=False).tolist())))
+                _CONFIRM_JS, sorted(rng.choice(n, 400, replace=False).tolist()), 50 + k))
             time.sleep(0.3)
         return {"ready": ready_ms, "confirm": confirm}
     finally:

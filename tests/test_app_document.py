@@ -521,7 +521,7 @@ def test_a_pick_shows_a_gallery_of_its_windows(app):
     assert all(c == f"✓ {name}" for c in app.gallery.cells.data["caption"])
     app.select_map([3])                                  # one window: no gallery
     assert app.gallery.rows == [] and app.gallery.lines.data["xs"] == []
-    assert not app.gallery.fig.visible
+    assert dict(app.gallery.fig.styles) == {"display": "none"}
     app.press("Escape")                                  # nothing picked: what to do next
     assert "<b>Next</b>" in app.side.selection.text and "<kbd>R</kbd>" in app.side.selection.text
 
@@ -639,3 +639,24 @@ def test_an_answer_names_its_fix_without_a_target(app):
     assert "nothing to answer" in app.message and "R" in app.message
     app.press("answer:maybe")
     assert "no answer 'maybe'" in app.message
+
+
+def test_new_proposals_reach_the_map_when_the_annotator_pauses(app):
+    """While the annotator picks and presses keys, new proposals change the panels' words at once
+    and reach the map (a repaint of every point) only after a pause."""
+    s = app.state
+    app.served = True                          # as in a served page: the map waits for a pause
+    rows = np.flatnonzero(s.confirmed < 0)[:5]
+    before = np.asarray(app.map.src.data["conf"])[rows].copy()
+    got = s.proposals
+    new = type(got)(got.proposed.copy(), got.confidence.copy(), got.support.copy())
+    new.confidence[rows] = 0.123
+    app.touched()
+    app._apply_proposals(new)
+    assert np.array_equal(np.asarray(app.map.src.data["conf"])[rows], before)
+    assert app._held.size >= rows.size
+    app._last_touch = 0.0                      # the pause has come
+    app._flush_held()
+    assert np.allclose(np.asarray(app.map.src.data["conf"])[rows], 0.123)
+    assert app._held.size == 0
+    app.served = False

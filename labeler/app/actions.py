@@ -199,6 +199,7 @@ class Actions:
     @action
     def press(self, key: str) -> None:
         """Handle one key from the page (see words.KEYS_HELP)."""
+        self.touched()
         if len(key) == 1 and key.isdigit() and key != "0":
             self.confirm_key(int(key))
         elif key in ("Enter", "accept"):

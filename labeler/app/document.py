@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
+import time
 import traceback
 from pathlib import Path
 from typing import Callable
@@ -37,6 +38,7 @@ from labeler.project import PALETTE
 
 MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
 OTHERS_CHECK_MS = 2000           # how often an open page looks for changes made elsewhere
+IDLE_S = 1.5                     # new proposals reach the map after the annotator pauses this long
 DRAW_BACKENDS = ("webgl", "canvas")
 #: the map and signal column takes the room the side panel leaves; below about 1200 px of width
 #: the side panel moves under it (flex-wrap)
@@ -108,6 +110,9 @@ class LabelerApp(Actions):
         self.progress_text = ""
         self.closed = False
         self._guard = False                     # set while Python itself changes the selection
+        self._last_touch = 0.0                  # when the annotator last picked or pressed a key
+        self._held = np.zeros(0, np.int64)      # rows whose new proposals wait for a pause
+        self._flush_due = False
         self.worker = ProposalWorker(project.path, project.annotator,
                                      lambda: dict(self.state.class_code), self.state.n,
                                      deliver=lambda got: self._post(
@@ -250,6 +255,7 @@ class LabelerApp(Actions):
         """The map's selection changed in the page (a drag, a lasso, a click)."""
         if self._guard:
             return
+        self.touched()
         self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
         self.target_source = "map"
         self._target_changed(self._central_row(self.target_rows))
@@ -486,13 +492,37 @@ class LabelerApp(Actions):
             self.progress_text = words.no_proposals()
         elif isinstance(got, Proposals):
             changed = self.state.set_proposals(got)
-            self._send_rows(changed, "proposals")
+            self._send_when_idle(changed)
             self.progress_text = words.proposals_ready(got.note)
             self._refresh_counts()
             self._refresh_selection()
             self._refresh_queue()
             self._retitle_signal()
         self.side.progress.text = self.progress_text
+
+    def touched(self) -> None:
+        """The annotator acted (a pick, a key): new proposals wait for a pause before the map
+        redraws them, so the page answers the annotator first."""
+        self._last_touch = time.monotonic()
+
+    def _send_when_idle(self, rows: np.ndarray) -> None:
+        """Send new proposals' rows to the map once the annotator has paused for ``IDLE_S`` (every
+        repaint of a large map takes a while); the panels' words change at once."""
+        self._held = np.union1d(self._held, np.asarray(rows, dtype=np.int64))
+        if not self.served:
+            self._flush_held()
+        elif not self._flush_due:
+            self._flush_due = True
+            self._flush_held()
+
+    def _flush_held(self) -> None:
+        wait = self._last_touch + IDLE_S - time.monotonic()
+        if self.served and wait > 0:
+            self.doc.add_timeout_callback(lambda: self.act(self._flush_held), int(wait * 1000) + 1)
+            return
+        self._flush_due = False
+        rows, self._held = self._held, np.zeros(0, np.int64)
+        self._send_rows(rows, "proposals")
 
     def close(self) -> None:
         if self.closed:

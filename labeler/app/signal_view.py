@@ -143,6 +143,9 @@ class SignalView:
             span.left, span.right = a, b
 
 
+HIDDEN = {"display": "none"}
+
+
 class Gallery:
     """Up to nine small panels of windows drawn from a pick, in one figure (one source of lines,
     one of cell bands): each cell shows the first sensor site's acceleration over the window, under
@@ -158,7 +161,7 @@ class Gallery:
                                        "tx": [], "ty": [], "caption": []})
         p = figure(height=176, sizing_mode="stretch_width", min_width=240, tools=[],
                    toolbar_location=None, x_range=Range1d(0, 3), y_range=Range1d(3, 0),
-                   name="gallery", visible=False)
+                   name="gallery", styles=dict(HIDDEN))
         p.axis.visible = False
         p.grid.visible = False
         p.outline_line_color = None
@@ -211,7 +214,11 @@ class Gallery:
                 xs.append(u)
                 ys.append(q + 0.96 - 0.66 * (np.clip(v, lo, hi) - lo) / max(hi - lo, 1e-9))
                 colours.append(AXIS_COLOURS[j % 3])
-        self.fig.visible = bool(self.rows)     # no room taken when there is nothing to show
+        # no room taken when there is nothing to show; hidden by its style, not `visible`, which
+        # would lay out the page again and repaint every point of the map
+        want = {} if self.rows else dict(HIDDEN)
+        if dict(self.fig.styles) != want:
+            self.fig.styles = want
         self.cells.data = cells
         self.lines.data = {"xs": xs, "ys": ys, "colour": colours}
 
