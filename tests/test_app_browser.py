@@ -421,3 +421,15 @@ def test_opened_class_drawer_comes_into_sight(driver, served):
                    else None)(_box(driver, "class_drawer")), 20, "the drawer in sight")
     _click_in(driver, "drawer_toggle", "button")          # folded again
     _wait(lambda: _box(driver, "class_drawer")[3] == 0 or None, 20, "the drawer folded")
+
+
+def test_gallery_shows_for_a_pick_of_several_windows_only(driver, served):
+    srv, _path = served
+    _open(driver, srv.url)
+    assert _box(driver, "gallery")[3] == 0
+    driver.execute_script(
+        "Bokeh.documents[0].get_model_by_name('map_source').selected.indices = [3, 9, 20, 41];")
+    _wait(lambda: _box(driver, "gallery")[3] > 100 or None, 20, "the gallery")
+    driver.execute_script("document.activeElement && document.activeElement.blur()")
+    _key(driver, ESCAPE)
+    _wait(lambda: _box(driver, "gallery")[3] == 0 or None, 20, "the gallery to go")

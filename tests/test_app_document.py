@@ -503,6 +503,7 @@ def test_a_pick_shows_a_gallery_of_its_windows(app):
     app.select_map(rows)
     got = app.gallery.rows
     assert len(got) == 9 and len(set(got)) == 9 and set(got) <= set(rows.tolist())
+    assert dict(app.gallery.fig.styles) == {"display": ""}
     kinds = len(s.pick_proposals(rows))
     assert f"<b>{kinds}</b> different proposal" in app.side.selection.text
     assert len(app.gallery.cells.data["caption"]) == 9

@@ -143,7 +143,9 @@ class SignalView:
             span.left, span.right = a, b
 
 
-HIDDEN = {"display": "none"}
+#: the gallery's style when hidden, and when shown (an empty value clears the page's "none"; an
+#: empty style would leave it in place)
+HIDDEN, SHOWN = {"display": "none"}, {"display": ""}
 
 
 class Gallery:
@@ -216,7 +218,7 @@ class Gallery:
                 colours.append(AXIS_COLOURS[j % 3])
         # no room taken when there is nothing to show; hidden by its style, not `visible`, which
         # would lay out the page again and repaint every point of the map
-        want = {} if self.rows else dict(HIDDEN)
+        want = dict(SHOWN if self.rows else HIDDEN)
         if dict(self.fig.styles) != want:
             self.fig.styles = want
         self.cells.data = cells
