@@ -96,10 +96,11 @@ def test_warm_refresh_equals_the_closed_forms_of_spreading_and_logistic_regressi
     with Project.create(tmp_path / "p.labeler", annotator="t") as p:
         p.add_recording_data([r for r, _ in sims])
         truth = _truth(p, sims)
-        _confirm(p, p.review_queue(30)["window_id"], truth)
+        # fixed draws: the review queue draws at random, and the comparison below is of one input
+        _confirm(p, p.review_queue(30, random_state=0)["window_id"], truth)
         first = p.refresh_proposals()
         assert not first.warm_start
-        _confirm(p, p.review_queue(10)["window_id"], truth)
+        _confirm(p, p.review_queue(10, random_state=100)["window_id"], truth)
         run = p.refresh_proposals()
         assert run.warm_start  # started from the previous run's label mass
         params = p.store.runs("proposals")[-1]["params"]

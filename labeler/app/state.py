@@ -375,13 +375,17 @@ class SessionState:
         return self.estimate
 
     # -------------------------------------------------------------- review queue and audit
-    def load_queue(self, mode: str, n: int = 50) -> list[QueueItem]:
-        """Fill the queue from the project: ``review`` (Project.review_queue) or ``audit``
-        (Project.draw_audit, a random sample within bands of confidence)."""
+    def load_queue(self, mode: str, n: int | None = None) -> list[QueueItem]:
+        """Fill the queue from the project: ``review`` (Project.review_queue, 50 items unless
+        ``n`` says) or ``audit`` (Project.draw_audit, a random sample within bands of confidence,
+        of the size the accuracy note asks for unless ``n`` says)."""
         self.queue_mode = mode
         self.queue_pos = 0
         self.queue = []
-        got = self.project.review_queue(n) if mode == "review" else self.project.draw_audit(n)
+        if mode == "review":
+            got = self.project.review_queue(50 if n is None else n)
+        else:
+            got = self.project.draw_audit() if n is None else self.project.draw_audit(n)
         ids = got["window_id"].to_numpy(np.int64)
         reasons = got["reason"].astype(str).tolist() if "reason" in got else [""] * len(ids)
         pos = self.index.get_indexer(ids)
