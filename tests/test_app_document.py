@@ -297,6 +297,11 @@ def test_proposals_queue_accept_skip_and_audit(app):
     item = s.current_item()
     assert item is not None and app.target_source == "audit"
     assert "hidden" in app.side.queue.text
+    # the sample the accuracy note asks for (Project.draw_audit's size), not the review's 50
+    import inspect
+
+    size = inspect.signature(Project.draw_audit).parameters["n"].default
+    assert len(s.queue) == size == len(app.project.audit_status())
     # nothing on the page shows the proposal while auditing: signal title, hover, map, timeline
     assert "proposed" not in app.signal.title.text and "hidden" in app.signal.title.text
     assert "proposed" not in [t[0] for t in app.map.hover.tooltips]
