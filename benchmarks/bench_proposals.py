@@ -115,26 +115,10 @@ def basic_motions():
 
 
 def _windows_of(sims, hash_prefix: str):
-    """Features, truth, recording and sequence of simulated recordings (one recording each)."""
-    from labeler.features import window_features
-    from labeler.recordings import recording_from_frame
-    from labeler.synthetic import window_truth
-    from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
-
-    Xs, truths, recs, seqs = [], [], [], []
-    for k, sim in enumerate(sims):
-        rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{hash_prefix}-{k}",
-                                   name=sim.name)
-        length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
-        starts = cut_windows(rec.valid, length, step)
-        X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
-        Xs.append(X)
-        truths.append(window_truth(sim.truth, starts / rec.rate,
-                                   (starts + length) / rec.rate).astype(str))
-        recs.append(np.full(len(starts), k, dtype=np.int64))
-        seqs.append(np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))]))
-    _, t = np.unique(np.concatenate(truths), return_inverse=True)
-    return np.vstack(Xs), t, np.concatenate(recs), np.concatenate(seqs)
+    """Features, truth codes, recording and sequence of simulated recordings (one recording each)."""
+    X, _, truth, rec, seq = _carry().sim_windows(sims, hash_prefix)
+    _, t = np.unique(truth, return_inverse=True)
+    return X, t, rec, seq
 
 
 def crew_of_six(hours: float = 1.0, seed: int = 21):

@@ -76,13 +76,15 @@ def _first_bouts(truth: np.ndarray, rec: np.ndarray, seq: np.ndarray, min_window
     return np.concatenate(list(picked.values()))
 
 
-def _from_sims(name, sims, salt):
+def sim_windows(sims, salt):
+    """Features (with their names), truth, recording and sequence of simulated recordings, each
+    cut into the project's default windows (one recording per simulation)."""
     from labeler.features import window_features
     from labeler.recordings import recording_from_frame
     from labeler.synthetic import window_truth
     from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
 
-    Xs, truths, recs, seqs = [], [], [], []
+    Xs, truths, recs, seqs, names = [], [], [], [], []
     for k, sim in enumerate(sims):
         rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{salt}-{k}",
                                    name=sim.name)
@@ -94,11 +96,15 @@ def _from_sims(name, sims, salt):
                                    (starts + length) / rec.rate).astype(str))
         recs.append(np.full(len(starts), k, dtype=np.int64))
         seqs.append(np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))]))
-    truth = np.concatenate(truths)
-    rec, seq = np.concatenate(recs), np.concatenate(seqs)
+    return (np.vstack(Xs), names, np.concatenate(truths), np.concatenate(recs),
+            np.concatenate(seqs))
+
+
+def _from_sims(name, sims, salt):
+    X, names, truth, rec, seq = sim_windows(sims, salt)
     start = _first_bouts(truth, rec, seq)
     _, t = np.unique(truth, return_inverse=True)
-    return Data(name, np.vstack(Xs), t, rec, seq, start, names, _n_v1(sims[0].frame.columns[1:]))
+    return Data(name, X, t, rec, seq, start, names, _n_v1(sims[0].frame.columns[1:]))
 
 
 def _n_v1(channels):
