@@ -54,47 +54,19 @@ PCA = 30  # components for the simulator's 294 features (same accuracy, 3x faste
 
 def synthetic(hours: float = 8.0, seed: int = 1, person: int = 0):
     """Windows, features and truth of one simulated recording (demo scenario)."""
-    from labeler.features import window_features
-    from labeler.recordings import recording_from_frame
-    from labeler.synthetic import simulate_recording, window_truth
-    from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+    from labeler.synthetic import simulate_recording
 
-    sim = simulate_recording(hours * 3600, seed=seed, person=person)
-    rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{seed}-{person}",
-                               name=sim.name)
-    length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
-    starts = cut_windows(rec.valid, length, step)
-    X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
-    truth = window_truth(sim.truth, starts / rec.rate, (starts + length) / rec.rate).astype(str)
-    # consecutive windows are `step` samples apart; a gap breaks the sequence
-    seq = np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))])
-    _, t = np.unique(truth, return_inverse=True)
-    return X, t, np.zeros(t.size, dtype=np.int64), seq
+    return _windows_of([simulate_recording(hours * 3600, seed=seed, person=person)],
+                       f"{seed}-{person}")
 
 
 def synthetic_crew(people: int = 3, hours: float = 1.0, seed: int = 11):
     """Windows, features and truth of several simulated pickers (one recording each): the other
     pickers move differently, so examples from one generalise only in part."""
-    from labeler.features import window_features
-    from labeler.recordings import recording_from_frame
-    from labeler.synthetic import simulate_recording, window_truth
-    from labeler.windows import DEFAULT_LENGTH_S, DEFAULT_STEP_S, cut_windows, window_samples
+    from labeler.synthetic import simulate_recording
 
-    Xs, truths, recs, seqs = [], [], [], []
-    for k in range(people):
-        sim = simulate_recording(hours * 3600, seed=seed + k, person=k)
-        rec = recording_from_frame(sim.frame, where="simulator", content_hash=f"{seed}-{k}",
-                                   name=sim.name)
-        length, step = window_samples(rec.rate, DEFAULT_LENGTH_S, DEFAULT_STEP_S)
-        starts = cut_windows(rec.valid, length, step)
-        X, _ = window_features(rec.signal, starts, length, rec.rate, rec.channels)
-        Xs.append(X)
-        truths.append(window_truth(sim.truth, starts / rec.rate,
-                                   (starts + length) / rec.rate).astype(str))
-        recs.append(np.full(len(starts), k, dtype=np.int64))
-        seqs.append(np.concatenate([[0], np.cumsum(np.where(np.diff(starts) == step, 1, 2))]))
-    _, t = np.unique(np.concatenate(truths), return_inverse=True)
-    return np.vstack(Xs), t, np.concatenate(recs), np.concatenate(seqs)
+    return _windows_of([simulate_recording(hours * 3600, seed=seed + k, person=k)
+                        for k in range(people)], str(seed))
 
 
 def basic_motions():
