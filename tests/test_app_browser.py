@@ -152,9 +152,8 @@ def test_page_shows_every_window_and_a_key_confirms_and_undoes(driver, served):
                "the confirm event")
     assert ev.iloc[-1]["window_id"] == ids[row] and ev.iloc[-1]["annotator"] == "browser"
     assert ev.iloc[-1]["source"] == "map"
-    lab = driver.execute_script(
-        f"return Bokeh.documents[0].get_model_by_name('map_source').data.cf[{row}];")
-    assert lab >= 0
+    # drawn at once on the map's overlay, and in the map's source once the page is left alone
+    _wait(lambda: driver.execute_script(_DRAWN_CF_JS, row) >= 0 or None, 20, "the map to show it")
     ARTIFACTS.mkdir(exist_ok=True)
     driver.save_screenshot(str(ARTIFACTS / "app_confirmed.png"))
     _key(driver, "u")
@@ -234,6 +233,16 @@ def test_review_queue_item_confirmed_with_a_key_then_undone(driver, served):
     _key(driver, "u")
     _wait(lambda: _confirmed_line(_div_text(driver, "counts")) == counts0 or None, 20,
           "the counts to return")
+
+
+# the class a window is drawn with on the map: the overlay of windows labeled since the last pause
+# first, then the map's source (-1: none)
+_DRAWN_CF_JS = """
+const d = Bokeh.documents[0]; const row = arguments[0];
+const f = d.get_model_by_name('fresh_source');
+const k = Array.from(f.data.row).indexOf(row);
+return k >= 0 ? f.data.cf[k] : d.get_model_by_name('map_source').data.cf[row];
+"""
 
 
 def _box(driver, name):
@@ -433,3 +442,76 @@ def test_gallery_shows_for_a_pick_of_several_windows_only(driver, served):
     driver.execute_script("document.activeElement && document.activeElement.blur()")
     _key(driver, ESCAPE)
     _wait(lambda: _box(driver, "gallery")[3] == 0 or None, 20, "the gallery to go")
+
+
+def _drag(driver, x0, y0, x1, y1):
+    """A real drag of the mouse across the page, as a person draws a box."""
+    from selenium.webdriver.common.actions.action_builder import ActionBuilder
+
+    ab = ActionBuilder(driver, duration=20)
+    ab.pointer_action.move_to_location(int(x0), int(y0)).pointer_down()
+    for k in (2, 3):
+        ab.pointer_action.move_to_location(int(x0 + (x1 - x0) * k / 3),
+                                           int(y0 + (y1 - y0) * k / 3))
+    ab.pointer_action.pointer_up()
+    ab.perform()
+
+
+def test_a_dragged_box_picks_its_windows_and_a_key_recolours_them_at_once(driver, served):
+    """A box dragged on the map picks exactly the windows drawn inside it (counted here from the
+    page's own coordinates and scales), rings them and names them; a class key draws them in the
+    class's colour at once, before the map's source takes the change after a pause; the points
+    are not repainted for the pick (no selection of the map's source)."""
+    import numpy as np
+
+    srv, path = served
+    _open(driver, srv.url)
+    driver.execute_script("document.activeElement && document.activeElement.blur()")
+    geo = driver.execute_script("""
+        const d = Bokeh.documents[0]; const s = d.get_model_by_name('map_source');
+        const v = Bokeh.index.get_one(d.get_model_by_name('map'));
+        const r = v.canvas_view.el.getBoundingClientRect(); const f = v.frame;
+        const sx = Array.from(s.data.x, (x) => f.x_scale.compute(x) + r.left);
+        const sy = Array.from(s.data.y, (y) => f.y_scale.compute(y) + r.top);
+        return [sx, sy, Array.from(s.data.cf), r.left + f.bbox.left, r.top + f.bbox.top,
+                r.left + f.bbox.right, r.top + f.bbox.bottom];""")
+    sx, sy, cf = np.asarray(geo[0]), np.asarray(geo[1]), np.asarray(geo[2])
+    left, top, right, bottom = geo[3:]
+    # a box around an unconfirmed window, well inside the frame, holding a few windows
+    inside = (sx > left + 40) & (sx < right - 40) & (sy > top + 40) & (sy < bottom - 40)
+    r = int(np.flatnonzero(inside & (cf < 0))[0])
+    x0, y0, x1, y1 = sx[r] - 12, sy[r] - 12, sx[r] + 12, sy[r] + 12
+    _drag(driver, x0, y0, x1, y1)
+    want = set(np.flatnonzero((sx >= x0) & (sx <= x1) & (sy >= y0) & (sy <= y1)).tolist())
+    assert r in want
+    _wait(lambda: f"{len(want)} window" in _div_text(driver, "selection") or None, 20,
+          "the pick named in the side panel")
+    rings = set(driver.execute_script(
+        "return Array.from(Bokeh.documents[0].get_model_by_name('pick_source').data.row)"))
+    # pixel edges may round either way: the rings are the windows within the drawn box
+    assert rings == want, (sorted(rings ^ want))
+    assert driver.execute_script(
+        "return Bokeh.documents[0].get_model_by_name('map_source').selected.indices.length") == 0
+    code = int(__import__("re").search(r"data-cmd='class:(\d+)' name='class_1'",
+                                       _div_text(driver, "class_pad")).group(1))
+    _key(driver, "1")
+    _wait(lambda: all(driver.execute_script(_DRAWN_CF_JS, k) == code for k in want) or None, 20,
+          "the picked windows drawn in the class's colour")
+    # left alone, the map's source takes them and the overlay empties
+    _wait(lambda: driver.execute_script(
+        "const d = Bokeh.documents[0]; const rows = arguments[0];"
+        "const cf = d.get_model_by_name('map_source').data.cf;"
+        "return d.get_model_by_name('fresh_source').get_length() === 0"
+        " && rows.every((k) => cf[k] === arguments[1]);", sorted(want), code) or None, 20,
+        "the map's source to take the change")
+    ARTIFACTS.mkdir(exist_ok=True)
+    driver.save_screenshot(str(ARTIFACTS / "app_box_picked.png"))
+    _key(driver, "u")
+    with Project.open(path, readonly=True) as p:
+        picked = set(p.windows()["id"].to_numpy()[sorted(want)].tolist())
+
+    def still_labeled():
+        with Project.open(path, readonly=True) as p:
+            return picked & set(p.labels()["window_id"].tolist())
+
+    _wait(lambda: not still_labeled() or None, 20, "the undo in the file")

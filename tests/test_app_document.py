@@ -158,7 +158,7 @@ def test_timeline_span_confirms_a_bout(app):
         want = set(p.window_ids_in_span(rec, 20.0, 50.0).tolist())
     assert app.target_source == "timeline"
     assert set(s.ids[app.target_rows].tolist()) == want
-    assert app.map.src.selected.indices == app.target_rows.tolist()
+    assert app.map.pick_src.data["row"].tolist() == app.target_rows.tolist()   # ringed
     app.press("1")
     ev = _events(app.project.path, source="timeline")
     assert set(ev["window_id"]) == want and ev["batch_id"].nunique() == 1
@@ -496,7 +496,7 @@ def test_enter_and_esc_act_on_what_is_shown(app):
     assert len(_events(app.project.path)) == before
     app.press("Escape")                                # back to the review item
     assert app.target_source == "queue" and app.target_rows.tolist() == [item.row]
-    assert "paused" not in app.side.queue.text and app.map.src.selected.indices == []
+    assert "paused" not in app.side.queue.text and len(app.map.pick_src.data["row"]) == 0
     app.press("Escape")                                # leaves the review
     assert s.current_item() is None and "left the review" in app.side.message.text
 
@@ -666,3 +666,22 @@ def test_new_proposals_reach_the_map_when_the_annotator_pauses(app):
     assert np.allclose(np.asarray(app.map.src.data["conf"])[rows], 0.123)
     assert app._held.size == 0
     app.served = False
+
+
+def test_a_disagreement_card_names_each_annotators_label(app):
+    """A window two annotators labeled differently comes first in the review, and its card says
+    who called it what."""
+    s = app.state
+    row = int(np.flatnonzero(s.confirmed < 0)[0])
+    a, b = (s.class_names[c] for c in s.active_codes()[:2])
+    wid = int(s.ids[row])
+    with Project.open(app.project.path, annotator="maple") as p:
+        p.confirm([wid], a, source="api")
+    with Project.open(app.project.path, annotator="birch") as p:
+        p.confirm([wid], b, source="api")
+    app.check_others()
+    app.press("r")
+    item = s.current_item()
+    assert item.window_id == wid and item.reason == "disagreement"
+    card = app.side.queue.text
+    assert f"maple: <b>{a}</b>" in card and f"birch: <b>{b}</b>" in card

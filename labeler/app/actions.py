@@ -50,14 +50,19 @@ class Actions:
         again = back is not None and changed.tolist() == [back.row] and not self.picking()
         if again:
             s.queue_pos -= 1                  # the review item just answered: shown again
-        self._labels_changed(changed, show_item=again)
+        self._labels_changed(changed, show_item=again, at_once=True)
 
     def _labels_changed(self, changed: np.ndarray, *, next_item: bool = False,
-                        show_item: bool = False) -> None:
-        """The tail of every write of labels: send the changed rows, move the queue on
-        (``next_item``) or show its current item (``show_item``) or redraw its card, retitle the
-        signal, recount, and ask for new proposals."""
-        self._send_rows(changed)
+                        show_item: bool = False, at_once: bool = False) -> None:
+        """The tail of every write of labels: draw the changed rows (on the map's overlay until the
+        annotator pauses; ``at_once``: into the map's source now, as an undo must also take
+        outlines away), move the queue on (``next_item``) or show its current item
+        (``show_item``) or redraw its card, retitle the signal, recount, and ask for new
+        proposals."""
+        if at_once:
+            self._send_rows(changed)
+        else:
+            self._labeled(changed)
         if next_item or show_item:
             self._show_item(self.state.advance() if next_item else self.state.current_item())
         else:

@@ -23,7 +23,7 @@ from bokeh.layouts import column, row
 from bokeh.models import (ColumnDataSource, CustomJS, Div, InlineStyleSheet, LinearColorMapper,
                           TextInput)
 
-from labeler.app import words
+from labeler.app import picking, words
 from labeler.app.actions import ANSWER_KINDS, Actions, action
 from labeler.app.assets import static, template
 from labeler.app.map_view import NONE_COLOUR, MapView
@@ -38,7 +38,9 @@ from labeler.project import PALETTE
 
 MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
 OTHERS_CHECK_MS = 2000           # how often an open page looks for changes made elsewhere
-IDLE_S = 1.5                     # new proposals reach the map after the annotator pauses this long
+IDLE_S = 1.5                     # the map's source takes changes after a pause this long
+FRESH_MAX = 5000                 # more windows labeled than this without a pause: sent at once
+PICK_REACH_PX = 8                # a click picks the nearest window within this many pixels
 DRAW_BACKENDS = ("webgl", "canvas")
 #: the map and signal column takes the room the side panel leaves; below about 1200 px of width
 #: the side panel moves under it (flex-wrap)
@@ -111,8 +113,9 @@ class LabelerApp(Actions):
         self.closed = False
         self._guard = False                     # set while Python itself changes the selection
         self._last_touch = 0.0                  # when the annotator last picked or pressed a key
-        self._held = np.zeros(0, np.int64)      # rows whose new proposals wait for a pause
+        self._held = np.zeros(0, np.int64)      # rows the map's source gets at the next pause
         self._flush_due = False
+        self._fresh = np.zeros(0, np.int64)     # rows drawn on the overlay until then
         self.worker = ProposalWorker(project.path, project.annotator,
                                      lambda: dict(self.state.class_code), self.state.n,
                                      deliver=lambda got: self._post(
@@ -149,6 +152,10 @@ class LabelerApp(Actions):
         self.map = MapView(s, draw=self.draw, class_mapper=self.class_mapper,
                            per_shape=len(PALETTE), names=self.classes_src,
                            people=self.people_src, recordings=recs_src)
+        # a pick is the shape the annotator drew (the server finds the windows in it); a selection
+        # of the map's source set from outside (a script) is a pick too
+        self.map.fig.on_event(SelectionGeometry, self._on_map_shape)
+        self.map.fig.on_event(Tap, lambda e: self.pick_at(e.x, e.y))
         self.map.src.selected.on_change("indices", lambda _a, _o, new: self.pick_on_map(new))
         self.signal = SignalView(s.channels, self.project.signal, self.css)
         self.signal.steady.on_change("active", lambda _a, _o, _n: self._draw_gallery())
@@ -218,14 +225,17 @@ class LabelerApp(Actions):
 
     # ================================================================== what is picked
     def _set_target(self, rows, source: str, *, select_on_map: bool) -> None:
-        """What the keys act on now: a pick (map, timeline) or the queue's item (queue, audit)."""
+        """What the keys act on now: a pick (map, timeline; ringed on the map when
+        ``select_on_map``) or the queue's item (queue, audit)."""
         self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
         self.target_source = source
-        self._guard = True
-        try:
-            self.map.src.selected.indices = self.target_rows.tolist() if select_on_map else []
-        finally:
-            self._guard = False
+        if self.map.src.selected.indices:       # set from outside: let go of it
+            self._guard = True
+            try:
+                self.map.src.selected.indices = []
+            finally:
+                self._guard = False
+        self.map.show_pick(self.target_rows if select_on_map else self.target_rows[:0])
         self._target_changed(int(self.target_rows[0]) if self.target_rows.size else None)
 
     def _target_changed(self, focus: int | None) -> None:
@@ -252,13 +262,38 @@ class LabelerApp(Actions):
 
     @action
     def pick_on_map(self, rows) -> None:
-        """The map's selection changed in the page (a drag, a lasso, a click)."""
+        """Pick these rows of the map (the windows in a drawn shape, or a selection of the map's
+        source set from outside); the focus goes to the pick's most central window."""
         if self._guard:
             return
         self.touched()
         self.target_rows = np.unique(np.asarray(rows, dtype=np.int64))
         self.target_source = "map"
+        self.map.show_pick(self.target_rows)
         self._target_changed(self._central_row(self.target_rows))
+
+    def _on_map_shape(self, event) -> None:
+        """A drag (box) or a lasso on the map ended: pick the windows inside it."""
+        g = event.geometry
+        if not event.final:
+            return
+        s = self.state
+        if g.get("type") == "rect":
+            self.pick_on_map(picking.in_box(s.x, s.y, g["x0"], g["x1"], g["y0"], g["y1"]))
+        elif g.get("type") == "poly":
+            self.pick_on_map(picking.in_polygon(s.x, s.y, g["x"], g["y"]))
+
+    @action
+    def pick_at(self, x: float, y: float) -> None:
+        """A click on the map: pick the window under it (within a few pixels), or let go of the
+        pick when none is."""
+        s = self.state
+        ux, uy = self.map.units_per_pixel()
+        if not (np.isfinite(ux) and np.isfinite(uy)):     # the page has not said its size yet
+            span = max(float(np.ptp(s.x)) if s.n else 1.0, float(np.ptp(s.y)) if s.n else 1.0)
+            ux = uy = (span or 1.0) / 800.0
+        r = picking.nearest(s.x, s.y, float(x), float(y), ux, uy, PICK_REACH_PX)
+        self.pick_on_map([] if r is None else [r])
 
     def picking(self) -> bool:
         """True while a map or timeline pick holds the keys (the queue, if any, waits)."""
@@ -272,8 +307,8 @@ class LabelerApp(Actions):
         return int(rows[np.argmin((s.x[rows] - cx) ** 2 + (s.y[rows] - cy) ** 2)])
 
     def select_map(self, rows) -> None:
-        """Select rows on the map as the browser would (tests, and Python-side picking)."""
-        self.map.select(rows)
+        """Select rows of the map's source as a script in the page would (tests)."""
+        self.map.src.selected.indices = [int(r) for r in rows]
 
     def _on_timeline_box(self, event) -> None:
         g = event.geometry
@@ -358,15 +393,27 @@ class LabelerApp(Actions):
         self.map.set_blind(blind)
 
     # ================================================================== refreshing the panels
-    def _send_rows(self, rows: np.ndarray, what: str = "labels") -> None:
-        """Send the drawing columns of changed rows to the map and redraw the timeline."""
+    def _send_rows(self, rows: np.ndarray) -> None:
+        """Send changed rows to the map's source now, with every row still held for a pause (one
+        repaint of every point), and redraw the timeline."""
+        self._held = np.union1d(self._held, np.asarray(rows, dtype=np.int64))
+        self._flush_held(now=True)
+        self.later(self.timeline.redraw)
+
+    def _labeled(self, rows: np.ndarray) -> None:
+        """Windows just labeled here (a confirm, an answer): drawn at once on the map's overlay
+        (only they repaint), sent to the map's source once the annotator pauses."""
         rows = np.asarray(rows, dtype=np.int64)
         if rows.size == 0:
             return
-        self.map.send(rows, what)
+        self._held = np.union1d(self._held, rows)
         self.later(self.timeline.redraw)
-        if len(self.people_src.data["name"]) != len(self.state.annotators):
-            self.people_src.data = {"name": list(self.state.annotators)}
+        if not self.served or self._held.size > FRESH_MAX:
+            self._flush_held(now=True)
+            return
+        self._fresh = np.union1d(self._fresh, rows)
+        self.map.show_fresh(self._fresh)
+        self._flush_when_idle()
 
     def _refresh_selection(self) -> None:
         rows, src = self.target_rows, self.target_source
@@ -440,6 +487,7 @@ class LabelerApp(Actions):
         s = self.state
         s.x, s.y, s.map_kind = read_map(self.project, s.n)
         self._map_run = run
+        self._flush_held(now=True)            # the overlay's windows move with the rest
         self.map.move_points()
         self.map.set_focus(self.focus_row)
         self.header.text = self._header_html()
@@ -510,19 +558,39 @@ class LabelerApp(Actions):
         repaint of a large map takes a while); the panels' words change at once."""
         self._held = np.union1d(self._held, np.asarray(rows, dtype=np.int64))
         if not self.served:
-            self._flush_held()
-        elif not self._flush_due:
+            self._flush_held(now=True)
+            self.timeline.redraw()
+        else:
+            self._flush_when_idle()
+
+    def _flush_when_idle(self) -> None:
+        if not self._flush_due:
             self._flush_due = True
             self._flush_held()
 
-    def _flush_held(self) -> None:
+    def _flush_held(self, now: bool = False) -> None:
+        """Send the held rows to the map's source once the annotator has paused (``now``: at
+        once) and clear the overlay of fresh labels in the same change."""
         wait = self._last_touch + IDLE_S - time.monotonic()
-        if self.served and wait > 0:
+        if not now and self.served and wait > 0:
             self.doc.add_timeout_callback(lambda: self.act(self._flush_held), int(wait * 1000) + 1)
             return
-        self._flush_due = False
+        if not now:
+            self._flush_due = False
+            self.later(self.timeline.redraw)       # new proposals' lower band
         rows, self._held = self._held, np.zeros(0, np.int64)
-        self._send_rows(rows, "proposals")
+        if self.served:
+            self.doc.hold("combine")
+        try:
+            self.map.send(rows)
+            if self._fresh.size:
+                self._fresh = np.zeros(0, np.int64)
+                self.map.show_fresh(self._fresh)
+            if len(self.people_src.data["name"]) != len(self.state.annotators):
+                self.people_src.data = {"name": list(self.state.annotators)}
+        finally:
+            if self.served:
+                self.doc.unhold()
 
     def close(self) -> None:
         if self.closed:

@@ -2,16 +2,21 @@
 
 Colour is the class's own and opaque; a proposal's confidence is the point's size; a confirmed window
 has an outline; classes beyond the palette take the next shape. One renderer over one source draws
-it all (shape and outline are computed in the page from the class and confirmed columns), so a
-confirm sends the changed rows and redraws the map once. The focus ring sits on the overlay layer,
-so moving it does not repaint the points.
+every window (shape and outline are computed in the page from the class and confirmed columns).
+
+Any change to that source or its selection repaints every point, which at 100k windows takes the
+page a second or more; so what changes while the annotator works is drawn on the overlay layer,
+which repaints alone: the pick (rings, from ``pick_source``), the windows labeled since the last
+pause (``fresh_source``, drawn as they will look) and the focus ring. The page never selects on the
+map's source: a drag, a lasso or a click sends its shape to the server, which finds the windows
+(``labeler.app.picking``). The map's source takes the changed rows once the annotator pauses.
 """
 
 from __future__ import annotations
 
 import numpy as np
 from bokeh.layouts import row
-from bokeh.models import (BoxSelectTool, ColorBar, ColumnDataSource, CustomJSHover,
+from bokeh.models import (BoxSelectTool, ColorBar, ColumnDataSource, CustomJS, CustomJSHover,
                           CustomJSTransform, Div, HoverTool, LassoSelectTool, LinearColorMapper,
                           PanTool, RadioButtonGroup, ResetTool, TapTool, WheelZoomTool)
 from bokeh.palettes import Cividis256, Viridis256, linear_palette
@@ -39,7 +44,7 @@ def _name_lookup(names: ColumnDataSource, fallback: str) -> CustomJSHover:
 
 
 class MapView:
-    """The map figure, its source and its colour modes; knows the session state, not the Project."""
+    """The map figure, its sources and colour modes; knows the session state, not the Project."""
 
     def __init__(self, state, *, draw: str, class_mapper: LinearColorMapper, per_shape: int,
                  names: ColumnDataSource, people: ColumnDataSource, recordings: ColumnDataSource):
@@ -50,6 +55,10 @@ class MapView:
         k = max(1, len(state.rec_names))
         self.rec_mapper = LinearColorMapper(palette=recording_palette(k), low=-0.5, high=k - 0.5)
         self.src = ColumnDataSource(self.data(), name="map_source")
+        self.fresh_src = ColumnDataSource(self.rows_data(np.zeros(0, np.int64)),
+                                          name="fresh_source")
+        self.pick_src = ColumnDataSource(self._pick_data(np.zeros(0, np.int64)),
+                                         name="pick_source")
         self.focus_src = ColumnDataSource({"x": [], "y": []})
         p = figure(height=MAP_H, sizing_mode="stretch_width", min_width=360,
                    output_backend=draw, tools=[], toolbar_location="above", name="map",
@@ -59,15 +68,17 @@ class MapView:
         p.grid.visible = False
         p.background_fill_color = "#FAFAFA"
         p.min_border = 4
-        shape = CustomJSTransform(args={"shapes": list(SHAPES), "per_shape": int(per_shape)},
-                                  v_func=static("class_shape.js"))
-        edge = CustomJSTransform(v_func=static("confirmed_edge.js"))
-        self.points = p.scatter(
-            "x", "y", source=self.src, size="size",
-            marker={"field": "lab", "transform": shape},
-            fill_color={"field": "lab", "transform": class_mapper}, fill_alpha=1.0,
-            line_color="#1a1a1a", line_width=1.2, line_alpha={"field": "cf", "transform": edge},
-            selection_fill_alpha=1.0, nonselection_fill_alpha=0.3, nonselection_line_alpha=0.3)
+        self._shape = CustomJSTransform(args={"shapes": list(SHAPES), "per_shape": int(per_shape)},
+                                        v_func=static("class_shape.js"))
+        self._edge = CustomJSTransform(v_func=static("confirmed_edge.js"))
+        self.points = self._scatter(p, self.src)
+        # the page never selects on the map's source (picks are rings on the overlay), and a
+        # selection set from outside leaves the look as it is: no dimmed copy of every point
+        self.points.selection_glyph = None
+        self.points.nonselection_glyph = None
+        self.fresh = self._scatter(p, self.fresh_src, level="overlay")
+        p.scatter("x", "y", source=self.pick_src, size=11, marker="circle", fill_color=None,
+                  line_color="#111111", line_width=1.6, level="overlay", name="pick_rings")
         p.scatter("x", "y", source=self.focus_src, size=22, marker="circle", fill_color=None,
                   line_color="#000000", line_width=2.5, level="overlay")
         self.conf_bar = ColorBar(color_mapper=self.conf_mapper, title="confidence", width=10,
@@ -83,13 +94,17 @@ class MapView:
             ("confirmed", "@cf{custom} (@who{custom})"),
             ("proposed", "@prop{custom} · confidence @conf{0.00}")]
         self.hover = HoverTool(renderers=[self.points], tooltips=list(self.tooltips), limit=1,
+                               filters={"@wid": CustomJS(code=static("nearest_only.js"))},
                                formatters={"@prop": fmt, "@cf": fmt,
                                            "@who": _name_lookup(people, "nobody"),
                                            "@rec": _name_lookup(recordings, "?")})
-        box = BoxSelectTool(renderers=[self.points])
+        # the drag, lasso and click tools aim at an empty renderer: they only send their shape
+        # (on the overlay too: its empty selection changing must not repaint the points)
+        aim = p.scatter(x=[], y=[], size=0, name="pick_aim", level="overlay")
+        box = BoxSelectTool(renderers=[aim], persistent=False)
         wheel = WheelZoomTool()
-        p.add_tools(box, LassoSelectTool(renderers=[self.points]), PanTool(), wheel,
-                    TapTool(renderers=[self.points]), self.hover, ResetTool())
+        p.add_tools(box, LassoSelectTool(renderers=[aim], continuous=False), PanTool(), wheel,
+                    TapTool(renderers=[aim]), self.hover, ResetTool())
         p.toolbar.active_drag = box
         p.toolbar.active_scroll = wheel
         p.toolbar.logo = None
@@ -101,6 +116,16 @@ class MapView:
         self.bar = row(self.colour_mode, self.colour_hint, sizing_mode="stretch_width")
         self.blinded = False
         self._colour_before_audit: int | None = None
+
+    def _scatter(self, p, source: ColumnDataSource, **kw):
+        """The points' one look (colour = class, shape = class's run of the palette, size, outline
+        of confirmed windows) over ``source``."""
+        return p.scatter(
+            "x", "y", source=source, size="size",
+            marker={"field": "lab", "transform": self._shape},
+            fill_color={"field": "lab", "transform": self.class_mapper}, fill_alpha=1.0,
+            line_color="#1a1a1a", line_width=1.2,
+            line_alpha={"field": "cf", "transform": self._edge}, **kw)
 
     # ------------------------------------------------------------------ data
     def data(self) -> dict:
@@ -116,38 +141,69 @@ class MapView:
             "wid": s.ids.astype(np.int32),
         }
 
-    def send(self, rows: np.ndarray, what: str = "labels") -> None:
-        """Send the drawing columns of changed rows: a patch when few, whole columns when many.
-
-        ``what``: "labels" (a confirm or an undo: label, size, confirmed, who) or "proposals"
-        (label, size, proposed, confidence, support); fewer columns, less for the page to take in.
-        """
+    def rows_data(self, rows: np.ndarray) -> dict:
+        """What the overlay needs to draw ``rows`` as the map will (every colour mode)."""
         s = self.state
-        cols = {"lab": s.display_label(rows), "size": s.display_size(rows)}
-        if what == "labels":
-            cols |= {"cf": s.confirmed[rows], "who": s.who[rows]}
-        else:
-            cols |= {"prop": s.proposals.proposed[rows], "conf": s.proposals.confidence[rows],
-                     "support": s.proposals.support[rows]}
+        rows = np.asarray(rows, dtype=np.int64)
+        return {"x": s.x[rows].astype(np.float32), "y": s.y[rows].astype(np.float32),
+                "lab": s.display_label(rows), "size": s.display_size(rows),
+                "cf": s.confirmed[rows].astype(np.int32),
+                "conf": s.proposals.confidence[rows].astype(np.float32),
+                "support": s.proposals.support[rows].astype(np.float32),
+                "rec": s.rec_code[rows].astype(np.int32), "row": rows.astype(np.int32)}
+
+    def _pick_data(self, rows: np.ndarray) -> dict:
+        s = self.state
+        rows = np.asarray(rows, dtype=np.int64)
+        return {"x": s.x[rows].astype(np.float32), "y": s.y[rows].astype(np.float32),
+                "row": rows.astype(np.int32)}
+
+    def send(self, rows: np.ndarray) -> None:
+        """Send the drawing columns of changed rows to the map's source (one repaint of every
+        point): a patch of typed columns when few, whole columns when many."""
+        s = self.state
+        rows = np.asarray(rows, dtype=np.int64)
+        cols = {"lab": s.display_label(rows), "size": s.display_size(rows),
+                "cf": s.confirmed[rows].astype(np.int32), "who": s.who[rows].astype(np.int32),
+                "prop": s.proposals.proposed[rows].astype(np.int32),
+                "conf": s.proposals.confidence[rows].astype(np.float32),
+                "support": s.proposals.support[rows].astype(np.float32)}
         if rows.size > max(2000, s.n // 10):
             full = self.data()
             self.src.data.update({k: full[k] for k in cols})
-        else:
+        elif rows.size:
             idx = rows.tolist()
             self.src.patch({k: list(zip(idx, v.tolist())) for k, v in cols.items()})
+
+    def show_fresh(self, rows: np.ndarray) -> None:
+        """Draw ``rows`` (labeled since the map's source was last sent) on the overlay."""
+        self.fresh_src.data = self.rows_data(rows)
+
+    def show_pick(self, rows) -> None:
+        """Ring the picked windows (on the overlay: the points are not repainted)."""
+        self.pick_src.data = self._pick_data(rows)
 
     def move_points(self) -> None:
         """The state holds a new map: send the coordinates."""
         s = self.state
         self.src.data.update({"x": s.x.astype(np.float32), "y": s.y.astype(np.float32)})
+        self.show_pick(self.pick_src.data["row"])
 
     def set_focus(self, r: int | None) -> None:
         s = self.state
         self.focus_src.data = ({"x": [], "y": []} if r is None else
                                {"x": [float(s.x[r])], "y": [float(s.y[r])]})
 
-    def select(self, rows) -> None:
-        self.src.selected.indices = [int(r) for r in rows]
+    def units_per_pixel(self) -> tuple[float, float]:
+        """Map units per screen pixel along x and y as the page last reported its ranges and size
+        (NaN when it has not yet)."""
+        p = self.fig
+        w, h = p.inner_width, p.inner_height
+        xs, xe = p.x_range.start, p.x_range.end
+        ys, ye = p.y_range.start, p.y_range.end
+        if not all(isinstance(v, (int, float)) for v in (w, h, xs, xe, ys, ye)) or not w or not h:
+            return float("nan"), float("nan")
+        return abs(xe - xs) / w, abs(ye - ys) / h
 
     # ------------------------------------------------------------------ colour
     def set_colour_mode(self, mode: str) -> None:
@@ -155,7 +211,8 @@ class MapView:
                          "confidence": ("conf", self.conf_mapper),
                          "support": ("support", self.support_mapper),
                          "recording": ("rec", self.rec_mapper)}[mode]
-        self.points.glyph.fill_color = {"field": field, "transform": mapper}
+        for glyph in (self.points.glyph, self.fresh.glyph):
+            glyph.fill_color = {"field": field, "transform": mapper}
         self.conf_bar.visible = mode == "confidence"
         self.support_bar.visible = mode == "support"
         self.colour_hint.text = words.colour_hint(mode)

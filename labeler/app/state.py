@@ -29,6 +29,8 @@ class QueueItem:
     row: int                      # row in window-id order
     window_id: int
     reason: str = ""
+    #: (annotator, class name) of each annotator's current label, for a disagreement
+    labels: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass
@@ -390,6 +392,15 @@ class SessionState:
         reasons = got["reason"].astype(str).tolist() if "reason" in got else [""] * len(ids)
         pos = self.index.get_indexer(ids)
         self.queue = [QueueItem(int(p), int(i), r) for p, i, r in zip(pos, ids, reasons) if p >= 0]
+        disputed = {q.window_id for q in self.queue if q.reason == "disagreement"}
+        if disputed:
+            ann = self.project.annotations()
+            ann = ann[ann["window_id"].isin(disputed) & ann["label"].notna()]
+            said: dict[int, list[tuple[str, str]]] = {}
+            for wid, who, label in zip(ann["window_id"], ann["annotator"], ann["label"]):
+                said.setdefault(int(wid), []).append((str(who), str(label)))
+            for q in self.queue:
+                q.labels = tuple(sorted(said.get(q.window_id, ())))
         return self.queue
 
     def leave_queue(self) -> None:

@@ -250,6 +250,10 @@ def queue_item(state, item, audit: bool, *, paused: bool = False,
     """The look-next slip: where the window is, why it is here, what is suggested, the answers."""
     s, r = state, item.row
     why = (f"<div class='muted'>why: {escape(reason(item.reason))}</div>" if item.reason else "")
+    if item.labels and not audit:
+        said = " · ".join(f"{escape(who)}: <b>{escape(answer_words(label))}</b>"
+                          for who, label in item.labels)
+        why += f"<div class='said'>{said}</div>"
     head = (f"<div class='slip-head'><b>{'Audit' if audit else 'Review'} {s.queue_pos + 1} of "
             f"{len(s.queue)}</b> · window {item.window_id} · {escape(s.rec_names[s.rec_code[r]])} "
             f"{s.start[r]:.1f}–{s.stop[r]:.1f} s</div>")
