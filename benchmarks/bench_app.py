@@ -280,6 +280,29 @@ def drag_pick(d, row: int, half: float) -> tuple[float, list[int]]:
     return ms, [int(r) for r in rows]
 
 
+# ten wheel steps 40 ms apart over the map's middle (a brisk spin of a wheel, which the webdriver's
+# own steps, each a round trip, are not); wait until 600 ms after the last step and two frames:
+# [milliseconds in all, longest main-thread task]
+_SPIN_JS = """
+const done = arguments[arguments.length - 1];
+const v = Bokeh.index.get_one(Bokeh.documents[0].get_model_by_name('map'));
+const el = v.canvas_view.events_el; const r = el.getBoundingClientRect();
+const at = {clientX: r.left + r.width / 2, clientY: r.top + r.height / 2, deltaY: -100,
+            deltaMode: 0, bubbles: true, cancelable: true, composed: true};
+const long = []; const obs = new PerformanceObserver((l) => {
+  for (const e of l.getEntries()) long.push(e.duration); });
+obs.observe({type: 'longtask'});
+const t0 = performance.now(); let k = 0;
+const step = () => {
+  el.dispatchEvent(new WheelEvent('wheel', at)); k += 1;
+  if (k < 10) setTimeout(step, 40);
+  else setTimeout(() => requestAnimationFrame(() => requestAnimationFrame(() => {
+    obs.disconnect(); done([performance.now() - t0, Math.max(0, ...long)]); })), 600);
+};
+step();
+"""
+
+
 def measure(url: str, n: int, shot: Path, seed: int) -> dict:
     """Open the page, pick, confirm three picks with the key, step through the review queue, probe
     the page while proposals refresh."""
@@ -322,9 +345,12 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
             raise RuntimeError("a confirm did not recolour its windows within 30 s")
         # while the last confirm's proposals are recomputed in the background:
         zoom = wheel_zoom(d)
-        d.execute_script(
-            "const m = Bokeh.documents[0].get_model_by_name('map');"
-            "Bokeh.index.get_one(m).reset_range();")          # back from the zoom
+        reset = ("const m = Bokeh.documents[0].get_model_by_name('map');"
+                 "Bokeh.index.get_one(m).reset_range();")           # back from the zoom
+        d.execute_script(reset)
+        time.sleep(1.0)
+        spin = d.execute_async_script(_SPIN_JS)
+        d.execute_script(reset)
         trips = [click_trip(d, int(r)) for r in rng.choice(n, 5, replace=False)]
         if min(trips) < 0:
             raise RuntimeError("a pick did not come back from the server within 30 s")
@@ -333,7 +359,7 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
         time.sleep(1.0)
         ARTIFACTS.mkdir(exist_ok=True)
         d.save_screenshot(str(shot))
-        return {"ready": ready_ms, "confirm": confirm, "trips": trips, "zoom": zoom,
+        return {"ready": ready_ms, "confirm": confirm, "trips": trips, "zoom": zoom, "spin": spin,
                 "picks": picks, "steps": steps,
                 "busy": "background" in progress, "url": d.current_url,
                 "backend": "WebGL" if "drawn with WebGL" in header else "canvas"}
@@ -468,7 +494,9 @@ def run(n: int, folder: Path, webgl: bool) -> None:
             print("    review queue step (S): "
                   + ", ".join(f"{c / 1000:.2f}" for c in m["steps"]) + " s   (target <= 0.3 s)")
             print(f"    zoom, 10 wheel steps over the map: {m['zoom'][0]:.2f} s in all, longest "
-                  f"frame {m['zoom'][1]:.2f} s")
+                  f"frame {m['zoom'][1]:.2f} s (webdriver steps); a brisk spin of 10 steps 40 ms "
+                  f"apart: {m['spin'][0] / 1000:.2f} s until 0.6 s after the last, longest frame "
+                  f"{m['spin'][1] / 1000:.2f} s")
             print(f"    page round trip while proposals {'were' if m['busy'] else 'may have been'}"
                   f" recomputing: max {max(m['trips']) / 1000:.2f} s of 5   (never blocked)")
             print(f"    screenshot: {shot}", flush=True)
