@@ -68,17 +68,96 @@ def invariant_names(triads, edges) -> list[str]:
     return names
 
 
-def _unit(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    norm = np.sqrt((v * v).sum(axis=-1))
+def _unit(x: np.ndarray, y: np.ndarray, z: np.ndarray):
+    """Unit vectors of (x, y, z) per row, and where the norm is not zero ((0, 0, 0) there)."""
+    norm = np.sqrt(x * x + y * y + z * z)
     ok = norm > 1e-12
-    return np.where(ok[:, None], v / np.where(ok, norm, 1.0)[:, None], 0.0), ok
+    inv = np.where(ok, 1.0 / np.where(ok, norm, 1.0), 0.0)
+    return (x * inv, y * inv, z * inv), ok
 
 
-def _main_axes(d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Eigenvalues (largest first, >= 0) and main eigenvector of each window's covariance."""
-    cov = np.einsum("nli,nlj->nij", d, d) / d.shape[1]
-    vals, vecs = np.linalg.eigh(cov)
-    return np.maximum(vals[:, ::-1], 0.0), vecs[:, :, -1]
+def sym3_eigen(sxx, syy, szz, sxy, sxz, syz):
+    """Eigenvalues (largest first) and a unit eigenvector of the largest, of symmetric 3 x 3
+    matrices given by their six entries (arrays of one shape), in closed form.
+
+    Eigenvalues: the trigonometric solution of the characteristic cubic (Smith, "Eigenvalues of
+    a symmetric 3 x 3 matrix", Communications of the ACM 4(4), 1961). Eigenvector: the longest
+    cross product of two rows of ``A - l1 I`` (its rows span the plane orthogonal to it); where
+    the largest eigenvalue is double or triple every direction of its eigenspace is one, and
+    the vector returned is one of them.
+    """
+    q = (sxx + syy + szz) / 3.0
+    axx, ayy, azz = sxx - q, syy - q, szz - q
+    off = sxy * sxy + sxz * sxz + syz * syz
+    p2 = (axx * axx + ayy * ayy + azz * azz + 2.0 * off) / 6.0
+    p = np.sqrt(p2)
+    spread = p > 1e-300
+    inv_p = np.where(spread, 1.0 / np.where(spread, p, 1.0), 0.0)
+    bxx, byy, bzz = axx * inv_p, ayy * inv_p, azz * inv_p
+    bxy, bxz, byz = sxy * inv_p, sxz * inv_p, syz * inv_p
+    det = (bxx * (byy * bzz - byz * byz) - bxy * (bxy * bzz - byz * bxz)
+           + bxz * (bxy * byz - byy * bxz))
+    phi = np.arccos(np.clip(det / 2.0, -1.0, 1.0)) / 3.0
+    l1 = q + 2.0 * p * np.cos(phi)
+    l3 = q + 2.0 * p * np.cos(phi + 2.0 * np.pi / 3.0)
+    l2 = 3.0 * q - l1 - l3
+    vals = np.stack([l1, np.clip(l2, l3, l1), l3], axis=-1)
+    # rows of M = A - l1 I
+    mxx, myy, mzz = sxx - l1, syy - l1, szz - l1
+    r0 = (mxx, sxy, sxz)
+    r1 = (sxy, myy, syz)
+    r2 = (sxz, syz, mzz)
+    best = None
+    for u, v in ((r0, r1), (r0, r2), (r1, r2)):
+        c = (u[1] * v[2] - u[2] * v[1], u[2] * v[0] - u[0] * v[2], u[0] * v[1] - u[1] * v[0])
+        n2 = c[0] * c[0] + c[1] * c[1] + c[2] * c[2]
+        if best is None:
+            best, best_n2 = c, n2
+        else:
+            take = n2 > best_n2
+            best = tuple(np.where(take, ci, bi) for ci, bi in zip(c, best))
+            best_n2 = np.where(take, n2, best_n2)
+    # l1 double or triple (the cross products vanish against the entries): M has rank <= 1 and
+    # every direction orthogonal to its largest row is an eigenvector
+    size = np.abs(sxx) + np.abs(syy) + np.abs(szz) + np.abs(sxy) + np.abs(sxz) + np.abs(syz)
+    flat = best_n2 <= 1e-24 * size ** 4
+    vec = np.stack(best, axis=-1)
+    if np.any(flat):
+        rows = np.stack([np.stack(r, axis=-1) for r in (r0, r1, r2)], axis=-2)
+        k = np.argmax((rows * rows).sum(axis=-1), axis=-1)
+        big = np.take_along_axis(rows, k[..., None, None], axis=-2)[..., 0, :]
+        # a direction orthogonal to `big`: its cross product with the axis it is least along
+        e = np.zeros_like(big)
+        np.put_along_axis(e, np.argmin(np.abs(big), axis=-1)[..., None], 1.0, axis=-1)
+        c = np.cross(big / np.maximum(np.abs(big).max(axis=-1, keepdims=True), 1e-300), e)
+        c = np.where((np.abs(big).max(axis=-1) > 0)[..., None], c, e)
+        vec = np.where(flat[..., None], c, vec)
+    # scaled before the norm is taken: the entries of a quiet window's matrix are tiny
+    vec = vec / np.maximum(np.abs(vec).max(axis=-1, keepdims=True), 1e-300)
+    vec = vec / np.sqrt((vec * vec).sum(axis=-1, keepdims=True))
+    return vals, vec
+
+
+def _percentiles(x: np.ndarray, qs) -> list[np.ndarray]:
+    """Percentiles of each row of ``x`` with linear interpolation (``numpy.percentile``'s
+    default), from one sort."""
+    srt = np.sort(x, axis=1)
+    L = x.shape[1]
+    out = []
+    for q in qs:
+        pos = q / 100.0 * (L - 1)
+        i0 = int(math.floor(pos))
+        frac = pos - i0
+        v = srt[:, i0]
+        if frac > 0:
+            v = v + frac * (srt[:, min(i0 + 1, L - 1)] - v)
+        out.append(v)
+    return out
+
+
+def _dot(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Sum of products over the last axis."""
+    return np.einsum("...l,...l->...", a, b)
 
 
 def invariant_features(windows: dict[tuple[str, str], np.ndarray], triads, rate: float,
@@ -86,51 +165,63 @@ def invariant_features(windows: dict[tuple[str, str], np.ndarray], triads, rate:
     """Orientation-free features (see the module docstring) of the windows of each triad.
 
     ``windows[(site, kind)]`` is (n_windows, length, 3) float; returns float32
-    (n_windows, len(invariant_names(triads, edges))).
+    (n_windows, len(invariant_names(triads, edges))). Computed on one (n_windows, length) array
+    per axis, every window at once.
     """
-    sites_acc = {site: windows[(site, kind)] for site, kind, _ in triads if kind == "acc"}
+    def axes(arr):
+        arr = np.asarray(arr)
+        return [np.ascontiguousarray(arr[..., i], dtype=np.float64) for i in range(3)]
+
+    comps = {key: axes(windows[key[:2]]) for key in triads}
+    means = {key: [c.mean(axis=1) for c in comps[key]] for key in triads}
+    acc_of = {site: (site, kind, idx) for site, kind, idx in triads if kind == "acc"}
     cols = []
-    for site, kind, _ in triads:
-        a = np.asarray(windows[(site, kind)], dtype=np.float64)
-        n, L, _ = a.shape
-        norm = np.sqrt((a * a).sum(axis=-1))
-        cols += list(np.percentile(norm, (10, 50, 90), axis=1))
-        m = a.mean(axis=1)
-        d = a - m[:, None, :]
-        dn = np.sqrt((d * d).sum(axis=-1))
+    for key in triads:
+        site, kind, _ = key
+        ax, ay, az = comps[key]
+        n, L = ax.shape
+        inv_l = 1.0 / L
+        norm = np.sqrt(ax * ax + ay * ay + az * az)
+        cols += _percentiles(norm, (10, 50, 90))
+        mx, my, mz = means[key]
+        dx, dy, dz = ax - mx[:, None], ay - my[:, None], az - mz[:, None]
+        dn = np.sqrt(dx * dx + dy * dy + dz * dz)
         cols += [dn.mean(axis=1), dn.std(axis=1)]
-        vals, main = _main_axes(d)
+        vals, main = sym3_eigen(_dot(dx, dx) * inv_l, _dot(dy, dy) * inv_l, _dot(dz, dz) * inv_l,
+                                _dot(dx, dy) * inv_l, _dot(dx, dz) * inv_l, _dot(dy, dz) * inv_l)
+        vals = np.maximum(vals, 0.0)
         cols += [np.sqrt(vals[:, 0]), np.sqrt(vals[:, 1]), np.sqrt(vals[:, 2])]
         total = vals.sum(axis=1)
         cols.append(np.where(total > 1e-12, vals[:, 0] / np.where(total > 1e-12, total, 1.0), 0.0))
-        jerk = np.sqrt((np.diff(a, axis=1) ** 2).sum(axis=-1)).mean(axis=1) * rate
-        cols.append(jerk)
+        jx, jy, jz = np.diff(ax, axis=1), np.diff(ay, axis=1), np.diff(az, axis=1)
+        cols.append(np.sqrt(jx * jx + jy * jy + jz * jz).mean(axis=1) * rate)
         # spectrum of the norm, mean removed
         c = norm - norm.mean(axis=1, keepdims=True)
-        power = np.abs(np.fft.rfft(c, axis=1)) ** 2
-        freqs = np.fft.rfftfreq(L, 1.0 / rate)
-        power, freqs = power[:, 1:], freqs[1:]
+        spec = np.fft.rfft(c, axis=1)[:, 1:]
+        power = spec.real ** 2 + spec.imag ** 2
+        freqs = np.fft.rfftfreq(L, 1.0 / rate)[1:]
         ptot = power.sum(axis=1)
         has = ptot > 1e-20 * max(1.0, float(np.abs(norm).max()) ** 2) * L
-        p = np.where(has[:, None], power / np.where(has, ptot, 1.0)[:, None], 0.0)
+        p = power * np.where(has, 1.0 / np.where(has, ptot, 1.0), 0.0)[:, None]
         for lo, hi in zip(edges[:-1], edges[1:]):
             cols.append(p[:, (freqs >= lo) & (freqs < hi)].sum(axis=1))
-        ent = -(p * np.log(p + 1e-30)).sum(axis=1)
+        ent = -_dot(p, np.log(p + 1e-30))
         cols.append(ent / math.log(freqs.size) if freqs.size > 1 else np.zeros(n))
         if kind == "acc":
-            g, ok = _unit(m)
-            v = np.einsum("nli,ni->nl", d, g)
-            h = d - v[:, :, None] * g[:, None, :]
-            cols += [v.std(axis=1), np.sqrt((h * h).sum(axis=-1).mean(axis=1)),
-                     np.where(ok & (vals[:, 0] > 1e-12), np.abs((main * g).sum(axis=1)), 0.0)]
-        elif site in sites_acc:
-            acc = np.asarray(sites_acc[site], dtype=np.float64)
-            g, ok = _unit(acc.mean(axis=1))
+            (gx, gy, gz), ok = _unit(mx, my, mz)
+            v = dx * gx[:, None] + dy * gy[:, None] + dz * gz[:, None]
+            hx, hy, hz = dx - v * gx[:, None], dy - v * gy[:, None], dz - v * gz[:, None]
+            along = np.abs(main[:, 0] * gx + main[:, 1] * gy + main[:, 2] * gz)
+            cols += [v.std(axis=1), np.sqrt((hx * hx + hy * hy + hz * hz).mean(axis=1)),
+                     np.where(ok & (vals[:, 0] > 1e-12), along, 0.0)]
+        elif site in acc_of:
+            (gx, gy, gz), ok = _unit(*means[acc_of[site]])
             # main rotation axis: the angular rate's own main axis (mean included)
-            rv = np.einsum("nli,nlj->nij", a, a) / L
-            rvals, rvecs = np.linalg.eigh(rv)
-            axis = rvecs[:, :, -1]
-            cols.append(np.where(ok & (rvals[:, -1] > 1e-12), np.abs((axis * g).sum(axis=1)), 0.0))
+            rvals, axis = sym3_eigen(_dot(ax, ax) * inv_l, _dot(ay, ay) * inv_l,
+                                     _dot(az, az) * inv_l, _dot(ax, ay) * inv_l,
+                                     _dot(ax, az) * inv_l, _dot(ay, az) * inv_l)
+            along = np.abs(axis[:, 0] * gx + axis[:, 1] * gy + axis[:, 2] * gz)
+            cols.append(np.where(ok & (rvals[:, 0] > 1e-12), along, 0.0))
     if not cols:
         return np.empty((0, 0), np.float32)
     return np.column_stack(cols).astype(np.float32)

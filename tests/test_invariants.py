@@ -143,3 +143,80 @@ def test_constant_windows_give_zeros_where_undefined():
                  "wrist_acc.inv.sd1", "wrist_gyr.inv.axis_vert"):
         assert (col[name] == 0).all(), name
     assert col["wrist_acc.inv.p50"] == pytest.approx(1.0)
+
+
+def _symmetric(rng, n):
+    """Random symmetric 3 x 3 matrices: general ones, covariances of a few points (rank 1 and 2),
+    multiples of the identity, double eigenvalues, zeros and badly scaled ones."""
+    out = []
+    for _ in range(n):
+        a = rng.standard_normal((3, 3))
+        out.append(a + a.T)
+    for rank in (1, 2):
+        for _ in range(n):
+            b = rng.standard_normal((rank, 3))
+            out.append(b.T @ b)
+    for _ in range(n):
+        q, _ = np.linalg.qr(rng.standard_normal((3, 3)))
+        d = rng.choice([-1.0, 0.0, 2.0, 5.0], size=3)
+        d[1] = d[0] if rng.random() < 0.5 else d[2]  # a double eigenvalue
+        out.append(q @ np.diag(d) @ q.T)
+    out += [np.eye(3) * 3.0, np.zeros((3, 3)), np.diag([1e-9, 1.0, 1e6])]
+    return np.array(out)
+
+
+def test_closed_form_eigen_matches_lapack():
+    """sym3_eigen (Smith, "Eigenvalues of a symmetric 3x3 matrix", Communications of the ACM,
+    1961) against numpy.linalg.eigh (LAPACK; Harris et al., "Array programming with NumPy",
+    2020): eigenvalues to rounding of the matrix's size, and the main eigenvector wherever the
+    largest eigenvalue is single."""
+    from labeler.invariants import sym3_eigen
+
+    A = _symmetric(np.random.default_rng(3), 200)
+    vals, vec = sym3_eigen(A[:, 0, 0], A[:, 1, 1], A[:, 2, 2], A[:, 0, 1], A[:, 0, 2], A[:, 1, 2])
+    ref_vals, ref_vecs = np.linalg.eigh(A)
+    size = np.abs(A).sum(axis=(1, 2)) + 1e-300
+    np.testing.assert_allclose((vals - ref_vals[:, ::-1]) / size[:, None], 0.0, atol=1e-7)
+    assert (np.diff(vals, axis=1) <= 0).all()
+    # A v = l1 v for every matrix (any vector of the eigenspace when l1 is not single)
+    residual = np.einsum("nij,nj->ni", A, vec) - vals[:, :1] * vec
+    np.testing.assert_allclose(np.abs(residual).max(axis=1) / size, 0.0, atol=1e-7)
+    unit = np.linalg.norm(vec, axis=1)
+    zero = size < 1e-200
+    np.testing.assert_allclose(unit[~zero], 1.0, rtol=1e-12)
+    single = (ref_vals[:, 2] - ref_vals[:, 1]) > 1e-6 * size
+    dots = np.abs((vec[single] * ref_vecs[single, :, 2]).sum(axis=1))
+    np.testing.assert_allclose(dots, 1.0, atol=1e-9)
+    assert single.sum() > 300 and (~single).sum() > 50  # both cases were checked
+
+
+def test_main_axes_match_lapack_window_by_window():
+    """The main-axis features against numpy.linalg.eigh per window (Harris et al., "Array
+    programming with NumPy", 2020) on a moving recording of the demo simulator."""
+    from labeler.channels import triads
+    from labeler.features import BAND_EDGES
+    from labeler.invariants import invariant_features, invariant_names
+    from labeler.synthetic import simulate_recording
+
+    from labeler.recordings import recording_from_frame
+    from labeler.windows import cut_windows
+
+    sim = simulate_recording(300, seed=2, person=1)
+    rec = recording_from_frame(sim.frame, where="sim", content_hash="h", name="sim")
+    channels = list(rec.channels[:6])
+    sig = np.asarray(rec.signal[:, :6], dtype=np.float64)
+    tr = triads(channels)
+    starts = cut_windows(rec.valid, 128, 97)
+    assert starts.size > 100
+    wins = {(s, k): np.stack([sig[a:a + 128, list(idx)] for a in starts]) for s, k, idx in tr}
+    X = invariant_features(wins, tr, 50.0, BAND_EDGES)
+    col = {n: X[:, i] for i, n in enumerate(invariant_names(tr, BAND_EDGES))}
+    (site, _, acc_idx), (_, _, gyr_idx) = tr
+    for k, a in enumerate(starts):
+        acc, gyr = sig[a:a + 128, list(acc_idx)], sig[a:a + 128, list(gyr_idx)]
+        g = acc.mean(axis=0) / np.linalg.norm(acc.mean(axis=0))
+        d = acc - acc.mean(axis=0)
+        _, vecs = np.linalg.eigh(d.T @ d / 128)
+        assert col[f"{site}_acc.inv.main_vert"][k] == pytest.approx(abs(vecs[:, -1] @ g), abs=1e-5)
+        _, rvecs = np.linalg.eigh(gyr.T @ gyr / 128)
+        assert col[f"{site}_gyr.inv.axis_vert"][k] == pytest.approx(abs(rvecs[:, -1] @ g), abs=1e-5)
