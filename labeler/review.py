@@ -36,9 +36,9 @@ the draw close to the ranking; the floor gives every candidate a chance.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
-from scipy import sparse
 
 from labeler.errors import InputError
 
@@ -63,6 +63,52 @@ class ReviewQueue:
         return int(self.index.size)
 
 
+class CSRGraph(NamedTuple):
+    """A graph's compressed sparse rows (the arrays of a ``scipy.sparse.csr_matrix``): what the
+    queue reads, without scipy (which a short command then need not import)."""
+
+    indptr: np.ndarray
+    indices: np.ndarray
+    data: np.ndarray
+    shape: tuple[int, int]
+
+
+def _csr(graph):
+    """``graph`` as compressed sparse rows: a :class:`CSRGraph` as it is, anything scipy.sparse
+    takes (a sparse matrix, a dense array) converted."""
+    if isinstance(graph, CSRGraph):
+        return graph
+    from scipy import sparse
+
+    W = sparse.csr_matrix(graph)
+    return CSRGraph(W.indptr, W.indices, W.data, W.shape)
+
+
+def _symmetrized(W: CSRGraph) -> CSRGraph:
+    """The structure of W + W.T (edges in either direction)."""
+    from scipy import sparse
+
+    M = sparse.csr_matrix((W.data, W.indices, W.indptr), shape=W.shape)
+    U = (M + M.T).tocsr()
+    return CSRGraph(U.indptr, U.indices, U.data, U.shape)
+
+
+def _within_hops(U: CSRGraph, i: int, hops: int) -> tuple[np.ndarray, np.ndarray]:
+    """Windows fewer than ``hops`` graph hops from window ``i`` (``i`` included) and their hop
+    counts: a breadth-first walk over U's rows."""
+    seen = {int(i): 0}
+    frontier = np.array([i], dtype=np.int64)
+    for h in range(1, hops):
+        if not frontier.size:
+            break
+        nxt = np.unique(np.concatenate([U.indices[U.indptr[j]:U.indptr[j + 1]] for j in frontier]))
+        nxt = np.array([j for j in nxt.tolist() if j not in seen], dtype=np.int64)
+        for j in nxt.tolist():
+            seen[j] = h
+        frontier = nxt
+    return np.fromiter(seen.keys(), np.int64, len(seen)), np.fromiter(seen.values(), float, len(seen))
+
+
 def _bouts(recording, seq, label, n):
     """Bout id per window: runs of consecutive seq in one recording with one proposed label."""
     if recording is None or seq is None:
@@ -83,9 +129,12 @@ def _bouts(recording, seq, label, n):
     return bout, rec, seq, order
 
 
-def _parts(W, outputs, labeled, w_uncertain, w_unexplored, w_density):
+def _parts(W: CSRGraph, outputs, labeled, w_uncertain, w_unexplored, w_density):
     n = W.shape[0]
-    deg = np.asarray(W.sum(axis=1)).ravel()
+    deg = np.zeros(n)
+    rows = np.flatnonzero(np.diff(W.indptr))
+    if rows.size:
+        deg[rows] = np.add.reduceat(np.asarray(W.data, dtype=np.float64), W.indptr[rows])
     density = deg / deg.max() if deg.max() > 0 else np.ones(n)
     if outputs is None or not labeled.any():
         unc = np.zeros(n)
@@ -102,7 +151,7 @@ def _parts(W, outputs, labeled, w_uncertain, w_unexplored, w_density):
 def review_scores(graph, outputs=None, labeled_mask=None, *, w_uncertain: float = 1.0,
                   w_unexplored: float = 1.0, w_density: float = 0.5):
     """Score and reason (``"uncertain"``/``"unexplored"``) of every window before diversification."""
-    W = sparse.csr_matrix(graph)
+    W = _csr(graph)
     labeled = np.zeros(W.shape[0], bool) if labeled_mask is None else np.asarray(labeled_mask, bool)
     a, b = _parts(W, outputs, labeled, w_uncertain, w_unexplored, w_density)
     return a + b, np.where(a > b, "uncertain", "unexplored")
@@ -113,7 +162,7 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
                  w_unexplored: float = 1.0, w_density: float = 0.5, bout_gap: int = 3,
                  explore_hops: int = 2, suppress_neighbors: bool = True, exclude=None,
                  sample_power: float | None = None, sample_floor: float = 0.1,
-                 random_state=None) -> ReviewQueue:
+                 random_state=None, symmetric: bool = False) -> ReviewQueue:
     """Up to ``n`` windows to show next (see the module docstring).
 
     ``outputs`` is a :class:`labeler.spreading.WindowOutputs` (None before any confirmation);
@@ -123,8 +172,11 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
     (module docstring). Within one queue, the unexplored part of a
     window's score is scaled by ``min(h, explore_hops) / explore_hops``, h its number of graph hops
     to the nearest window already taken, so one list covers several unexplored regions.
+    ``graph``: a scipy sparse matrix or a :class:`CSRGraph`; ``symmetric=True`` says it is
+    symmetric (as :func:`labeler.graph.build_graph` makes it), so its rows already hold the
+    edges of both directions.
     """
-    W = sparse.csr_matrix(graph)
+    W = _csr(graph)
     N = W.shape[0]
     if W.shape != (N, N):
         raise ReviewInputError(f"graph must be square, got shape {W.shape}")
@@ -164,12 +216,9 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
         bout_sorted = bout[tord]
         b_lo = np.searchsorted(bout_sorted, np.arange(bout_sorted[-1] + 1), side="left")
         b_hi = np.searchsorted(bout_sorted, np.arange(bout_sorted[-1] + 1), side="right")
-    from scipy.sparse.csgraph import dijkstra
-
     H = int(explore_hops)
-    # hops ignore direction and weights: one symmetric structure, made once (dijkstra with
-    # directed=False would transpose the whole graph on every call)
-    U = (W + W.T).tocsr() if unexp.any() else W
+    # hops ignore direction and weights: one symmetric structure, made once
+    U = _symmetrized(W) if unexp.any() and not symmetric else W
     hop_factor = np.ones(N)
     suppressed = np.zeros(N, dtype=bool)
     available = candidate.copy()
@@ -203,9 +252,8 @@ def review_queue(graph, outputs=None, labeled_mask=None, recording=None, seq=Non
         if suppress_neighbors:
             suppressed[W.indices[W.indptr[i]:W.indptr[i + 1]]] = True
         if unexp.any():
-            d = dijkstra(U, directed=True, indices=i, unweighted=True, limit=H - 0.5)
-            near = np.isfinite(d)
-            hop_factor[near] = np.minimum(hop_factor[near], d[near] / H)
+            near, d = _within_hops(U, i, H)
+            hop_factor[near] = np.minimum(hop_factor[near], d / H)
         if bouts is not None and bout_gap >= 0:
             # same bout, and the bout_gap windows either side in time
             lo, hi = b_lo[bout[i]], b_hi[bout[i]]

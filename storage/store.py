@@ -240,9 +240,11 @@ DELETE FROM temp.touched;
 """
 
 
-# a row whose window_id belongs to a recording still in the project (not removed)
-_LIVE_WINDOW = ("window_id IN (SELECT w.id FROM windows w JOIN recordings r ON r.id = "
-                "w.recording_id WHERE r.removed_at IS NULL)")
+# a row whose window_id belongs to a recording still in the project (not removed); looked up
+# row by row through the primary keys, so asking about a few labels reads a few windows (an
+# `IN (SELECT ...)` list would gather every window of the project first)
+_LIVE_WINDOW = ("(SELECT r.removed_at IS NULL FROM windows w JOIN recordings r ON r.id = "
+                "w.recording_id WHERE w.id = window_id)")
 
 
 class Store:
@@ -606,6 +608,17 @@ class Store:
         return self.conn.execute(
             "SELECT count(*) FROM windows WHERE recording_id IN (SELECT id FROM recordings "
             "WHERE removed_at IS NULL)").fetchone()[0]
+
+    def window_starts(self, window_ids: Iterable[int]) -> dict[int, float]:
+        """Start (s from the recording's first sample) of each window asked for that exists."""
+        ids = sorted({int(i) for i in window_ids})
+        out: dict[int, float] = {}
+        for at in range(0, len(ids), 500):  # SQLite's bound on host parameters is 999 or more
+            part = ids[at:at + 500]
+            out.update(self.conn.execute(
+                f"SELECT id, start_s FROM windows WHERE id IN ({','.join('?' * len(part))})",
+                part).fetchall())
+        return out
 
     def window_names(self, window_ids: Iterable[int]) -> dict[int, tuple[str, int, bool]]:
         """(recording name, sequence number, recording removed) of each window asked for that

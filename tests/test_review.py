@@ -109,3 +109,44 @@ def test_bad_input():
         review_queue(W, None, np.zeros(2, bool))
     with pytest.raises(ValueError, match="n must be"):
         review_queue(W, None, None, n=-1)
+
+
+def test_hops_match_scipy_breadth_first_distances():
+    """Windows within h hops against scipy.sparse.csgraph.dijkstra with unit weights (Virtanen et
+    al., "SciPy 1.0: fundamental algorithms for scientific computing in Python", 2020)."""
+    from scipy.sparse.csgraph import dijkstra
+
+    from labeler.review import _csr, _within_hops
+
+    rng = np.random.default_rng(4)
+    A = sparse.random(300, 300, density=0.01, random_state=5, format="csr")
+    U = (A + A.T).tocsr()
+    G = _csr(U)
+    for start in rng.choice(300, size=20, replace=False):
+        for hops in (1, 2, 3, 4):
+            near, d = _within_hops(G, int(start), hops)
+            ref = dijkstra(U, directed=True, indices=int(start), unweighted=True, limit=hops - 0.5)
+            want = np.flatnonzero(np.isfinite(ref))
+            order = np.argsort(near)
+            np.testing.assert_array_equal(near[order], want)
+            np.testing.assert_array_equal(d[order], ref[want])
+
+
+def test_queue_on_compressed_rows_equals_the_queue_on_the_sparse_matrix():
+    from labeler.review import CSRGraph
+
+    X, truth, rec, seq = clusters(3)
+    W = build_graph(X, recording=rec, seq=seq)
+    assert abs(W - W.T).max() == 0  # build_graph's graphs are symmetric
+    y = np.full(truth.size, -1)
+    y[[0, 60, 120]] = truth[[0, 60, 120]]
+    o = LabelSpreader().fit(W, y).outputs(y)
+    rows = CSRGraph(W.indptr, W.indices, W.data, W.shape)
+    for state in range(3):
+        a = review_queue(W, o, y >= 0, rec, seq, n=15, sample_power=32.0, sample_floor=0.05,
+                         random_state=state)
+        b = review_queue(rows, o, y >= 0, rec, seq, n=15, sample_power=32.0, sample_floor=0.05,
+                         random_state=state, symmetric=True)
+        np.testing.assert_array_equal(a.index, b.index)
+        np.testing.assert_allclose(a.probability, b.probability, rtol=1e-12)
+        np.testing.assert_array_equal(a.reason, b.reason)

@@ -49,8 +49,8 @@ class Audits:
 
     def open_windows(self) -> np.ndarray:
         """Windows drawn into an audit and not answered yet."""
-        drawn = np.asarray(self.ctx.store.audited_window_ids(), dtype=np.int64)
-        live = drawn[np.isin(drawn, self.catalog.window_arrays()["id"])]
+        named = self.ctx.store.window_names(self.ctx.store.audited_window_ids())
+        live = np.array([w for w, (_, _, removed) in named.items() if not removed], dtype=np.int64)
         return np.setdiff1d(live, self.ledger.labeled_ids())
 
     def draw(self, n: int = 30, *, random_state=None) -> pd.DataFrame:

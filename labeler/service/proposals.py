@@ -19,6 +19,7 @@ import time
 import numpy as np
 
 from labeler.errors import InputError
+from labeler.npzview import npz_arrays
 from labeler.results import ProposalRun
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
@@ -95,6 +96,25 @@ class Proposals:
         self.ctx.cache["graph"] = (W, key)
         return W, key, True
 
+    def queue_graph(self, params: dict):
+        """(graph as :class:`labeler.review.CSRGraph`, key): the stored graph's arrays read
+        without scipy when it is current (a short command then imports no scipy), else
+        :meth:`graph`."""
+        from labeler.review import CSRGraph
+
+        key = self._graph_key(params)
+        cached = self.ctx.cache.get("graph")
+        if cached is None or cached[1] != key:
+            got = self.ctx.store.get_blob(GRAPH_BLOB)
+            if got is not None and got[1].get("key") == key:
+                z = npz_arrays(got[0])
+                if z["format"].item() in (b"csr", "csr"):
+                    return CSRGraph(z["indptr"], z["indices"], z["data"],
+                                    tuple(int(v) for v in z["shape"])), key
+            cached = self.graph(params)[:2]
+        W = cached[0]
+        return CSRGraph(W.indptr, W.indices, W.data, W.shape), key
+
     def graph_params(self) -> dict:
         """Graph parameters of the latest proposal run (the defaults before any run)."""
         run = self.ctx.store.latest_run("proposals")
@@ -131,8 +151,7 @@ class Proposals:
         got = self.ctx.store.get_blob(LATEST_BLOB)
         if got is None:
             return None
-        with np.load(io.BytesIO(got[0]), allow_pickle=False) as z:
-            out = {k: z[k] for k in z.files}
+        out: dict = npz_arrays(got[0])  # read-only views of the blob
         out["meta"] = got[1]
         return out
 
@@ -197,7 +216,9 @@ class Proposals:
                                f"orientation-free features to the power {cw:g}" if cw > 0 else ""),
                   "graph_key": key}
         buf = io.BytesIO()
+        rid, seq = self.catalog.window_sequence()  # kept with the run: the queue reads no windows
         np.savez(buf, window_id=self.catalog.windows()["id"].to_numpy(np.int64),
+                 recording_id=rid, seq=seq,
                  F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
                  label=out.label, confidence=out.confidence.astype(np.float32),
                  margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
@@ -264,17 +285,21 @@ class Proposals:
 
         if int(n) != n or n < 1:
             raise InputError(f"queue length {n} must be a whole number >= 1")
-        w = self.catalog.window_arrays()
-        if w["id"].size < 2:
+        if self.catalog.n_windows() < 2:
             raise InputError(f"{self.ctx.path}: the project has fewer than 2 windows; add "
                              "recordings first")
-        W, key, _ = self.graph(self.graph_params())
-        ids = w["id"]
+        W, key = self.queue_graph(self.graph_params())
+        p = self.latest_arrays()
+        if p is not None and p["meta"].get("graph_key") == key and "seq" in p:
+            # the run's windows are the project's (the key names the recordings and the count)
+            ids, rid, seq = p["window_id"], p["recording_id"], p["seq"]
+        else:
+            ids = self.catalog.window_arrays()["id"]
+            rid, seq = self.catalog.window_sequence()
         labeled = np.isin(ids, self.ledger.labeled_ids())
         # a window confirmed while looked at alone (queue or audit) is not raised as a conflict
         # again: the person has seen its signal and the proposal; bulk picks are where slips hide
         looked = np.isin(ids, self.ledger.labeled_ids(("queue", "audit")))
-        p = self.latest_arrays()
         outputs = None
         if p is not None and p["meta"].get("graph_key") == key and p["window_id"].size == ids.size:
             outputs = WindowOutputs(p["classes"], p["label"], np.zeros((ids.size, 0)),
@@ -283,13 +308,13 @@ class Proposals:
             outputs.conflict = np.where((p["y"] >= 0) & ~looked, p["conflict"], 0.0)
         dis = np.isin(ids, self.ledger.disagreements())
         excl = np.isin(ids, np.empty(0, np.int64) if exclude is None else exclude)
-        rid, seq = self.catalog.window_sequence()
         if random_state is None:  # one draw per state of the labels: asking twice shows one list
             state = f"{None if p is None else p['meta'].get('run_id')}:{self.ctx.store.last_event_id()}"
             random_state = int.from_bytes(hashlib.sha256(state.encode()).digest()[:4], "little")
         seed = random_state
         q = _queue(W, outputs, labeled, rid, seq, n=int(n), disagreement=dis, exclude=excl,
-                   sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR, random_state=seed)
+                   sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR, random_state=seed,
+                   symmetric=True)  # build_graph's graphs are symmetric
         drawn = q.pool > 1  # drawn by chance, not shown first by rule
         if drawn.any() and not self.ctx.store.readonly:
             run = None if p is None else p["meta"].get("run_id")
@@ -298,12 +323,13 @@ class Proposals:
                                                q.pool[drawn]))
         names = self.ledger.class_names()
         recordings = {r["id"]: r["name"] for r in self.ctx.store.recordings()}
+        starts = self.ctx.store.window_starts(ids[q.index].tolist())  # the shown windows only
         rows = []
         for k, i in enumerate(q.index):
             rows.append({
                 "window_id": int(ids[i]), "reason": str(q.reason[k]), "score": float(q.score[k]),
                 "proposed": None if outputs is None else names.get(int(outputs.label[i])),
                 "confidence": float("nan") if outputs is None else float(outputs.confidence[i]),
-                "recording": recordings[int(w["recording_id"][i])],
-                "start_s": float(w["start_s"][i])})
+                "recording": recordings[int(rid[i])],
+                "start_s": float(starts[int(ids[i])])})
         return rows

@@ -1,0 +1,55 @@
+"""Arrays of an ``.npz`` held in memory, read without copying them.
+
+``numpy.load`` copies every array out of the archive; for the large blobs a short command reads
+(the window graph, the latest proposals) the copies cost more than the reading. An archive written
+by ``numpy.savez`` (members stored, not deflated) holds each array's bytes in one piece, so the
+arrays can be read-only views of the archive's bytes. Anything else (deflated members, object
+arrays) goes through ``numpy.load``.
+"""
+
+from __future__ import annotations
+
+import io
+import struct
+import zipfile
+
+import numpy as np
+
+_LOCAL_HEADER = 30  # bytes of a zip member's local header before its name and extra field
+
+
+def npz_arrays(data: bytes) -> dict[str, np.ndarray]:
+    """Every array of the ``.npz`` archive ``data``, by name (read-only views when stored)."""
+    try:
+        return _views(data)
+    except (ValueError, KeyError, struct.error, zipfile.BadZipFile):
+        with np.load(io.BytesIO(data), allow_pickle=False) as z:
+            return {k: z[k] for k in z.files}
+
+
+def _views(data: bytes) -> dict[str, np.ndarray]:
+    whole = memoryview(data)
+    out = {}
+    with zipfile.ZipFile(io.BytesIO(data)) as zf:
+        for info in zf.infolist():
+            if info.compress_type != zipfile.ZIP_STORED or not info.filename.endswith(".npy"):
+                raise ValueError(f"member {info.filename} is not a stored array")
+            at = info.header_offset
+            if data[at:at + 4] != b"PK\x03\x04":
+                raise ValueError("no local header")
+            n_name, n_extra = struct.unpack("<HH", data[at + 26:at + _LOCAL_HEADER])
+            start = at + _LOCAL_HEADER + n_name + n_extra
+            member = whole[start:start + info.file_size]
+            head = io.BytesIO(member[:65536].tobytes())
+            version = np.lib.format.read_magic(head)
+            read = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                    else np.lib.format.read_array_header_2_0)
+            shape, fortran, dtype = read(head)
+            if dtype.hasobject:
+                raise ValueError("object array")
+            count = int(np.prod(shape, dtype=np.int64))
+            if head.tell() + count * dtype.itemsize > info.file_size:
+                raise ValueError("member shorter than its array")
+            a = np.frombuffer(member, dtype=dtype, count=count, offset=head.tell())
+            out[info.filename[:-4]] = a.reshape(shape, order="F" if fortran else "C")
+    return out

@@ -1,0 +1,44 @@
+"""Arrays read out of an in-memory .npz without copies (labeler.npzview), against numpy.load
+(Harris et al., "Array programming with NumPy", 2020) and scipy.sparse.save_npz's archives
+(Virtanen et al., "SciPy 1.0", 2020)."""
+
+import io
+
+import numpy as np
+from scipy import sparse
+
+from labeler.npzview import npz_arrays
+
+
+def _archive(save, **arrays) -> bytes:
+    buf = io.BytesIO()
+    save(buf, **arrays)
+    return buf.getvalue()
+
+
+def test_stored_archive_gives_the_arrays_numpy_load_gives():
+    rng = np.random.default_rng(0)
+    arrays = {"ids": np.arange(1000, dtype=np.int64), "F": rng.random((1000, 7), np.float32),
+              "fortran": np.asfortranarray(rng.random((5, 3))), "scalar": np.float64(2.5),
+              "empty": np.empty((0, 4), np.int32), "text": np.array(b"csr"),
+              "names": np.array(["a", "bc"])}
+    data = _archive(np.savez, **arrays)
+    got = npz_arrays(data)
+    with np.load(io.BytesIO(data), allow_pickle=False) as z:
+        assert set(got) == set(z.files)
+        for k in z.files:
+            assert got[k].dtype == z[k].dtype and got[k].shape == z[k].shape, k
+            np.testing.assert_array_equal(got[k], z[k])
+    assert not got["F"].flags.writeable  # a view of the archive's bytes, not a copy
+
+
+def test_deflated_archives_and_sparse_matrices_read_too():
+    rng = np.random.default_rng(1)
+    a = rng.random((50, 3))
+    np.testing.assert_array_equal(npz_arrays(_archive(np.savez_compressed, a=a))["a"], a)
+    W = sparse.random(40, 40, density=0.1, random_state=2, format="csr")
+    buf = io.BytesIO()
+    sparse.save_npz(buf, W, compressed=False)
+    z = npz_arrays(buf.getvalue())
+    back = sparse.csr_matrix((z["data"], z["indices"], z["indptr"]), shape=tuple(z["shape"]))
+    assert z["format"].item() == b"csr" and abs(back - W).max() == 0
