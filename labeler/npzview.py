@@ -18,11 +18,15 @@ import numpy as np
 _LOCAL_HEADER = 30  # bytes of a zip member's local header before its name and extra field
 
 
+class _NotStored(Exception):
+    """The archive is not one whose arrays can be viewed in place (numpy.load reads it)."""
+
+
 def npz_arrays(data: bytes) -> dict[str, np.ndarray]:
     """Every array of the ``.npz`` archive ``data``, by name (read-only views when stored)."""
     try:
         return _views(data)
-    except (ValueError, KeyError, struct.error, zipfile.BadZipFile):
+    except (_NotStored, ValueError, KeyError, struct.error, zipfile.BadZipFile):
         with np.load(io.BytesIO(data), allow_pickle=False) as z:
             return {k: z[k] for k in z.files}
 
@@ -33,10 +37,10 @@ def _views(data: bytes) -> dict[str, np.ndarray]:
     with zipfile.ZipFile(io.BytesIO(data)) as zf:
         for info in zf.infolist():
             if info.compress_type != zipfile.ZIP_STORED or not info.filename.endswith(".npy"):
-                raise ValueError(f"member {info.filename} is not a stored array")
+                raise _NotStored(f"member {info.filename} is not a stored array")
             at = info.header_offset
             if data[at:at + 4] != b"PK\x03\x04":
-                raise ValueError("no local header")
+                raise _NotStored("no local header")
             n_name, n_extra = struct.unpack("<HH", data[at + 26:at + _LOCAL_HEADER])
             start = at + _LOCAL_HEADER + n_name + n_extra
             member = whole[start:start + info.file_size]
@@ -46,10 +50,10 @@ def _views(data: bytes) -> dict[str, np.ndarray]:
                     else np.lib.format.read_array_header_2_0)
             shape, fortran, dtype = read(head)
             if dtype.hasobject:
-                raise ValueError("object array")
+                raise _NotStored("object array")
             count = int(np.prod(shape, dtype=np.int64))
             if head.tell() + count * dtype.itemsize > info.file_size:
-                raise ValueError("member shorter than its array")
+                raise _NotStored("member shorter than its array")
             a = np.frombuffer(member, dtype=dtype, count=count, offset=head.tell())
             out[info.filename[:-4]] = a.reshape(shape, order="F" if fortran else "C")
     return out
