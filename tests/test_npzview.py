@@ -42,3 +42,22 @@ def test_deflated_archives_and_sparse_matrices_read_too():
     z = npz_arrays(buf.getvalue())
     back = sparse.csr_matrix((z["data"], z["indices"], z["indptr"]), shape=tuple(z["shape"]))
     assert z["format"].item() == b"csr" and abs(back - W).max() == 0
+
+
+def test_members_at_any_offset_come_back_aligned_and_equal():
+    import zipfile
+
+    a = np.arange(100, dtype=np.float64) / 7
+    npy = io.BytesIO()
+    np.lib.format.write_array(npy, a)
+    misaligned = 0
+    for pad in range(1, 9):  # names of several lengths put the member's bytes at several offsets
+        buf = io.BytesIO()
+        with zipfile.ZipFile(buf, "w", zipfile.ZIP_STORED) as zf:
+            zf.writestr("x" * pad + ".npy", npy.getvalue())
+        data = buf.getvalue()
+        got = npz_arrays(data)["x" * pad]
+        assert got.flags.aligned and not got.flags.writeable
+        np.testing.assert_array_equal(got, a)
+        misaligned += data.find(npy.getvalue()) % 8 != 0
+    assert misaligned  # the copying branch was taken
