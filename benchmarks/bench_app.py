@@ -136,31 +136,36 @@ const tick = () => {
 tick();
 """
 
-# a round trip through the server while it recomputes proposals: after a click on a window, wait
-# for the signal view's title (it names the window) to change; milliseconds from the pointer up
+# a round trip through the server while it recomputes proposals: after a click on a window (with
+# nothing picked before), wait for the side panel to name the pick; milliseconds from the pointer up
 _ROUNDTRIP_JS = """
-const done = arguments[arguments.length - 1]; const before = arguments[0];
-const sel = Bokeh.documents[0].get_model_by_name('signal_title'); const t0 = performance.now();
+const done = arguments[arguments.length - 1];
+const sel = Bokeh.documents[0].get_model_by_name('selection'); const t0 = performance.now();
 const tick = () => {
   const up = window.__t_up;
-  if (up != null && sel.text !== before) done(performance.now() - up);
-  else if (performance.now() - t0 > 30000) done(-1); else setTimeout(tick, 2); };
+  if (up != null && sel.text.includes('picked on the map')) done(performance.now() - up);
+  else if (performance.now() - t0 > 60000) done(-1); else setTimeout(tick, 2); };
 tick();
 """
 
 
 def click_trip(d, row: int) -> float:
-    """Click where window ``row`` is drawn; milliseconds until the signal view names a window."""
+    """Click where window ``row`` is drawn, nothing picked before; milliseconds until the side
+    panel names the pick."""
     from selenium.webdriver.common.actions.action_builder import ActionBuilder
 
     x, y = d.execute_script(_WHERE_JS, row)[:2]
-    before = d.execute_script(
-        "return Bokeh.documents[0].get_model_by_name('signal_title').text")
+    d.execute_script("document.dispatchEvent(new KeyboardEvent('keydown', {key: 'Escape', "
+                     "bubbles: true}));")
+    sel = "return Bokeh.documents[0].get_model_by_name('selection').text"
+    end = time.monotonic() + 60
+    while "picked on the map" in d.execute_script(sel) and time.monotonic() < end:
+        time.sleep(0.05)
     d.execute_script(_ARM_JS)
     ab = ActionBuilder(d, duration=20)
     ab.pointer_action.move_to_location(int(x), int(y)).click()
     ab.perform()
-    return d.execute_async_script(_ROUNDTRIP_JS, before)
+    return d.execute_async_script(_ROUNDTRIP_JS)
 
 
 def make_project(folder: Path, n_windows: int) -> Path:
@@ -353,7 +358,7 @@ def measure(url: str, n: int, shot: Path, seed: int) -> dict:
         d.execute_script(reset)
         trips = [click_trip(d, int(r)) for r in rng.choice(n, 5, replace=False)]
         if min(trips) < 0:
-            raise RuntimeError("a pick did not come back from the server within 30 s")
+            raise RuntimeError("a pick did not come back from the server within 60 s")
         progress = d.execute_script(
             "return Bokeh.documents[0].get_model_by_name('progress').text")
         time.sleep(1.0)

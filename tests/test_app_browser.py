@@ -460,8 +460,8 @@ def _drag(driver, x0, y0, x1, y1):
 def test_a_dragged_box_picks_its_windows_and_a_key_recolours_them_at_once(driver, served):
     """A box dragged on the map picks exactly the windows drawn inside it (counted here from the
     page's own coordinates and scales), rings them and names them; a class key draws them in the
-    class's colour at once, before the map's source takes the change after a pause; the points
-    are not repainted for the pick (no selection of the map's source)."""
+    class's colour at once; the map's source takes the change with the new proposals, after a
+    pause; the points are not repainted for the pick (no selection of the map's source)."""
     import numpy as np
 
     srv, path = served
@@ -502,8 +502,8 @@ def test_a_dragged_box_picks_its_windows_and_a_key_recolours_them_at_once(driver
         "const d = Bokeh.documents[0]; const rows = arguments[0];"
         "const cf = d.get_model_by_name('map_source').data.cf;"
         "return d.get_model_by_name('fresh_source').get_length() === 0"
-        " && rows.every((k) => cf[k] === arguments[1]);", sorted(want), code) or None, 20,
-        "the map's source to take the change")
+        " && rows.every((k) => cf[k] === arguments[1]);", sorted(want), code) or None, 90,
+        "the map's source to take the change with the new proposals")
     ARTIFACTS.mkdir(exist_ok=True)
     driver.save_screenshot(str(ARTIFACTS / "app_box_picked.png"))
     _key(driver, "u")

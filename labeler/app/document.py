@@ -402,7 +402,8 @@ class LabelerApp(Actions):
 
     def _labeled(self, rows: np.ndarray) -> None:
         """Windows just labeled here (a confirm, an answer): drawn at once on the map's overlay
-        (only they repaint), sent to the map's source once the annotator pauses."""
+        (only they repaint); the map's source takes them with the new proposals the label change
+        asks for, once the annotator pauses (one repaint of every point for both)."""
         rows = np.asarray(rows, dtype=np.int64)
         if rows.size == 0:
             return
@@ -413,7 +414,6 @@ class LabelerApp(Actions):
             return
         self._fresh = np.union1d(self._fresh, rows)
         self.map.show_fresh(self._fresh)
-        self._flush_when_idle()
 
     def _refresh_selection(self) -> None:
         rows, src = self.target_rows, self.target_source
@@ -536,8 +536,10 @@ class LabelerApp(Actions):
             return
         if isinstance(got, Exception):
             self.progress_text = words.proposals_failed(str(got))
+            self._send_when_idle(np.zeros(0, np.int64))      # what waits for them goes alone
         elif got is None:
             self.progress_text = words.no_proposals()
+            self._send_when_idle(np.zeros(0, np.int64))
         elif isinstance(got, Proposals):
             changed = self.state.set_proposals(got)
             self._send_when_idle(changed)
