@@ -6,8 +6,9 @@ Run:  python benchmarks/bench_proposals.py [--part confirmations|start|annotator
 confirmations: confirmations to 90 / 95 % for the review queue (drawn as Project draws it) and
     random order on the 8-hour recording, the crew of six (labeler.crew), the demo shift,
     BasicMotions and digits, mean of --seeds seeds (a new simulated shift per seed; a new order and
-    queue draw for the open data sets), for "before" (spreading on feature set 1) and "project"
-    (what Project proposes now). Code in benchmarks/carry_over.py.
+    queue draw for the open data sets), for "no smoothing" (the spreading times the classifier,
+    the default before smoothing along time) and "project" (what Project proposes now). Code in
+    benchmarks/carry_over.py.
 start: one bout of each class confirmed on the first recording (what a user imports first), then
     the accuracy of the proposals on the windows not confirmed, at that start and after 25 / 50 /
     100 answers from the review queue; same data sets and methods.
@@ -232,7 +233,7 @@ def carry_over(X, t, rec):
     return inside, float(np.mean(np.concatenate(other))), float(np.mean(np.concatenate(same)))
 
 
-def part_confirmations(quick: bool, seeds: int = 3, methods=("before", "project")):
+def part_confirmations(quick: bool, seeds: int = 3, methods=("no smoothing", "project")):
     """Confirmations to 90 / 95 % for the review queue and random order, per data set and method,
     averaged over seeds (benchmarks/carry_over.py)."""
     co = _carry()
@@ -253,7 +254,7 @@ def part_confirmations(quick: bool, seeds: int = 3, methods=("before", "project"
           "crew; random order needs >= 2x the queue's confirmations")
 
 
-def part_start(quick: bool, seeds: int = 3, methods=("before", "project")):
+def part_start(quick: bool, seeds: int = 3, methods=("no smoothing", "project")):
     """The first-bouts start: one bout per class from the first recording, then the queue."""
     co = _carry()
     print(f"== first bouts of each class from one recording, then the review queue: accuracy of "

@@ -222,28 +222,27 @@ class Proposing:
 
 
 def methods():
-    """Named proposal methods. "before": spreading on feature set 1 (the earlier default);
-    "project": what Project does now."""
+    """Named proposal methods. "before": spreading on feature set 1 (the default before the
+    classifier); "no smoothing": the spreading times the classifier (the default before smoothing
+    along time); "project": what Project does now; the rest: "project" with one change."""
     from functools import partial
 
     from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT as W
 
+    project = partial(Proposing, classifier_weight=W, graph_features="1")
     out = {"before": partial(Spreading, features="1"),
-           "spread set2": Spreading,
-           "project": partial(Proposing, classifier_weight=W, graph_features="1")}
-    for w in (0.2, 0.3, 0.5):
-        out[f"clf {w:g}"] = partial(Proposing, classifier_weight=w)
-        out[f"clf {w:g} tw2"] = partial(Proposing, classifier_weight=w, temporal_weight=2.0)
-        out[f"clf {w:g} allcols"] = partial(Proposing, classifier_weight=w, all_columns=True)
-        out[f"clf {w:g} set1"] = partial(Proposing, classifier_weight=w, features="1")
-    for w in (0.2, 0.3):
-        out[f"g1 clf {w:g}"] = partial(Proposing, classifier_weight=w, graph_features="1")
-    out["clf 0.3 stay.9"] = partial(Proposing, classifier_weight=0.3, stay=0.9)
-    for u in ("experts", "disagree"):
-        out[f"clf 0.3 {u}"] = partial(Proposing, classifier_weight=0.3, uncertainty=u)
-        out[f"g1 clf 0.3 {u}"] = partial(Proposing, classifier_weight=0.3, uncertainty=u,
-                                         graph_features="1")
-    out["spread tw2"] = partial(Spreading, temporal_weight=2.0)
+           "no smoothing": partial(project, stay=0.0),
+           "project": project}
+    for st in (0.7, 0.9):
+        out[f"stay {st:g}"] = partial(project, stay=st)
+    out["temper 0.5"] = partial(project, temper=0.5)
+    out["stay .9 T.5"] = partial(project, stay=0.9, temper=0.5)
+    out["temporal 2"] = partial(project, temporal_weight=2.0)
+    out["margin smooth"] = partial(project, uncertainty="smoothed")
+    for w in (0.2, 0.5):
+        out[f"clf {w:g}"] = partial(project, classifier_weight=w)
+    out["graph set2"] = partial(project, graph_features="2")
+    out["clf allcols"] = partial(project, all_columns=True)
     return out
 
 

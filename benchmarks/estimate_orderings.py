@@ -46,7 +46,7 @@ from labeler.estimate import (audit_accuracy, audit_held_out, draw_stratified_au
 from labeler.graph import build_graph
 from labeler.review import review_queue
 from labeler.service.proposals import QUEUE_FLOOR, QUEUE_POWER
-from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, Proposer
+from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, DEFAULT_STAY, Proposer
 from labeler.spreading import LabelSpreader
 from sklearn.base import clone
 
@@ -173,7 +173,8 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
     (``audit_size`` windows drawn within confidence bands; 0: never) and the figure is read
     again; ``audited``: an audit has been answered by then (its answers are not counted in
     ``confirmed``). ``proposer``: "project" (what Project proposes: the spreading times a
-    logistic regression on the orientation-free features) or "spreading" (the spreading alone)."""
+    logistic regression on the orientation-free features, smoothed along time) or "spreading"
+    (the spreading alone)."""
     W, t, rec, seq, xy = data["W"], data["t"], data["rec"], data["seq"], data["xy"]
     n = t.size
     rng = np.random.default_rng(seed)
@@ -181,8 +182,8 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
     weight = np.ones(n)
     batch = np.full(n, -1)  # the round (one user action) that confirmed each window
     if proposer == "project":
-        sp = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, stay=0.0, warm_start=True,
-                      classifier_features=data["Zc"])
+        sp = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, stay=DEFAULT_STAY,
+                      warm_start=True, classifier_features=data["Zc"], recording=rec, seq=seq)
     elif proposer == "spreading":
         sp = LabelSpreader(warm_start=True)
     else:

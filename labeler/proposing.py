@@ -25,7 +25,8 @@ recognition", 1989), with scaling per step.
 What Project proposes (:meth:`labeler.project.Project.refresh_proposals`): the graph built from
 every feature but the orientation-free extras of feature set 2, times the classifier with weight
 :data:`DEFAULT_CLASSIFIER_WEIGHT` on the orientation-free features alone
-(:func:`classifier_view`), no smoothing. The classifier on features that do not change when a
+(:func:`classifier_view`), smoothed along time with :data:`DEFAULT_STAY` and
+:data:`DEFAULT_TEMPER`. The classifier on features that do not change when a
 sensor turns is what carries a few confirmed bouts of one person to the others; the graph, with
 the direction of gravity in each sensor, tells postures apart within a person. Measured with
 ``benchmarks/bench_proposals.py --part tune-proposals`` / ``benchmarks/carry_over.py`` (mean of 3
@@ -55,15 +56,21 @@ from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _chec
 #: the graph left the orientation-free extras out. An earlier classifier on every column (not only
 #: the orientation-free ones) made the crew worse.
 DEFAULT_CLASSIFIER_WEIGHT = 0.3
-#: Probability that a window's activity goes on in the next window (0 = no smoothing). Off by
-#: default: with smoothing (stay 0.9 or 0.97) the review queue did not reach 95 % within 150
-#: confirmations on 2 h of the simulator (70 without; random order 65 against 85): the smoothed
-#: distributions are sure of whole bouts, so the queue's margins stop pointing at the errors.
-DEFAULT_STAY = 0.0
+#: Probability that a window's activity goes on in the next window (0 = no smoothing). Measured
+#: with the review queue and an oracle from nothing confirmed (benchmarks/carry_over.py, quick
+#: sizes, mean of 3 seeds), confirmations to 95 % queue / random: the crew of six 60 / 183 without
+#: smoothing, 45 / 103 at stay 0.8 with the full emissions (temper 1), 50 / 120 at 0.9 with
+#: temper 0.5; 2 h of the simulator 33 / 90 without, 33 / 90 at 0.8 (temper 1), 47 / >128 at 0.9
+#: (temper 0.5); the demo shift 28 / 92 without, 27 / 82 at 0.8 (temper 1), 28 / 98 at 0.9 (temper
+#: 0.5). BasicMotions and digits have no time order (nothing to smooth). Stronger smoothing makes
+#: the distributions sure of whole bouts, short activities (transitions) are smoothed away and the
+#: queue's margins stop pointing at the errors.
+DEFAULT_STAY = 0.8
 #: Inverse regularization of the logistic regression.
 DEFAULT_C = 1.0
-#: Power of the emissions in the smoothing (windows overlapping by half share their samples).
-DEFAULT_TEMPER = 0.5
+#: Power of the emissions in the smoothing (windows overlapping by half share their samples, so
+#: a power below 1 counts their evidence once); 1 measured better than 0.5 (see DEFAULT_STAY).
+DEFAULT_TEMPER = 1.0
 #: The classifier's principal axes (as the graph's) and the fewest orientation-free columns it
 #: takes alone (fewer: every column).
 CLASSIFIER_COMPONENTS = 30
@@ -249,6 +256,8 @@ class Proposer(BaseEstimator):
     warm_start : spreading starts from the previous fit's label mass.
     classifier_features : (n_windows, d) array or None; the classifier's features when ``fit``
         is given none (so that a clone fits like the original, e.g. in held-out folds).
+    recording, seq : per-window recording and sequence number when ``fit`` is given none (as
+        ``classifier_features``: a clone smooths along time like the original).
 
     Attributes
     ----------
@@ -261,7 +270,7 @@ class Proposer(BaseEstimator):
     def __init__(self, alpha: float = DEFAULT_ALPHA, *, classifier_weight: float =
                  DEFAULT_CLASSIFIER_WEIGHT, stay: float = DEFAULT_STAY,
                  temper: float = DEFAULT_TEMPER, uncertainty: str = "both", C: float = DEFAULT_C,
-                 warm_start: bool = True, classifier_features=None):
+                 warm_start: bool = True, classifier_features=None, recording=None, seq=None):
         self.alpha = alpha
         self.classifier_weight = classifier_weight
         self.stay = stay
@@ -270,6 +279,8 @@ class Proposer(BaseEstimator):
         self.C = C
         self.warm_start = warm_start
         self.classifier_features = classifier_features
+        self.recording = recording
+        self.seq = seq
 
     def fit(self, graph, y, *, features=None, recording=None, seq=None, init=None,
             init_classes=None):
@@ -292,6 +303,8 @@ class Proposer(BaseEstimator):
         y = _check_y(y)
         if features is None:
             features = self.classifier_features
+        if recording is None and seq is None:
+            recording, seq = self.recording, self.seq
         sp = getattr(self, "spreader_", None)
         if sp is None or not self.warm_start or sp.alpha != self.alpha:
             sp = LabelSpreader(alpha=self.alpha, warm_start=self.warm_start)

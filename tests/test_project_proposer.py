@@ -1,11 +1,13 @@
-"""What Project proposes: label spreading times a logistic regression on orientation-free features.
+"""What Project proposes: label spreading times a logistic regression on orientation-free features,
+smoothed along time.
 
 Outside references: the closed form of label spreading, F* = (1 - alpha) (I - alpha S)^-1 Y with
 S = D^-1/2 W D^-1/2 (Zhou et al., "Learning with local and global consistency", 2004), solved
 here with scipy's sparse direct solver; scikit-learn's StandardScaler, PCA and LogisticRegression
 (Pedregosa et al., "Scikit-learn: machine learning in Python", 2011) on the same columns; an L2
 penalized logistic regression does not change under a rotation of its inputs, so the principal
-axes' signs do not matter (common practice, no source).
+axes' signs do not matter (common practice, no source); the smoothing against the textbook
+forward-backward recursions (Rabiner 1989), run window by window.
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ from sklearn.preprocessing import StandardScaler
 
 from labeler.features import FEATURE_SET_VERSION
 from labeler.project import Project
-from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT
+from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, DEFAULT_STAY, DEFAULT_TEMPER
 from labeler.recordings import recording_from_frame
 from labeler.synthetic import simulate_recording, window_truth
 
@@ -57,7 +59,7 @@ def _confirm(p, ids, truth):
         p.confirm(ids[t == c], c, create_class=True)
 
 
-def _reference(p, alpha, weight):
+def _reference(p, alpha, weight, stay):
     """Label, confidence and distribution of every window from the outside references."""
     X, names = p.features()
     got = p.store.get_blob("proposals/graph")
@@ -87,8 +89,44 @@ def _reference(p, alpha, weight):
     P /= P.sum(axis=1, keepdims=True)
     P[lab] = 0.0
     P[np.flatnonzero(lab), np.searchsorted(classes, codes[lab])] = 1.0
+    if stay > 0:
+        rid, seq = p._catalog.window_sequence()
+        P = _forward_backward(np.maximum(P, 1e-12) ** DEFAULT_TEMPER, rid, seq, stay)
     label = classes[P.argmax(axis=1)]
     return label, P.max(axis=1)
+
+
+def _forward_backward(P, rid, seq, stay):
+    """Posterior of each window's class given its recording's emissions ``P``: the scaled
+    forward-backward recursions of Rabiner ("A tutorial on hidden Markov models and selected
+    applications in speech recognition", 1989, eqs. 19-27 and section V.A), one window at a time;
+    the chain stays in its class with probability ``stay`` and moves to each other class with an
+    equal share of the rest, starts uniform, and starts afresh after a gap (seq jumps by more
+    than 1)."""
+    n, k = P.shape
+    M = np.full((k, k), (1 - stay) / (k - 1))
+    np.fill_diagonal(M, stay)
+    out = np.empty_like(P)
+    for r in np.unique(rid):
+        idx = np.flatnonzero(rid == r)
+        idx = idx[np.argsort(seq[idx])]
+        E = P[idx]
+        m = idx.size
+        cont = np.r_[False, np.diff(seq[idx]) == 1]
+        alpha = np.empty((m, k))
+        a = E[0] / k
+        alpha[0] = a / a.sum()
+        for t in range(1, m):
+            prior = alpha[t - 1] @ M if cont[t] else np.full(k, 1 / k)
+            a = prior * E[t]
+            alpha[t] = a / a.sum()
+        beta = np.ones((m, k))
+        for t in range(m - 2, -1, -1):
+            b = M @ (E[t + 1] * beta[t + 1]) if cont[t + 1] else np.ones(k)
+            beta[t] = b / b.sum()
+        g = alpha * beta
+        out[idx] = g / g.sum(axis=1, keepdims=True)
+    return out
 
 
 def test_warm_refresh_equals_the_closed_forms_of_spreading_and_logistic_regression(tmp_path, sims):
@@ -115,7 +153,8 @@ def test_warm_refresh_equals_the_closed_forms_of_spreading_and_logistic_regressi
         again = build_graph(X[:, :294], recording=rid, seq=seq, n_neighbors=10,
                             temporal_weight=params["temporal_weight"], pca_components=30)
         assert abs(stored - again).max() < 1e-9
-        label, conf = _reference(p, params["alpha"], DEFAULT_CLASSIFIER_WEIGHT)
+        assert params["stay"] == DEFAULT_STAY
+        label, conf = _reference(p, params["alpha"], DEFAULT_CLASSIFIER_WEIGHT, DEFAULT_STAY)
         props = p.proposals()
         assert (props["class_id"].to_numpy() == label).mean() > 0.995
         # 30 principal axes of about 100 columns: where the 30th and 31st variances lie close,

@@ -190,7 +190,8 @@ class Audits:
         in_audit = np.isin(ids, audit["window_id"].to_numpy(np.int64)) & (y >= 0)
         # the proposer as the run used it: the held-out folds score the proposals it stored
         spreader = self.proposals.proposer(float(run["params"]["alpha"]),
-                                           float(run["params"].get("classifier_weight", 0.0)), key)
+                                           float(run["params"].get("classifier_weight", 0.0)), key,
+                                           float(run["params"].get("stay", 0.0)))
         cv, cal = proposal_accuracy(
             W, y, conf, recording=rid, seq=seq, weights=weights, batch=batch, spreader=spreader,
             init=p["F"].astype(np.float64), init_classes=p["classes"], classes=codes,

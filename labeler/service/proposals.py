@@ -136,14 +136,19 @@ class Proposals:
         self.ctx.cache["classifier_features"] = (Z, key)
         return Z
 
-    def proposer(self, alpha: float, classifier_weight: float, key: str):
+    def proposer(self, alpha: float, classifier_weight: float, key: str, stay: float = 0.0):
         """An unfitted :class:`labeler.proposing.Proposer` as a run with these settings uses it
-        (also what the accuracy estimate refits in its held-out folds)."""
+        (also what the accuracy estimate refits in its held-out folds): the classifier's
+        features and, when ``stay`` > 0, each window's recording and sequence go with it, so a
+        clone fits like the run."""
         from labeler.proposing import Proposer
 
         Z = self.classifier_features(key) if classifier_weight > 0 else None
-        return Proposer(alpha=alpha, classifier_weight=classifier_weight, stay=0.0,
-                        classifier_features=Z)
+        rid = seq = None
+        if stay > 0:
+            rid, seq = self.catalog.window_sequence()
+        return Proposer(alpha=alpha, classifier_weight=classifier_weight, stay=stay,
+                        classifier_features=Z, recording=rid, seq=seq)
 
     # ------------------------------------------------------------------ runs
     def latest_arrays(self) -> dict | None:
@@ -163,7 +168,7 @@ class Proposals:
         Starts from the previous run's scores (warm start) when the graph is unchanged.
         """
         from labeler.graph import DEFAULT_TEMPORAL_WEIGHT
-        from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT
+        from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, DEFAULT_STAY
         from labeler.spreading import DEFAULT_ALPHA
 
         t0 = time.perf_counter()
@@ -184,7 +189,8 @@ class Proposals:
         if progress:
             progress(0.6, "spreading labels")
         cw = float(DEFAULT_CLASSIFIER_WEIGHT)
-        proposer = self.proposer(alpha, cw, key)
+        stay = float(DEFAULT_STAY)
+        proposer = self.proposer(alpha, cw, key, stay)
         prev = self.latest_arrays()
         same = prev is not None and prev["meta"].get("graph_key") == key \
             and prev["meta"].get("alpha") == alpha
@@ -209,11 +215,14 @@ class Proposals:
                    "iterations": int(spreader.n_iter_), "warm_start": init is not None,
                    "graph_rebuilt": bool(rebuilt), "graph_edges": int(W.nnz // 2)}
         params = {"alpha": alpha, **gparams, "solver": spreader.solver, "tol": spreader.tol,
-                  "classifier_weight": cw,
+                  "classifier_weight": cw, "stay": stay,
                   "method": "label spreading (Zhou et al. 2004) on a kNN graph with local "
                             "scaling (Zelnik-Manor & Perona 2004)"
                             + (f", times a logistic regression on the confirmed windows' "
-                               f"orientation-free features to the power {cw:g}" if cw > 0 else ""),
+                               f"orientation-free features to the power {cw:g}" if cw > 0 else "")
+                            + (f", smoothed along each recording by a forward-backward pass "
+                               f"(Rabiner 1989) with stay probability {stay:g}" if stay > 0
+                               else ""),
                   "graph_key": key}
         buf = io.BytesIO()
         rid, seq = self.catalog.window_sequence()  # kept with the run: the queue reads no windows
