@@ -150,3 +150,19 @@ def test_answer_through_the_cli(template, tmp_path):
         assert list(p.answered()) == [3, 4]
         h = p.history()
         assert list(h["action"]) == ["answer", "answer", "answer", "undo"]
+
+
+def test_answered_windows_are_not_drawn_into_an_audit_nor_smoothed_over_as_confirmed(project):
+    p = project
+    p.confirm([1, 2], "sit")
+    p.confirm([20, 21], "walk")
+    p.answer([5, 6, 7], "mixed")
+    p.answer([8], "unsure")
+    p.refresh_proposals()
+    d = p.draw_audit(N_WINDOWS, random_state=0)  # every window left
+    assert not set(d["window_id"]) & {1, 2, 5, 6, 7, 8, 20, 21}
+    assert len(d) == N_WINDOWS - 8
+    # answered windows get a proposal like any unconfirmed window; none is certain by fiat
+    props = p.proposals().set_index("window_id")
+    assert not props.loc[[5, 6, 7, 8], "confirmed"].any()
+    assert (props.loc[[1, 2, 20, 21], "confidence"] == 1.0).all()
