@@ -88,14 +88,16 @@ def main() -> None:
           f"{w:.3f} s, {int(np.median(iters))} iterations (goal <= 0.2 s)")
     print(f"same refresh checking the graph and solving every class again: {a:.3f} s "
           f"(ratio {w / a:.2f})")
-    # what Project refreshes: the spreading times the logistic regression on the confirmed windows
-    from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, Proposer, classifier_view
+    # what Project refreshes: the spreading times the logistic regression on the confirmed
+    # windows, smoothed along each recording
+    from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, DEFAULT_STAY, Proposer, classifier_view
 
     t0 = time.perf_counter()
     Z = classifier_view(X, names)
     print(f"classifier's features (orientation-free columns, 30 principal axes; once per graph): "
           f"{time.perf_counter() - t0:.2f} s")
-    pr = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, classifier_features=Z)
+    pr = Proposer(classifier_weight=DEFAULT_CLASSIFIER_WEIGHT, stay=DEFAULT_STAY,
+                  classifier_features=Z, recording=rec, seq=seq)
     pr.fit(W, y)
     reference = pr.spreader_.reference_mass()
     times = []
@@ -107,6 +109,7 @@ def main() -> None:
         pr.outputs(y, reference=reference)
         times.append(time.perf_counter() - t0)
     print(f"Project's refresh (spreading warm, classifier weight {DEFAULT_CLASSIFIER_WEIGHT:g}, "
+          f"smoothed along time with stay {DEFAULT_STAY:g}, "
           f"{int((y >= 0).sum())} confirmed), median of {args.refreshes}: "
           f"{float(np.median(times)):.3f} s")
 
