@@ -79,7 +79,7 @@ def _reference(p, alpha, weight, stay):
     Pg = np.maximum(F, 0) / np.maximum(F, 0).sum(axis=1, keepdims=True)
     free = [i for i, n in enumerate(names) if ".mag." in n or ".inv." in n]
     Z = StandardScaler().fit_transform(X[:, free].astype(np.float64))
-    Z = PCA(n_components=30).fit_transform(Z)
+    Z = PCA(n_components=30, svd_solver="full").fit_transform(Z)  # exact: no random draw
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         clf = LogisticRegression(C=1.0, max_iter=1000, tol=1e-8).fit(Z[lab], codes[lab])
