@@ -167,14 +167,16 @@ def _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed):
 
 
 def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float = 0.95,
-        n_boot: int = 200, audit_size: int = AUDIT, proposer: str = "project"):
+        n_boot: int = 200, audit_size: int = AUDIT, proposer: str = "project", on_check=None):
     """One simulated annotator; returns rows (confirmed, truth, estimate, low, high, basis,
     audited). Where the estimate has no figure the annotator answers the blind audit it asks for
     (``audit_size`` windows drawn within confidence bands; 0: never) and the figure is read
     again; ``audited``: an audit has been answered by then (its answers are not counted in
     ``confirmed``). ``proposer``: "project" (what Project proposes: the spreading times a
     logistic regression on the orientation-free features, smoothed along time) or "spreading"
-    (the spreading alone)."""
+    (the spreading alone). ``on_check(state)``: called at each checkpoint with the annotator's
+    state (confirmations, weights, actions, audit, proposer), to study other estimates on the
+    same runs."""
     W, t, rec, seq, xy = data["W"], data["t"], data["rec"], data["seq"], data["xy"]
     n = t.size
     rng = np.random.default_rng(seed)
@@ -209,6 +211,9 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
             unconf = y < 0
             truth = float((out.label[unconf] == t[unconf]).mean())
             rows.append((k, truth, est.value, est.low, est.high, est.basis, audit is not None))
+            if on_check is not None:
+                on_check(dict(y=y.copy(), weight=weight.copy(), batch=batch.copy(), audit=audit,
+                              sp=sp, row=rows[-1], seed=seed))
             continue
         room = cps[0] - k
         if order == "queue" and out is not None:

@@ -417,12 +417,25 @@ class Project:
     # ------------------------------------------------------------------ proposals
     def refresh_proposals(self, *, alpha: float | None = None, n_neighbors: int = 10,
                           temporal_weight: float | None = None, pca_components: int | None = 30,
-                          progress: Progress | None = None) -> ProposalRun:
+                          progress: Progress | None = None, estimate: bool = True) -> ProposalRun:
         """Spread the confirmed labels over the window graph; store the result as a run.
-        Proposed labels are suggestions for a person to review."""
-        return self._proposals.refresh(alpha=alpha, n_neighbors=n_neighbors,
-                                       temporal_weight=temporal_weight,
-                                       pca_components=pca_components, progress=progress)
+        Proposed labels are suggestions for a person to review.
+
+        ``estimate``: also compute the run's accuracy estimate and store it with the run (the
+        slow part: cross-validation), so that :meth:`accuracy_estimate` only reads it. False
+        leaves it to the first :meth:`accuracy_estimate` (e.g. to show the proposals first)."""
+        scaled = None if progress is None else (lambda f, msg: progress(0.7 * f, msg))
+        run = self._proposals.refresh(alpha=alpha, n_neighbors=n_neighbors,
+                                      temporal_weight=temporal_weight,
+                                      pca_components=pca_components,
+                                      progress=scaled if estimate else progress)
+        if estimate and run.proposed:
+            if progress:
+                progress(0.7, "accuracy estimate")
+            self._audits.accuracy_estimate()
+            if progress:
+                progress(1.0, "done")
+        return run
 
     def proposals(self) -> pd.DataFrame:
         """Latest proposals: window_id, label, class_id, confidence, margin, support, conflict,
@@ -452,7 +465,8 @@ class Project:
     def accuracy_estimate(self) -> AccuracyReport:
         """Accuracy of the latest proposals, with its interval, what it rests on and the
         calibration of the confidence (see :mod:`labeler.estimate`). Computed once per proposal
-        run and stored with it; later calls read it."""
+        run (by :meth:`refresh_proposals`, or here when it was not) and stored with it; later
+        calls read it, with the answers of an audit given since."""
         return self._audits.accuracy_estimate()
 
     # ------------------------------------------------------------------ several annotators

@@ -150,11 +150,23 @@ def test_estimate_is_stored_once_per_run_and_shared_by_cli_and_export(project, s
     # the queue's random draws keep their probability for the estimate's weights
     draws = p.store.queue_draws()
     assert len(draws) >= 50 and all(0 < d["probability"] <= 1 and d["pool"] > 1 for d in draws)
-    p.refresh_proposals()
-    e = p.accuracy_estimate()
+    run = p.refresh_proposals()
+    # computed with the run: the blob is there before anyone asks, and asking only reads it
     stored = p.store.get_blob("proposals/estimate")
-    assert stored is not None and stored[1]["run_id"] == e.run_id
+    assert stored is not None and stored[1]["run_id"] == run.run_id
+    computed = []
+    real = p._audits.compute
+    p._audits.compute = lambda r: computed.append(r) or real(r)
+    e = p.accuracy_estimate()
+    assert e.run_id == run.run_id and computed == []
     assert p.accuracy_estimate().as_dict() == e.as_dict()  # read back, not computed again
+    p._audits.compute = real
+    # a run that leaves it to the first reader
+    later = p.refresh_proposals(estimate=False)
+    assert p.store.get_blob("proposals/estimate")[1]["run_id"] != later.run_id
+    assert p.accuracy_estimate().run_id == later.run_id
+    assert p.store.get_blob("proposals/estimate")[1]["run_id"] == later.run_id
+    e = p.accuracy_estimate()
     path = p.path
     p.close()
     r = CliRunner().invoke(cli, ["accuracy", str(path)])

@@ -73,7 +73,7 @@ def spread_and_estimate(project, class_code: dict[str, int] | None, n: int, refr
     if refresh:
         if on_start:
             on_start()
-        project.refresh_proposals()
+        project.refresh_proposals(estimate=False)  # the estimate after the proposals are shown
         got = (read_named_proposals(project) if class_code is None
                else read_proposals(project, class_code, n))
         if got is not None:

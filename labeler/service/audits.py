@@ -35,7 +35,7 @@ AUDIT_COLUMNS = ["id", "run_id", "window_id", "position", "drawn_at", "drawn_by"
                  "proposed_class_id", "confidence", "stratum", "stratum_size"]
 ESTIMATE_BLOB = "proposals/estimate"
 #: Form of the stored part of the estimate; a part stored in another form is computed again.
-ESTIMATE_FORM = 2
+ESTIMATE_FORM = 3
 
 
 class Audits:
