@@ -19,10 +19,11 @@ The estimate here works with such confirmations in three steps.
    none, those windows are scored separately by leave-one-recording-out folds (a recording with no
    confirmation is a new person or day to the proposals).
 
-2. **Calibration** (:class:`ConfidenceCalibrator`). An isotonic map (Zadrozny & Elkan,
-   "Transforming classifier scores into accurate multiclass probability estimates", KDD 2002) from
-   the spreading's confidence to the probability that the proposal is right, fitted on the held-out
-   predictions, each weighted by how under-represented its kind of window is among the answers
+2. **Calibration** (:class:`ConfidenceCalibrator`). A logistic curve in the log-odds of the
+   proposals' confidence (Platt 1999; or an isotonic map, Zadrozny & Elkan, "Transforming
+   classifier scores into accurate multiclass probability estimates", KDD 2002) giving the
+   probability that the proposal is right, fitted on the held-out predictions, each weighted by
+   how under-represented its kind of window is among the answers at its level of confidence
    (see 3). Selection that depends on what the calibration conditions on (the queue favours
    low-margin windows, a lasso favours clear ones) leaves this conditional probability unbiased;
    that is why the estimate is the *mean calibrated confidence over the proposed windows* rather
@@ -637,9 +638,10 @@ def within_bands(confidence, weights, base, n_bands: int = WEIGHT_BANDS) -> np.n
     if x.size == 0:
         return w
     k = int(max(1, min(n_bands, x.size)))
-    rank = np.empty(x.size, dtype=np.int64)
-    rank[np.argsort(x, kind="stable")] = np.arange(x.size)
-    band = rank * k // x.size
+    # bands between quantiles of the confidence: equal confidences share a band
+    edges = np.unique(np.quantile(x, np.linspace(0, 1, k + 1)[1:-1]))
+    band = np.searchsorted(edges, x, side="right")
+    k = edges.size + 1
     tot_w = np.bincount(band, weights=w, minlength=k)
     tot_b = np.bincount(band, weights=base, minlength=k)
     return w * np.where(tot_w > 0, tot_b / np.where(tot_w > 0, tot_w, 1.0), 0.0)[band]

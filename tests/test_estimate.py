@@ -348,3 +348,17 @@ def test_windows_more_likely_wrong_than_right_are_where_the_errors_are():
     assert likely.sum() >= 10
     assert wrong[likely].mean() >= 3 * wrong.mean()
     assert abs(expected - wrong.sum()) <= 0.5 * wrong.sum()
+
+
+def test_weights_act_within_bands_of_confidence_only():
+    # stabilized weights (common practice in inverse-probability weighting, no source): weights
+    # that differ only between levels of confidence are levelled out; within a level they stay
+    from labeler.estimate import within_bands
+
+    x = np.repeat([0.5, 0.7, 0.9], 4)
+    w = np.repeat([10.0, 1.0, 0.1], 4)
+    np.testing.assert_allclose(within_bands(x, w, np.ones(12), n_bands=3), np.ones(12))
+    w2 = np.array([1, 3, 1, 3, 1, 1, 1, 1, 2, 2, 2, 2.0])
+    out = within_bands(x, w2, np.ones(12), n_bands=3)
+    np.testing.assert_allclose(out[:4], [0.5, 1.5, 0.5, 1.5])  # band total 4, shared 1:3:1:3
+    np.testing.assert_allclose(out[4:], np.ones(8))
