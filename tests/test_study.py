@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 
 import numpy as np
 import pandas as pd
@@ -66,6 +67,10 @@ def test_ingest_on_dask_adds_the_good_files_and_reports_the_refused_one(tmp_path
         assert len(rep.refused) == 1 and rep.refused[0].path == str(bad)
         assert "row 9, column 'wrist_acc_x'" in rep.refused[0].reason
         assert "scheduler at" in rep.runner
+        # where the time went: the three tasks ran on workers, the two good files were written
+        assert 0 < rep.start_seconds < rep.seconds  # connecting to the given cluster
+        assert rep.task_cpu_seconds > 0 and rep.task_seconds > 0
+        assert 0 < rep.write_cpu_seconds and 0 < rep.write_seconds < rep.seconds
         X, names = p.features()
         w = p.windows()
     # the same files added one by one in this process give the same windows and features
@@ -75,6 +80,25 @@ def test_ingest_on_dask_adds_the_good_files_and_reports_the_refused_one(tmp_path
         pd.testing.assert_frame_equal(w, q.windows())
     assert names == names1
     np.testing.assert_array_equal(X, X1)
+
+
+def test_local_workers_go_without_the_malloc_threshold_and_the_profiler(monkeypatch):
+    # a small MALLOC_TRIM_THRESHOLD_ doubles the CPU time of preparing a recording; the
+    # one-thread limits of numerical libraries stay (two processes share the cores)
+    import dask
+
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")  # as an earlier nanny leaves it
+    monkeypatch.delenv("OMP_NUM_THREADS", raising=False)
+    with runner_mod.local_worker_settings():
+        environ = dask.config.get("distributed.nanny.pre-spawn-environ")
+        assert "MALLOC_TRIM_THRESHOLD_" not in environ
+        assert str(environ["OMP_NUM_THREADS"]) == "1"
+        assert dask.config.get("distributed.worker.profile.enabled") is False
+        assert "MALLOC_TRIM_THRESHOLD_" not in os.environ
+        os.environ["OMP_NUM_THREADS"] = "1"  # what a nanny does before it starts a worker
+    assert os.environ["MALLOC_TRIM_THRESHOLD_"] == "65536"  # put back as it was
+    assert "OMP_NUM_THREADS" not in os.environ
+    assert "MALLOC_TRIM_THRESHOLD_" in dask.config.get("distributed.nanny.pre-spawn-environ")
 
 
 def test_all_or_none_writes_nothing_when_a_file_is_refused(tmp_path, scheduler):

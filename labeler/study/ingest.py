@@ -40,6 +40,13 @@ class IngestReport:
     refused: list[Refusal] = field(default_factory=list)
     runner: str = ""
     seconds: float = 0.0
+    #: where the time went: opening the runner (0 when one was given), the tasks' own wall and
+    #: CPU time on the workers (summed), and the single writer's wall and CPU time
+    start_seconds: float = 0.0
+    task_seconds: float = 0.0
+    task_cpu_seconds: float = 0.0
+    write_seconds: float = 0.0
+    write_cpu_seconds: float = 0.0
 
     @property
     def n_windows(self) -> int:
@@ -93,6 +100,14 @@ def prepare_file(path: str, read_options: dict, length_s: float, step_s: float,
                                   "more memory or split the recording")
 
 
+def timed_prepare_file(*args) -> tuple[PreparedRecording | Refusal, float, float]:
+    """:func:`prepare_file` on a worker, with its wall and CPU time (the worker process's CPU
+    time, all of its threads)."""
+    w0, c0 = time.perf_counter(), time.process_time()
+    res = prepare_file(*args)
+    return res, time.perf_counter() - w0, time.process_time() - c0
+
+
 def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
            read_options: dict | None = None, all_or_none: bool = False,
            progress: Progress | None = None, **runner_options) -> IngestReport:
@@ -106,8 +121,12 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
         raise InputError("no recording files given; pass one or more CSV or Parquet files")
     if runner is None:
         with open_runner(**runner_options) as opened:
-            return ingest(project, paths, opened, read_options=read_options,
-                          all_or_none=all_or_none, progress=progress)
+            started = time.perf_counter() - t0
+            report = ingest(project, paths, opened, read_options=read_options,
+                            all_or_none=all_or_none, progress=progress)
+            report.start_seconds = started
+            report.seconds += started
+            return report
     report = IngestReport(runner=runner.description)
     # a name taken in the project or twice in the list is refused before any work is spent on it
     names = {r: None for r in project.recordings()["name"]}
@@ -136,13 +155,21 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
     options = dict(read_options or {})
     handles = {}
     for i in todo:
-        fut = runner.submit(prepare_file, paths[i], options, project.window_length_s,
+        fut = runner.submit(timed_prepare_file, paths[i], options, project.window_length_s,
                             project.window_step_s, project.annotator, project.feature_set_version)
         handles[id(fut)] = (i, fut)
     results: dict[int, PreparedRecording | Refusal] = dict(early)
     added_ids: list[int] = []
     next_i = 0
     done = len(early)
+
+    def write(prepared: list[PreparedRecording]) -> list:
+        w0, c0 = time.perf_counter(), time.process_time()
+        try:
+            return project.add_prepared(prepared, place_in_map=False)
+        finally:
+            report.write_seconds += time.perf_counter() - w0
+            report.write_cpu_seconds += time.process_time() - c0
 
     def write_ready() -> None:
         nonlocal next_i
@@ -152,7 +179,7 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
                 report.refused.append(res)
             elif not all_or_none:
                 try:
-                    got = project.add_prepared([res], place_in_map=False)
+                    got = write([res])
                 except LabelerError as exc:
                     report.refused.append(Refusal(res.source_path, str(exc)))
                 else:
@@ -170,6 +197,10 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
         if isinstance(res, TaskFailed):
             res = Refusal(paths[i], f"{paths[i]}: the task failed ({res}); try the file alone "
                                     "with `labeler add`")
+        else:
+            res, wall, cpu = res
+            report.task_seconds += wall
+            report.task_cpu_seconds += cpu
         results[i] = res
         done += 1
         if progress:
@@ -181,7 +212,7 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
             first = report.refused[0]
             raise InputError(f"{first.reason}; nothing added ({len(report.refused)} file(s) "
                              "refused)")
-        report.added = project.add_prepared(gathered, place_in_map=False)
+        report.added = write(gathered)
         added_ids = [a.id for a in report.added]
     if added_ids:
         project.place_new_windows(added_ids)
