@@ -27,8 +27,11 @@ t-SNE parameters chosen from the number of windows N
   for tiny N so that each window has the 3 × perplexity neighbours the affinities need.
 - PCA initialization, first axis scaled to standard deviation 1e-4 (Kobak & Berens 2019), via
   ``openTSNE.initialization.rescale``, plus openTSNE's tiny jitter.
-- 250 iterations of early exaggeration (momentum 0.5), then ``n_iter`` (default 500) plain
-  iterations (momentum 0.8): openTSNE's defaults.
+- 125 iterations of early exaggeration (momentum 0.5), then at most ``n_iter`` (default 500)
+  plain iterations (momentum 0.8), stopped once 50 of them lower the KL divergence by less than
+  :data:`KL_TOL` (10 %). openTSNE's defaults are 250 and 500; with the learning rate N / 12 the
+  exaggerated phase settles sooner (Belkina et al. 2019), and the map's local structure is in
+  place long before the plain phase ends (see :data:`KL_TOL` for what was measured).
 
 Neighbours
 ----------
@@ -100,7 +103,7 @@ MIN_PER_STRATUM = 200
 
 
 EARLY_EXAGGERATION = 12.0
-EARLY_EXAGGERATION_ITER = 250
+EARLY_EXAGGERATION_ITER = 125
 N_ITER = 500
 DEFAULT_PERPLEXITY = 30.0
 
@@ -124,7 +127,13 @@ BLOCK_ITER = 50
 #: grid has one interval per unit of the map's span, at least 50).
 MAX_GRID_INTERVALS = 100
 #: The plain iterations stop once 50 of them lower the KL divergence by less than this fraction.
-KL_TOL = 0.01
+#: Measured on 20k simulated windows (trustworthiness k = 10 on 5k of them, KL after each block
+#: of 50 plain iterations): after 125 exaggerated iterations 0.9839 / 0.9863 / 0.9872 / 0.9872 /
+#: 0.9869 at 50 / 100 / 150 / 200 / 250 plain iterations, KL falling by 19 / 12 / 9 / 7 % per
+#: block; after 250 exaggerated ones 0.9834 / 0.9860 / 0.9863 / 0.9863 / 0.9863 and 0.9865 at
+#: 450. The KL keeps falling by several % per block while the groups drift apart, long after
+#: the neighbourhoods have stopped changing; 10 % stops after about 200.
+KL_TOL = 0.10
 
 
 # --------------------------------------------------------------------------------------------------
