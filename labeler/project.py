@@ -16,7 +16,7 @@ import numpy as np
 import labeler
 from labeler.errors import ProjectError
 from labeler.results import (AccuracyReport, ExportReport, ImportReport, LabelBatch, MapRun,
-                             ProjectStatus, ProposalRun, RemovedRecording)
+                             ProjectStatus, ProposalRun, RemovedRecording, ReviewDraw)
 from labeler.service.audits import Audits
 from labeler.service.catalog import CHUNK_SECONDS, AddedRecording, Catalog
 from labeler.service.context import Context, Progress, default_annotator
@@ -451,6 +451,27 @@ class Project:
         estimate. ``as_frame=False``: a list of dicts, one per window, with the same keys."""
         get = self._proposals.review_queue if as_frame else self._proposals.review_rows
         return get(n, exclude=self._audits.open_windows(), random_state=random_state)
+
+    def draw_review_queue(self, n: int = 50) -> ReviewDraw:
+        """The review queue :meth:`review_queue` would give now, drawn ahead of showing it (e.g.
+        in another process while the annotator looks at something else): nothing is kept until
+        :meth:`show_review_draw` shows it."""
+        return self._proposals.draw_review(n, exclude=self._audits.open_windows())
+
+    def show_review_draw(self, drawn: ReviewDraw, n: int = 50) -> pd.DataFrame:
+        """Show a queue drawn ahead (:meth:`draw_review_queue`): its table, its draws' probabilities
+        kept now for the accuracy estimate, when the project is still in the state it was drawn
+        in (same proposal run, no label event since, same open audit); else a queue of ``n``
+        drawn now (:meth:`review_queue`)."""
+        p = self._proposals
+        if drawn.mark != p.queue_mark(self._audits.open_windows()):
+            return self.review_queue(n)
+        p.keep_draws(drawn)
+        return p.queue_frame(drawn.rows)
+
+    def proposals_run_id(self) -> int | None:
+        """Id of the run that made the stored proposals (a small query), or None before any."""
+        return self._proposals.run_id()
 
     def draw_audit(self, n: int = 30, *, random_state=None) -> pd.DataFrame:
         """Draw a random sample of proposed, unconfirmed windows (within bands of confidence) for

@@ -76,6 +76,30 @@ class ProposalRun:
         return asdict(self)
 
 
+@dataclass(frozen=True)
+class ReviewDraw:
+    """A review queue drawn and not shown yet: its rows (as :meth:`Project.review_queue` gives
+    them with ``as_frame=False``), the random draws among them as (window_id, probability, pool),
+    the proposal run it was drawn from and the state of the project it was drawn in (``mark``).
+    The draws are kept for the accuracy estimate only when the queue is shown
+    (:meth:`Project.show_review_draw`), and only while the project is still in that state."""
+    rows: tuple[dict, ...]
+    draws: tuple[tuple[int, float, int], ...]
+    run_id: int | None
+    mark: str
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"rows": [dict(r) for r in self.rows], "draws": [list(d) for d in self.draws],
+                "run_id": self.run_id, "mark": self.mark}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "ReviewDraw":
+        return cls(rows=tuple(dict(r) for r in d["rows"]),
+                   draws=tuple((int(w), float(q), int(m)) for w, q, m in d["draws"]),
+                   run_id=None if d.get("run_id") is None else int(d["run_id"]),
+                   mark=str(d["mark"]))
+
+
 @dataclass
 class AccuracyReport:
     """How accurate the latest proposals are and what that rests on.

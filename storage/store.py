@@ -903,6 +903,11 @@ class Store:
         row = self.conn.execute("SELECT data, meta FROM blobs WHERE key = ?", (key,)).fetchone()
         return None if row is None else (row[0], json.loads(row[1] or "{}"))
 
+    def blob_meta(self, key: str) -> dict | None:
+        """The meta of blob ``key`` without its data (None when there is no such blob)."""
+        row = self.conn.execute("SELECT meta FROM blobs WHERE key = ?", (key,)).fetchone()
+        return None if row is None else json.loads(row[0] or "{}")
+
     def delete_blobs(self, prefix: str) -> None:
         with self.atomic():
             self.conn.execute("DELETE FROM blobs WHERE key LIKE ?", (prefix.replace("%", "") + "%",))

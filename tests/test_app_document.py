@@ -404,6 +404,14 @@ def test_worker_delivers_proposals_before_the_estimate_and_skips_a_needless_run(
         a.drain(60)                      # the opening run: the estimate only, no new proposals
         assert len(a.project.store.runs("proposals")) == runs
         assert a.state.accuracy() is not None and "estimate" not in a.side.progress.text.lower()
+        # the review queue was drawn ahead off the page; R shows it and keeps its draws then
+        ahead = a.state.ready_queue
+        assert ahead is not None and not a.project.store.queue_draws()
+        a.press("R")
+        assert [q.window_id for q in a.state.queue] == [r["window_id"] for r in ahead.rows]
+        assert {d["window_id"] for d in a.project.store.queue_draws()} == {
+            w for w, _q, _m in ahead.draws}
+        a.press("Escape")
         got = []
         a.worker._deliver = got.append   # see what the worker hands over, in order
         row = int(np.flatnonzero(a.state.confirmed < 0)[0])
@@ -412,8 +420,9 @@ def test_worker_delivers_proposals_before_the_estimate_and_skips_a_needless_run(
         assert not proposals_current(a.project, a.state)
         a.worker.wait(60)
         kinds = [type(g).__name__ for g in got]
-        assert kinds == ["Proposals", "EstimateUpdate"], kinds
-        assert isinstance(got[1], EstimateUpdate) and got[1].estimate is not None
+        assert kinds == ["Proposals", "ReviewDraw", "EstimateUpdate"], kinds
+        assert got[1].run_id == a.project.proposals_run_id()
+        assert isinstance(got[2], EstimateUpdate) and got[2].estimate is not None
         assert len(a.project.store.runs("proposals")) == runs + 1
     finally:
         a.close()

@@ -270,3 +270,48 @@ def test_without_a_figure_the_app_says_how_to_get_one():
     assert "press" not in words.estimate(AccuracyReport(run_id=3, estimate=none))
     back = AccuracyReport.from_dict(AccuracyReport(run_id=3, estimate=none, needs_audit=True).as_dict())
     assert back.needs_audit
+
+
+def test_a_queue_drawn_ahead_is_the_queue_of_its_state_and_kept_only_when_shown(project, sims,
+                                                                                tmp_path):
+    """A review queue drawn ahead of showing it (the app draws it off the page) is the queue
+    drawn in place in the same state, and its draws' probabilities are kept only when it is
+    shown, and only while nothing changed since; a stale one gives way to a queue drawn then
+    (the estimate weighs queue answers by the probabilities their draws had when shown: common
+    practice, no source)."""
+    import shutil
+
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(40, random_state=1)["window_id"], truth)
+    p.refresh_proposals(estimate=False)
+    before = {d["window_id"]: d["probability"] for d in p.store.queue_draws()}
+    ahead = p.draw_review_queue()
+    assert len(ahead.rows) == 50 and ahead.draws and ahead.run_id == p.proposals_run_id()
+    assert {d["window_id"]: d["probability"] for d in p.store.queue_draws()} == before
+    # the same state in another file: the queue drawn there in place is the one drawn ahead
+    twin = tmp_path / "twin.labeler"
+    p.store.conn.execute("PRAGMA wal_checkpoint(FULL)")
+    shutil.copy(p.path, twin)
+    with Project.open(twin, annotator="tester") as q:
+        here = q.review_queue(50)
+        kept_there = {d["window_id"]: d["probability"] for d in q.store.queue_draws()}
+    shown = p.show_review_draw(ahead)
+    assert shown["window_id"].tolist() == here["window_id"].tolist()
+    assert shown["reason"].tolist() == here["reason"].tolist()
+    kept = {d["window_id"]: d["probability"] for d in p.store.queue_draws()}
+    assert kept == kept_there
+    assert {w: kept[w] for w, _q, _m in ahead.draws} == {w: q_ for w, q_, _m in ahead.draws}
+    # stale: a label event since the draw; the queue shown is drawn anew and only its draws kept
+    with p.store.atomic():
+        p.store.conn.execute("DELETE FROM queue_draws")
+    w = p.windows()["id"].to_numpy()
+    stale = p.draw_review_queue()
+    first = int(stale.rows[0]["window_id"])
+    p.confirm([first], str(truth[np.searchsorted(w, first)]), source="queue")
+    fresh = p.show_review_draw(stale)
+    assert first not in fresh["window_id"].tolist()
+    newer = {d["window_id"] for d in p.store.queue_draws()}
+    assert newer and newer <= set(fresh["window_id"])
+    assert not ({w_ for w_, _q, _m in stale.draws} - set(fresh["window_id"])) & newer
+    assert {w_ for w_, _q, _m in stale.draws} - set(fresh["window_id"])

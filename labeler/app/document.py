@@ -35,6 +35,7 @@ from labeler.app.worker import (EstimateUpdate, ProposalWorker, proposals_curren
                                 spread_and_estimate)
 from labeler.errors import LabelerError
 from labeler.project import PALETTE
+from labeler.results import ReviewDraw
 
 MAP_CHECK_MS = 5000              # how often an open page looks for a newer map (e.g. t-SNE)
 OTHERS_CHECK_MS = 2000           # how often an open page looks for changes made elsewhere
@@ -530,6 +531,9 @@ class LabelerApp(Actions):
         self.side.progress.text = self.progress_text
 
     def _apply_proposals(self, got) -> None:
+        if isinstance(got, ReviewDraw):              # the next R shows it
+            self.state.ready_queue = got
+            return
         if isinstance(got, EstimateUpdate):
             self.state.estimate, self.state.estimate_absent = got.estimate, got.absent
             self._refresh_estimate()

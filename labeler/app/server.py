@@ -51,11 +51,14 @@ class AppServer:
         from labeler.project import Project
 
         self.project_path = Path(project_path)
-        from labeler.app.state import file_layout
+        from labeler.app.state import file_layout, shared_labels, shared_proposals
 
-        # fail early on a bad file; read once what every page shares (the windows and the map)
+        # fail early on a bad file; read once what every page shares (the windows, the map, the
+        # labels and the stored proposals: read again only when they change)
         with Project.open(self.project_path, annotator=annotator) as project:
-            file_layout(project)
+            layout = file_layout(project)
+            shared_labels(project, layout)
+            shared_proposals(project, layout)
         self.host = host
         self.port = int(port) or free_port(host if host not in ("0.0.0.0", "") else LOOPBACK)
         self.annotator = annotator

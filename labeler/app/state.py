@@ -16,7 +16,7 @@ import pandas as pd
 from labeler.answers import is_answer
 from labeler.errors import InputError, LabelerError
 from labeler.reduction import principal_components
-from labeler.results import AccuracyReport, LabelBatch
+from labeler.results import AccuracyReport, LabelBatch, ReviewDraw
 
 #: Point sizes on the map (screen pixels): a proposed window's grows with its confidence, from
 #: SIZE_MIN at 0 to SIZE_MIN + SIZE_SPAN at 1; a confirmed window is drawn at SIZE_CONFIRMED with an
@@ -105,6 +105,8 @@ class NamedProposals:
     confidence: np.ndarray        # float32 in [0, 1]
     support: np.ndarray           # float32 in [0, 1]
     note: str = ""
+    #: whether each window was confirmed when the proposals were spread (None: not known)
+    confirmed: np.ndarray | None = None
 
     def coded(self, class_code: dict[str, int]) -> Proposals:
         """The same proposals in a session's class codes (a class it does not know: none)."""
@@ -131,8 +133,12 @@ def read_named_proposals(project, ids: np.ndarray | None = None) -> NamedProposa
     label[pos[ok]] = codes[ok]
     conf[pos[ok]] = df["confidence"].to_numpy(np.float32)[ok]
     support[pos[ok]] = df["support"].to_numpy(np.float32)[ok]
+    was = None
+    if "confirmed" in df and np.unique(pos[ok]).size == n:     # every window has its row
+        was = np.zeros(n, bool)
+        was[pos[ok]] = df["confirmed"].to_numpy(bool)[ok]
     return NamedProposals([str(c) for c in names], label, np.clip(np.nan_to_num(conf), 0, 1),
-                          np.clip(np.nan_to_num(support), 0, 1))
+                          np.clip(np.nan_to_num(support), 0, 1), confirmed=was)
 
 
 def read_proposals(project, class_code: dict[str, int], n: int,
@@ -194,6 +200,57 @@ def file_layout(project) -> FileLayout:
     return got
 
 
+# ------------------------------------------------------------- what the pages of one file share
+
+#: per served file: the current labels and the stored proposals as last read, each with the marks
+#: it was read at (read again only when those change)
+_SHARED_LABELS: dict[str, tuple[tuple, tuple[np.ndarray, np.ndarray, np.ndarray]]] = {}
+_SHARED_PROPOSALS: dict[str, tuple[tuple, NamedProposals | None]] = {}
+
+
+def _read_only(*arrays: np.ndarray) -> None:
+    for a in arrays:
+        if a is not None:
+            a.flags.writeable = False
+
+
+def shared_labels(project, layout: FileLayout) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The current label of every labeled window as (rows in window-id order, class ids,
+    annotator names), read once for every page open on the file until a label or a class
+    changes (``Project.change_mark``)."""
+    key = (layout.key, tuple(project.change_mark()[:2]))
+    got = _SHARED_LABELS.get(str(project.path))
+    if got is not None and got[0] == key:
+        return got[1]
+    lab = project.labels()
+    if len(lab):
+        pos = layout.index.get_indexer(lab["window_id"].to_numpy())
+        ok = pos >= 0
+        value = (pos[ok].astype(np.int64), lab["class_id"].to_numpy(np.int64)[ok],
+                 lab["annotator"].astype(str).to_numpy(object)[ok])
+    else:
+        value = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, object))
+    _read_only(*value)
+    _SHARED_LABELS[str(project.path)] = (key, value)
+    return value
+
+
+def shared_proposals(project, layout: FileLayout | None = None) -> NamedProposals | None:
+    """The stored proposals in window-id order with classes by name (None when there are none),
+    read once for every page open on the file until a proposal run is stored or a class changes
+    (``Project.proposals_run_id``, ``Project.change_mark``). Arrays read-only."""
+    layout = file_layout(project) if layout is None else layout
+    key = (layout.key, project.proposals_run_id(), project.change_mark()[1])
+    got = _SHARED_PROPOSALS.get(str(project.path))
+    if got is not None and got[0] == key:
+        return got[1]
+    value = read_named_proposals(project, layout.ids)
+    if value is not None:
+        _read_only(value.label, value.confidence, value.support, value.confirmed)
+    _SHARED_PROPOSALS[str(project.path)] = (key, value)
+    return value
+
+
 # ---------------------------------------------------------------------------- the session state
 
 class SessionState:
@@ -201,7 +258,7 @@ class SessionState:
 
     def __init__(self, project):
         self.project = project
-        lay = file_layout(project)
+        lay = self._layout = file_layout(project)
         self.ids, self.index, self.n = lay.ids, lay.index, lay.ids.size
         self.rec_names, self.rec_code = list(lay.rec_names), lay.rec_code
         self.start, self.stop = lay.start, lay.stop
@@ -216,13 +273,15 @@ class SessionState:
         self.reload_classes()
         self.x, self.y, self.map_kind = lay.x, lay.y, lay.map_kind
         self.sync_labels()
-        got = read_proposals(project, self.class_code, self.n, ids=self.ids)
-        if got is not None:
-            self.proposals = got
+        got = shared_proposals(project, lay)
+        if got is not None and got.label.size == self.n:
+            self.proposals = got.coded(self.class_code)
         self.last_batch: LabelBatch | None = None
         self.queue: list[QueueItem] = []
         self.queue_mode = "review"
         self.queue_pos = 0
+        #: the review queue drawn ahead off the page (the proposal worker), shown by the next R
+        self.ready_queue: ReviewDraw | None = None
 
     # -------------------------------------------------------------- classes
     def reload_classes(self) -> None:
@@ -268,21 +327,21 @@ class SessionState:
 
     # -------------------------------------------------------------- labels
     def sync_labels(self) -> np.ndarray:
-        """Read the current labels from the project file; return the rows that changed."""
-        lab = self.project.labels()
+        """Read the current labels from the project file (shared by the pages of the file: see
+        :func:`shared_labels`); return the rows that changed."""
+        rows, class_ids, names = shared_labels(self.project, self._layout)
         conf = np.full(self.n, -1, np.int32)
         who = np.full(self.n, -1, np.int32)
-        if len(lab):
-            pos = self.index.get_indexer(lab["window_id"].to_numpy())
-            ok = pos >= 0
-            conf[pos[ok]] = [self._code_of_id.get(int(c), -1)
-                             for c in lab["class_id"].to_numpy()[ok]]
-            names = lab["annotator"].astype(str).to_numpy()[ok]
-            for name in np.unique(names):
+        if rows.size:
+            ids, inv = np.unique(class_ids, return_inverse=True)
+            conf[rows] = np.array([self._code_of_id.get(int(c), -1) for c in ids],
+                                  np.int32)[inv.ravel()]
+            people, inv = np.unique(names, return_inverse=True)
+            for name in people:
                 if name not in self.annotators:
-                    self.annotators.append(name)
+                    self.annotators.append(str(name))
             code = {a: i for i, a in enumerate(self.annotators)}
-            who[pos[ok]] = [code[a] for a in names]
+            who[rows] = np.array([code[str(a)] for a in people], np.int32)[inv.ravel()]
         changed = np.flatnonzero((conf != self.confirmed) | (who != self.who))
         self.confirmed, self.who = conf, who
         return changed
@@ -385,7 +444,10 @@ class SessionState:
         self.queue_pos = 0
         self.queue = []
         if mode == "review":
-            got = self.project.review_queue(50 if n is None else n)
+            ready, self.ready_queue = self.ready_queue, None
+            # drawn ahead: shown (its draws kept now) when nothing changed since, else drawn now
+            got = (self.project.show_review_draw(ready) if ready is not None and n is None
+                   else self.project.review_queue(50 if n is None else n))
         else:
             got = self.project.draw_audit() if n is None else self.project.draw_audit(n)
         ids = got["window_id"].to_numpy(np.int64)

@@ -16,12 +16,11 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
-import pandas as pd
 
 from labeler.app.state import (NamedProposals, SessionState, read_named_proposals,
-                               read_proposals, stored_proposals)
+                               read_proposals, shared_proposals)
 from labeler.errors import LabelerError
-from labeler.results import AccuracyReport
+from labeler.results import AccuracyReport, ReviewDraw
 
 
 @dataclass
@@ -35,20 +34,16 @@ class EstimateUpdate:
 
 def proposals_current(project, state: SessionState) -> bool:
     """True when the stored proposals were spread from exactly the current confirmations."""
-    df = stored_proposals(project)
-    if df is None or len(df) != state.n or "confirmed" not in df:
+    got = shared_proposals(project, state._layout)
+    if got is None or got.confirmed is None or got.label.size != state.n:
         return False
-    pos = state.index.get_indexer(df["window_id"].to_numpy())
-    if (pos < 0).any():
+    if not np.array_equal(got.confirmed, state.learned()):
         return False
-    was = np.zeros(state.n, bool)
-    was[pos] = df["confirmed"].to_numpy(bool)
-    if not np.array_equal(was, state.learned()):
-        return False
-    names = np.asarray(state.class_names, dtype=object)
-    rows = np.flatnonzero(was)
-    stored = pd.Series(df["label"].to_numpy(object), index=pos).loc[rows].to_numpy(object)
-    return bool((stored == names[state.confirmed[rows]]).all())
+    rows = np.flatnonzero(got.confirmed)
+    names = np.asarray(list(got.names) + [None], dtype=object)
+    stored = names[got.label[rows]]                  # -1 (nothing) takes the last: None
+    return bool((stored == np.asarray(state.class_names, dtype=object)[state.confirmed[rows]])
+                .all())
 
 
 def estimate_of(project) -> EstimateUpdate:
@@ -67,7 +62,8 @@ def spread_and_estimate(project, class_code: dict[str, int] | None, n: int, refr
                         more_waiting: Callable[[], bool] = lambda: False) -> None:
     """One run: spread the confirmations again (``refresh``) and hand the :class:`Proposals` to
     ``deliver`` (:class:`NamedProposals` when ``class_code`` is None); then, unless
-    ``more_waiting()``, the accuracy estimate as an :class:`EstimateUpdate`."""
+    ``more_waiting()``, the review queue drawn ahead of showing it (:class:`ReviewDraw`, see
+    :func:`draw_ahead`) and the accuracy estimate as an :class:`EstimateUpdate`."""
     t0 = time.perf_counter()
     project.reread()
     if refresh:
@@ -82,7 +78,23 @@ def spread_and_estimate(project, class_code: dict[str, int] | None, n: int, refr
         if got is None:
             return
     if not more_waiting():
+        drawn = draw_ahead(project)
+        if drawn is not None:
+            deliver(drawn)
+    if not more_waiting():
         deliver(estimate_of(project))
+
+
+def draw_ahead(project) -> ReviewDraw | None:
+    """The review queue the page would draw when the annotator asks for it, drawn now (off the
+    page); None without proposals or when it cannot be drawn (the page then draws it itself and
+    says why). Nothing is kept until the page shows it (``Project.show_review_draw``)."""
+    if project.proposals_run_id() is None:
+        return None
+    try:
+        return project.draw_review_queue()
+    except LabelerError:
+        return None
 
 
 # what travels between the page's process and the worker: a JSON header per message
@@ -96,8 +108,8 @@ def put(conn, head: dict, *arrays: np.ndarray) -> None:
 
 
 def encode(got) -> tuple[dict, tuple[np.ndarray, ...]]:
-    """A worker's result (NamedProposals, EstimateUpdate, None or an exception) as a header and
-    arrays for :func:`put`."""
+    """A worker's result (NamedProposals, ReviewDraw, EstimateUpdate, None or an exception) as a
+    header and arrays for :func:`put`."""
     if isinstance(got, NamedProposals):
         return ({"kind": "proposals", "names": list(got.names), "note": got.note},
                 (got.label.astype(np.int32), got.confidence.astype(np.float32),
@@ -105,6 +117,8 @@ def encode(got) -> tuple[dict, tuple[np.ndarray, ...]]:
     if isinstance(got, EstimateUpdate):
         return ({"kind": "estimate", "absent": got.absent,
                  "report": None if got.estimate is None else got.estimate.as_dict()}, ())
+    if isinstance(got, ReviewDraw):
+        return {"kind": "queue", "draw": got.as_dict()}, ()
     if got is None:
         return {"kind": "none"}, ()
     return {"kind": "error", "text": f"{type(got).__name__}: {got}"
@@ -125,6 +139,8 @@ def take(conn) -> object:
         rep = head["report"]
         return EstimateUpdate(None if rep is None else AccuracyReport.from_dict(rep),
                               head.get("absent"))
+    if kind == "queue":
+        return ReviewDraw.from_dict(head["draw"])
     if kind == "none":
         return None
     if kind == "error":
@@ -137,7 +153,8 @@ def take(conn) -> object:
 def serve_requests(requests, results, path: str) -> None:
     """The worker process's loop: each request ``{"seq", "refresh", "annotator"}`` becomes one run
     of :func:`spread_and_estimate` over a Project of its own on ``path``; requests waiting together
-    fold into one run. Sends "started", the proposals (or none), the estimate or an error (see
+    fold into one run. Sends "started", the proposals (or none), the review queue drawn ahead, the
+    estimate or an error (see
     :func:`encode`) and, when nothing waits, "idle" with the last request's number. Ends on a
     ``{"stop": true}`` request or when the serving process has gone (the pipe closed)."""
     from labeler.project import Project

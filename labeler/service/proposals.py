@@ -20,7 +20,7 @@ import numpy as np
 
 from labeler.errors import InputError
 from labeler.npzview import npz_arrays
-from labeler.results import ProposalRun
+from labeler.results import ProposalRun, ReviewDraw
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
 from labeler.service.ledger import Ledger
@@ -151,6 +151,11 @@ class Proposals:
                         classifier_features=Z, recording=rid, seq=seq)
 
     # ------------------------------------------------------------------ runs
+    def run_id(self) -> int | None:
+        """Id of the run that made the stored proposals (one small query), or None."""
+        meta = self.ctx.store.blob_meta(LATEST_BLOB)
+        return None if meta is None or meta.get("run_id") is None else int(meta["run_id"])
+
     def latest_arrays(self) -> dict | None:
         """The latest stored proposal arrays (npz) with their run, or None."""
         got = self.ctx.store.get_blob(LATEST_BLOB)
@@ -272,15 +277,39 @@ class Proposals:
                      random_state=None) -> pd.DataFrame:
         """:meth:`review_rows` as a table: window_id, reason, score, proposed, confidence,
         recording, start_s."""
+        rows = self.review_rows(n, exclude=exclude, random_state=random_state)
+        return self.queue_frame(rows)
+
+    @staticmethod
+    def queue_frame(rows) -> pd.DataFrame:
+        """Rows of a review queue as its table."""
         import pandas as pd
 
-        rows = self.review_rows(n, exclude=exclude, random_state=random_state)
-        df = pd.DataFrame(rows, columns=QUEUE_COLUMNS)
+        df = pd.DataFrame(list(rows), columns=QUEUE_COLUMNS)
         return df.astype({"window_id": np.int64, "score": np.float64, "confidence": np.float64,
                           "start_s": np.float64})
 
     def review_rows(self, n: int = 50, *, exclude: np.ndarray | None = None,
                     random_state=None) -> list[dict]:
+        """:meth:`draw_review` with its draws kept at once (see there)."""
+        drawn = self.draw_review(n, exclude=exclude, random_state=random_state)
+        self.keep_draws(drawn)
+        return [dict(r) for r in drawn.rows]
+
+    def queue_mark(self, exclude: np.ndarray | None = None) -> str:
+        """The state a review queue is drawn in: the proposal run, the newest label event, the
+        windows and the windows left out (an open audit). One state gives one queue."""
+        ex = np.unique(np.empty(0, np.int64) if exclude is None else np.asarray(exclude, np.int64))
+        return (f"{self.run_id()}:{self.ctx.store.last_event_id()}:{self.catalog.n_windows()}:"
+                + hashlib.sha256(ex.astype("<i8").tobytes()).hexdigest()[:12])
+
+    def keep_draws(self, drawn: ReviewDraw) -> None:
+        """Keep the random draws of a queue being shown, for the accuracy estimate's weights."""
+        if drawn.draws and not self.ctx.store.readonly:
+            self.ctx.store.add_queue_draws(drawn.run_id, self.ctx.annotator, drawn.draws)
+
+    def draw_review(self, n: int = 50, *, exclude: np.ndarray | None = None,
+                    random_state=None) -> ReviewDraw:
         """Windows to look at next, one dict each: window_id, reason (conflict, disagreement,
         uncertain, unexplored), score, proposed label and its confidence (None and NaN before
         proposals), recording, start_s. Uses the latest proposals; before
@@ -288,7 +317,7 @@ class Proposals:
         (drawn into an open audit). Windows are drawn at random (``QUEUE_POWER``, see
         :mod:`labeler.review`; the seed follows the run and the label history unless
         ``random_state`` is given, so one state gives one list) and each draw's probability is
-        stored for the accuracy estimate."""
+        stored for the accuracy estimate by :meth:`keep_draws` (:meth:`review_rows` at once)."""
         from labeler.review import review_queue as _queue
         from labeler.outputs import WindowOutputs
 
@@ -297,6 +326,7 @@ class Proposals:
         if self.catalog.n_windows() < 2:
             raise InputError(f"{self.ctx.path}: the project has fewer than 2 windows; add "
                              "recordings first")
+        mark = self.queue_mark(exclude)  # before reading: a change meanwhile makes it stale
         W, key = self.queue_graph(self.graph_params())
         p = self.latest_arrays()
         if p is not None and p["meta"].get("graph_key") == key and "seq" in p:
@@ -325,11 +355,9 @@ class Proposals:
                    sample_power=QUEUE_POWER, sample_floor=QUEUE_FLOOR, random_state=seed,
                    symmetric=True)  # build_graph's graphs are symmetric
         drawn = q.pool > 1  # drawn by chance, not shown first by rule
-        if drawn.any() and not self.ctx.store.readonly:
-            run = None if p is None else p["meta"].get("run_id")
-            self.ctx.store.add_queue_draws(run, self.ctx.annotator,
-                                           zip(ids[q.index[drawn]], q.probability[drawn],
-                                               q.pool[drawn]))
+        run = None if p is None else p["meta"].get("run_id")
+        draws = tuple((int(w), float(pr), int(m)) for w, pr, m in
+                      zip(ids[q.index[drawn]], q.probability[drawn], q.pool[drawn]))
         names = self.ledger.class_names()
         recordings = {r["id"]: r["name"] for r in self.ctx.store.recordings()}
         starts = self.ctx.store.window_starts(ids[q.index].tolist())  # the shown windows only
@@ -341,4 +369,6 @@ class Proposals:
                 "confidence": float("nan") if outputs is None else float(outputs.confidence[i]),
                 "recording": recordings[int(rid[i])],
                 "start_s": float(starts[int(ids[i])])})
-        return rows
+        return ReviewDraw(rows=tuple(rows), draws=draws,
+                          run_id=None if run is None else int(run),
+                          mark=mark)
