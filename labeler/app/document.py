@@ -172,6 +172,8 @@ class LabelerApp(Actions):
                                                         code=static("keys.js")))
         self.header = Div(text=self._header_html(), sizing_mode="stretch_width", name="header",
                           stylesheets=[self.css])
+        self.doc.js_on_event("document_ready", CustomJS(args={"div": self.header},
+                                                        code=static("text_in_place.js")))
         self.caution = Div(text=words.caution(), sizing_mode="stretch_width", name="caution",
                            stylesheets=[self.css])
         left = column(self.map.bar, self.map.fig, self.signal.box, sizing_mode="stretch_width",
