@@ -498,18 +498,36 @@ def _logistic_curve(ux, uw, uk, prior_strength, at=_GRID):
     """``1 / (1 + exp(-(a + b logit(at))))`` with ``(a, b)`` the maximum a posteriori fit of
     ``uk`` right answers out of ``uw`` at ``logit(ux)`` under a Gaussian prior of precision
     ``prior_strength`` around ``(0, 1)`` (Newton's method; without a prior, a tiny precision
-    keeps a fit where every answer is right finite)."""
+    keeps a fit where every answer is right finite). A Newton step that lowers the posterior is
+    halved until it does not (a plain Newton step can overshoot and swing between two points for
+    ever, e.g. when wrong answers sit at the highest confidences); the posterior is concave, so
+    the damped steps reach its one maximum."""
     z = _logit(ux)
     X = np.column_stack([np.ones_like(z), z])
     lam = float(prior_strength) if prior_strength > 0 else 1e-8
     prior = np.array([0.0, 1.0])
+    eye = lam * np.eye(2)
+
+    def log_posterior(theta):
+        eta = X @ theta
+        d = theta - prior
+        return float(uk @ eta - uw @ np.logaddexp(0.0, eta) - 0.5 * lam * (d @ d))
+
     th = prior.copy()
+    value = log_posterior(th)
     for _ in range(100):
         p = 1.0 / (1.0 + np.exp(-np.clip(X @ th, -35, 35)))
         g = X.T @ (uk - uw * p) - lam * (th - prior)
-        H = (X * (uw * p * (1 - p))[:, None]).T @ X + lam * np.eye(2)
+        H = (X * (uw * p * (1 - p))[:, None]).T @ X + eye
         step = np.linalg.solve(H, g)
-        th += step
+        for _ in range(60):
+            new = log_posterior(th + step)
+            # rounding may make a converged step look a hair worse: that step is kept
+            if new >= value - 1e-12 * (1.0 + abs(value)):
+                break
+            step = step / 2
+        th = th + step
+        value = new
         if np.abs(step).max() < 1e-10:
             break
     a, b = th[0], max(th[1], 0.0)

@@ -111,6 +111,36 @@ def test_logistic_calibrator_without_prior_is_scikit_learn_logistic_regression()
     assert np.all(np.isfinite(sure)) and sure.max() < 1 and sure.min() > grid.min()
 
 
+def test_logistic_calibrator_reaches_the_maximum_where_plain_newton_steps_swing():
+    # Wrong answers at the highest confidences and right ones spread below: plain Newton steps
+    # from (0, 1) swing between two points far from the maximum. Reference: the same penalized
+    # log-likelihood (Bernoulli log-likelihood in the log-odds of the confidence, Gaussian prior
+    # of precision 1 around (0, 1); Platt 1999 with a prior) maximized by
+    # scipy.optimize.minimize (BFGS).
+    from scipy.optimize import minimize
+
+    right = [0.9999, 0.7348, 0.9996, 0.99996, 0.99987, 0.99993, 0.99982, 0.99999, 0.99998,
+             0.99987, 0.99999, 0.5362, 0.99967, 0.9681, 0.99995, 0.99842, 0.99999, 0.99551,
+             0.99935, 0.9974, 0.99952, 0.99972, 0.99973, 0.99994]
+    wrong = [0.99738, 0.99982, 0.99997, 0.99805, 0.97473, 0.99376]
+    x = np.array(right + wrong)
+    c = np.r_[np.ones(len(right)), np.zeros(len(wrong))]
+    cal = ConfidenceCalibrator(prior_strength=1.0).fit(x, c)
+    xc = np.clip(x, 1e-4, 1 - 1e-4)  # the calibrator's log-odds stop at 1e-4 from 0 and 1
+    z = np.log(xc / (1 - xc))
+
+    def loss(t):
+        eta = t[0] + t[1] * z
+        return -(c @ eta - np.logaddexp(0.0, eta).sum()) + 0.5 * ((t - [0.0, 1.0]) ** 2).sum()
+
+    a, b = minimize(loss, [0.0, 1.0], method="BFGS", options={"gtol": 1e-10}).x
+    grid = np.arange(60, 200) / 200  # knots of the stored map (201 from 0 to 1): exact there
+    want = 1 / (1 + np.exp(-(a + b * np.log(grid / (1 - grid)))))
+    np.testing.assert_allclose(cal.predict(grid), want, atol=1e-6)
+    # 6 of 30 wrong, all sure: the calibrated confidence of a sure proposal is near 0.8, not 1
+    assert 0.7 < cal.predict([0.9999])[0] < 0.9
+
+
 def test_calibrator_follows_the_parameter_protocol_of_scikit_learn():
     # sklearn.base.clone copies an estimator through get_params (scikit-learn developer guide)
     from sklearn.base import clone

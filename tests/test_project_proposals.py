@@ -1,5 +1,7 @@
 """Proposals through Project and the CLI: runs, cached graph, warm start, queue, audit, estimate."""
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from click.testing import CliRunner
@@ -315,3 +317,36 @@ def test_a_queue_drawn_ahead_is_the_queue_of_its_state_and_kept_only_when_shown(
     assert newer and newer <= set(fresh["window_id"])
     assert not ({w_ for w_, _q, _m in stale.draws} - set(fresh["window_id"])) & newer
     assert {w_ for w_, _q, _m in stale.draws} - set(fresh["window_id"])
+
+
+def test_accuracy_with_an_answered_audit_reads_the_stored_estimate_without_heavy_imports(
+        project, sims):
+    # the figure as the Python API gives it, printed by `labeler accuracy` in a new process that
+    # imports neither pandas nor scipy nor scikit-learn (their start-up alone exceeds a second
+    # on a loaded machine; common practice, no source)
+    import json
+    import subprocess
+    import sys
+
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(40)["window_id"], truth)
+    p.refresh_proposals()
+    a = p.draw_audit(12, random_state=3)
+    confirm_truth(p, a["window_id"], truth, source="audit")
+    want = p.accuracy_estimate()  # stores the run's part, as `labeler propose` does
+    assert want.audit_runs and "audit" in want.basis
+    path = str(p.path)
+    p.close()
+    code = ("import json, sys\nfrom labeler.cli import main\n"
+            "try:\n    main(['accuracy', sys.argv[1]])\nexcept SystemExit as e:\n"
+            "    assert not e.code, e.code\n"
+            "heavy = sorted({m.split('.')[0] for m in sys.modules} & {'pandas', 'scipy', 'sklearn'})\n"
+            "print(json.dumps(heavy))\n")
+    here = Path(__file__).resolve().parents[1]  # this checkout's labeler, not an installed one
+    out = subprocess.run([sys.executable, "-c", code, path], check=True, capture_output=True,
+                         text=True, cwd=here).stdout.splitlines()
+    assert json.loads(out[-1]) == []
+    assert out[0].startswith(f"accuracy of proposed windows {want.value:.3f} ("
+                             f"{want.level:.0%} interval {want.low:.3f}-{want.high:.3f})")
+    assert out[-2] == f"  rests on: {want.note}" and "12 window(s)" in want.note

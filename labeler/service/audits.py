@@ -34,8 +34,9 @@ if TYPE_CHECKING:  # pandas is imported where a table is made
 AUDIT_COLUMNS = ["id", "run_id", "window_id", "position", "drawn_at", "drawn_by",
                  "proposed_class_id", "confidence", "stratum", "stratum_size"]
 ESTIMATE_BLOB = "proposals/estimate"
-#: Form of the stored part of the estimate; a part stored in another form is computed again.
-ESTIMATE_FORM = 3
+#: Form of the stored part of the estimate; a part stored in another form is computed again
+#: (4: the logistic calibration's Newton steps damped, so a fit that swung is fitted again).
+ESTIMATE_FORM = 4
 
 
 class Audits:
@@ -139,14 +140,31 @@ class Audits:
                                         run_id=int(run["id"]))
         return self._report(run, part)
 
-    def _latest_audit(self, run_id: int) -> pd.DataFrame:
+    def _latest_audit(self, run_id: int) -> list[dict]:
         """Answered windows of the latest audit drawn from run ``run_id`` or before ("not sure"
-        left out: it says nothing about the proposal)."""
-        a = self.status()
-        done = a[a["answer"].notna() & (a["answer"] != ANSWERS["unsure"]) & (a["run_id"] <= run_id)]
-        if not len(done):
+        left out: it says nothing about the proposal), windows of removed recordings left out:
+        window_id, run_id, answer (class name), stratum, stratum_size of each, in the order
+        drawn. Read without pandas and without the window table (`labeler accuracy` reads it)."""
+        drawn = [r for r in self.ctx.store.audits() if int(r["run_id"]) <= run_id]
+        if not drawn:
+            return []
+        named = self.ctx.store.window_names(r["window_id"] for r in drawn)
+        cur = {int(w): int(c) for w, c, *_ in self.ctx.store.current_labels()}
+        names = self.ledger.class_names()
+        done = []
+        for r in drawn:
+            wid = int(r["window_id"])
+            if wid not in named or named[wid][2] or wid not in cur:
+                continue
+            answer = names.get(cur[wid])
+            if answer is None or answer == ANSWERS["unsure"]:
+                continue
+            done.append({"window_id": wid, "run_id": int(r["run_id"]), "answer": answer,
+                         "stratum": r["stratum"], "stratum_size": r["stratum_size"]})
+        if not done:
             return done
-        return done[done["run_id"] == int(done["run_id"].max())]
+        last = max(r["run_id"] for r in done)
+        return [r for r in done if r["run_id"] == last]
 
     def compute(self, run: dict) -> dict:
         """The slow part of the estimate of ``run`` (the latest proposal run; see the module
@@ -187,7 +205,7 @@ class Audits:
             ok = (pos < ids.size) & (ids[np.minimum(pos, ids.size - 1)] == wb)
             batch[pos[ok]] = code[ok]
         audit = self._latest_audit(int(run["id"]))
-        in_audit = np.isin(ids, audit["window_id"].to_numpy(np.int64)) & (y >= 0)
+        in_audit = np.isin(ids, np.array([r["window_id"] for r in audit], dtype=np.int64)) & (y >= 0)
         # the proposer as the run used it: the held-out folds score the proposals it stored
         spreader = self.proposals.proposer(float(run["params"]["alpha"]),
                                            float(run["params"].get("classifier_weight", 0.0)), key,
@@ -220,15 +238,15 @@ class Audits:
         conf = p["confidence"].astype(np.float64)
         rows, n_held = [], 0  # (correct, confidence, stratum, stratum size)
         # no audit drawn: nothing to read (keeps `labeler accuracy` quick in a large project)
-        d = self._latest_audit(int(run["id"])) if self.ctx.store.audits() else None
-        if d is not None:
-            pos = np.searchsorted(ids, d["window_id"].to_numpy(np.int64))
+        d = self._latest_audit(int(run["id"]))
+        if d:
+            pos = np.searchsorted(ids, np.array([r["window_id"] for r in d], dtype=np.int64))
             pos = np.minimum(pos, max(ids.size - 1, 0))
-            unconfirmed = {int(w): (int(p["label"][i]), float(conf[i]))
-                           for w, i in zip(d["window_id"], pos) if ids[i] == w and y[i] < 0}
+            unconfirmed = {int(r["window_id"]): (int(p["label"][i]), float(conf[i]))
+                           for r, i in zip(d, pos) if ids[i] == r["window_id"] and y[i] < 0}
             code = {str(v): int(k) for k, v in self.ledger.class_names().items()}
-            for r in d.itertuples(index=False):
-                wid = int(r.window_id)
+            for r in d:
+                wid = r["window_id"]
                 if wid in held:  # the run learned from it: scored by proposals made without it
                     lab_, c_ = held[wid]
                     n_held += 1
@@ -237,8 +255,8 @@ class Audits:
                 else:
                     continue
                 # "mixed" counts against the proposal: it gave one activity to a window of two
-                right = r.answer != ANSWERS["mixed"] and lab_ == code.get(str(r.answer), -1)
-                rows.append((right, c_, r.stratum, r.stratum_size, int(r.run_id)))
+                right = r["answer"] != ANSWERS["mixed"] and lab_ == code.get(str(r["answer"]), -1)
+                rows.append((right, c_, r["stratum"], r["stratum_size"], r["run_id"]))
         audit, audit_cal, audit_runs = None, None, ()
         if rows:
             from labeler.estimate import audit_accuracy
