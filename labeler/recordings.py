@@ -361,7 +361,11 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     # ---- values, column-major: every check and repair runs channel by channel
     values = np.empty((len(channels), len(frame)), dtype=np.float64).T
     for j, c in enumerate(sensor_cols):
-        values[:, j] = _numeric_column(frame[c], where, c, first_row)
+        col = frame[c]
+        if isinstance(col.dtype, np.dtype) and col.dtype.kind == "f":  # cast in place, no copy
+            values[:, j] = col.to_numpy()
+        else:
+            values[:, j] = _numeric_column(col, where, c, first_row)
     for j, c in enumerate(channels):
         if np.isnan(values[:, j]).all():
             raise InputError(f"{where}: column {sensor_cols[j]!r} holds no values; drop the column")
@@ -429,16 +433,18 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
                    block=max(8, int(round(fs))))
     for j, c in enumerate(channels):
         col = values[:, j]
-        finite = col[~np.isnan(col)]
-        bad = np.flatnonzero(np.abs(finite) > ABSURD[kinds[j]] / factors[j])
-        if bad.size or np.isinf(finite).any():
-            row = int(np.flatnonzero(~np.isnan(col))[bad[0] if bad.size else
-                                                     np.flatnonzero(np.isinf(finite))[0]])
+        limit = ABSURD[kinds[j]] / factors[j]
+        # the largest and smallest value, NaN left out (two passes, no copies): an infinite value
+        # is beyond the limit too
+        if not (np.fmax.reduce(col) <= limit and np.fmin.reduce(col) >= -limit):
+            row = int(np.flatnonzero(np.abs(col) > limit)[0])  # NaN compares false
             raise InputError(
                 f"{where}: row {row + first_row}, column {sensor_cols[j]!r}: value {col[row]:g} is "
                 f"beyond any body-worn sensor in {units[c]}; check the column's unit (e.g. "
                 f"{channels[j]}[{'m/s2' if kinds[j] == 'acc' else 'rad/s'}]) or the data")
-    values *= np.asarray(factors)[None, :]
+    for j, f in enumerate(factors):
+        if f != 1.0:
+            values[:, j] *= f
     converted = sorted({units[c] for c in channels} - set(CANONICAL_UNITS.values()))
     if converted:
         repairs.append("converted " + ", ".join(converted) + " to g and deg/s")
@@ -545,14 +551,16 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
     nan = np.empty((c, n), dtype=bool)
     for j in range(c):
         np.isnan(values[:, j], out=nan[j])
+    has_nan = [bool(nan[j].any()) for j in range(c)]  # per channel, after the fill below
     # 1. short runs of missing values: interpolate in time between the run's two neighbours
-    if nan.any():
+    if any(has_nan):
         max_fill = max(1, int(round(max_fill_s * fs)))
         filled = 0
         for j in range(c):  # loop over channels
-            if nan[j].any():
+            if has_nan[j]:
                 filled += _fill_short_runs(t, values[:, j], max_fill)
                 np.isnan(values[:, j], out=nan[j])
+                has_nan[j] = bool(nan[j].any())
         if filled:
             repairs.append(f"filled {filled} missing values (runs up to {max_fill_s:g} s)")
     row_ok = ~nan.any(axis=0)
@@ -576,7 +584,7 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         # every valid point, what interpolating over the complete rows alone gives (the arithmetic
         # of numpy.interp), except NaN where a point within rounding of a row is followed by a
         # missing value: such a point takes its row.
-        left = np.clip(np.searchsorted(t, grid, side="right") - 1, 0, n - 1)
+        left = np.clip(_rows_at_or_before(t, grid, fs) - 1, 0, n - 1)
         right = np.minimum(left + 1, n - 1)
         exact = np.abs(t[left] - grid) <= 1e-9 * max(1.0, abs(t[-1]))
         valid = row_ok[left] & (exact | row_ok[right])
@@ -590,11 +598,11 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
             v = y[hi] - y_lo
             v /= span
             v *= offset
-            v += y_lo
-            # a point within rounding of a complete row that a missing value follows
-            on_row = np.flatnonzero(np.isnan(v) & valid)
-            v[on_row] = y[left[on_row]]
-            out[j] = v
+            np.add(v, y_lo, out=out[j])  # in float64, rounded once to float32 on the way out
+            if has_nan[j]:
+                # a point within rounding of a complete row that a missing value follows
+                on_row = np.flatnonzero(np.isnan(out[j]) & valid)
+                out[j, on_row] = y[left[on_row]]
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
         short = int(np.count_nonzero((dt > 1.5 * nominal) & (dt <= max(max_gap_s, 1.5 * nominal))))
@@ -620,6 +628,26 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         if not any("gaps" in r for r in repairs):
             repairs.append(f"kept {kept} run(s) of missing values as gaps")
     return out.T, valid
+
+
+def _rows_at_or_before(t: np.ndarray, grid: np.ndarray, fs: float) -> np.ndarray:
+    """For each point of ``grid`` (``grid[0] + k / fs``, ascending), how many of the ascending
+    times ``t`` are at or before it: ``numpy.searchsorted(t, grid, side="right")``, in linear
+    time. Each time's first grid point at or after it comes from its position on the grid,
+    rounded up and then corrected against the grid's own values (so rounding in the position
+    cannot move a time to the wrong side of a grid point); the counts are the running sum."""
+    m = grid.size
+    first = np.ceil((t - grid[0]) * fs)
+    np.clip(first, 0, m, out=first)
+    first = first.astype(np.int64)
+    while True:  # rounding leaves a position one off at most; repeated until none is
+        down = (first > 0) & (grid[np.maximum(first - 1, 0)] >= t)
+        up = (first < m) & (grid[np.minimum(first, m - 1)] < t)
+        if not (down.any() or up.any()):
+            break
+        first -= down
+        first += up
+    return np.cumsum(np.bincount(first, minlength=m + 1)[:m])
 
 
 def _fill_short_runs(t: np.ndarray, column: np.ndarray, max_fill: int) -> int:

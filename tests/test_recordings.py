@@ -194,3 +194,24 @@ def test_clock_within_rounding_of_the_grid_keeps_every_valid_sample_finite():
     assert np.isfinite(rec.signal[rec.valid]).all()
     assert rec.valid[999] and not rec.valid[1000:1101].any() and rec.valid[1101]
     assert not rec.valid[2000:2200].any() and rec.valid[2200:].all()
+
+
+def test_rows_at_or_before_each_grid_point_as_numpy_searchsorted_counts():
+    # reference: numpy.searchsorted(t, grid, side="right"), on jittered clocks, clocks within
+    # rounding of the grid, pauses, Unix-time origins and rates whose step 1/fs is not exact
+    from labeler.recordings import _rows_at_or_before
+
+    rng = np.random.default_rng(11)
+    for trial in range(120):
+        n = int(rng.integers(2, 2000))
+        fs = float(rng.choice([1.0, 12.5, 33.3, 50.0, 100.0, 1000.0]))
+        t0 = rng.uniform(1.6e9, 1.8e9) if trial % 3 == 0 else rng.uniform(0, 100)
+        k = np.sort(rng.choice(2 * n, n, replace=False)).astype(float)  # rows missing: pauses
+        if trial % 2:
+            shake = rng.uniform(-0.45, 0.45, n) / fs
+        else:
+            shake = rng.uniform(-1e-11, 1e-11, n) if trial % 4 == 2 else np.zeros(n)
+        t = np.unique(t0 + k / fs + shake)
+        grid = t[0] + np.arange(int(math.floor((t[-1] - t[0]) * fs + 1e-6)) + 1) / fs
+        np.testing.assert_array_equal(_rows_at_or_before(t, grid, fs),
+                                      np.searchsorted(t, grid, side="right"))
