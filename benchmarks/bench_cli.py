@@ -4,7 +4,9 @@
 Builds a project of simulated recordings (the demo scenario, several pickers: 5 x 8 h is about
 112k windows), confirms 20 windows of each activity from the simulator's truth in a few batches,
 proposes once and asks for the accuracy estimate (so that the graph, the proposals and the
-estimate are stored, as after `labeler propose`), and then runs each command as a new process
+estimate are stored, as after `labeler propose`); a copy of it gets a blind audit of 30 windows
+answered from the simulator's truth (so `accuracy` reads the answers too, the slow path before).
+Then it runs each command as a new process
 (`python -m labeler.cli ...`), best of ``--repeats``. Beside each time it prints the peers: a bare
 start of Python (`python -c pass`), Python opening SQLite (`import sqlite3`) and Python with numpy
 imported; the CPU time (user + system) of each, which stays near the command's cost when the
@@ -13,6 +15,7 @@ shared machine is loaded; how much of the command is spent importing modules (fr
 command under 0.5 s.
 
 Run: python benchmarks/bench_cli.py [--recordings 5] [--hours 8] [--repeats 3] [--keep FILE]
+(--keep keeps FILE and its audited copy FILE.audited beside it, and reuses them when there)
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ import argparse
 import os
 import re
 import resource
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -30,10 +34,15 @@ from pathlib import Path
 import numpy as np
 
 GOAL = 0.5
-COMMANDS = (["status"], ["queue"], ["history"], ["accuracy"])
+COMMANDS = (["status"], ["queue"], ["history"], ["accuracy"], ["accuracy", "audited"])
+AUDIT = 30
 PEERS = (("python -c pass", "pass"), ("python -c 'import sqlite3'", "import sqlite3"),
          ("python -c 'import numpy'", "import numpy"))
 HEAVY = ("pandas", "scipy", "sklearn", "pyarrow")
+
+
+def audited(path: Path) -> Path:
+    return path.with_name(path.name + ".audited")
 
 
 def build(path: Path, recordings: int, hours: float) -> int:
@@ -61,9 +70,27 @@ def build(path: Path, recordings: int, hours: float) -> int:
                 project.confirm(pick.tolist(), activity, source="cli", create_class=True)
         project.refresh_proposals()
         project.accuracy_estimate()  # stored with the run, as `labeler propose` does
-        return len(w)
     finally:
         project.close()
+    # the copy with a blind audit answered from the truth
+    shutil.copyfile(path, audited(path))
+    project = Project.open(audited(path), annotator="bench")
+    try:
+        drawn = project.draw_audit(AUDIT, random_state=0)
+        for name, truth in truths.items():
+            sub = w[w["recording"] == name].set_index("id")
+            ids = drawn.loc[drawn["recording"] == name, "window_id"].to_numpy()
+            labels = window_truth(truth, sub.loc[ids, "start_s"].to_numpy(),
+                                  sub.loc[ids, "stop_s"].to_numpy())
+            for wid, activity in zip(ids, labels):
+                if activity is None:  # no activity covers it: the annotator would say so
+                    project.answer([int(wid)], "unsure", source="audit")
+                else:
+                    project.confirm([int(wid)], str(activity), source="audit", create_class=True)
+        project.accuracy_estimate()
+    finally:
+        project.close()
+    return len(w)
 
 
 def run(args: list[str], env: dict) -> tuple[float, float]:
@@ -106,7 +133,7 @@ def main() -> None:
     env.pop("PYTHONDONTWRITEBYTECODE", None)
     with tempfile.TemporaryDirectory() as tmp:
         path = args.keep or Path(tmp) / "bench.labeler"
-        if not path.exists():
+        if not (path.exists() and audited(path).exists()):
             t0 = time.perf_counter()
             n = build(path, args.recordings, args.hours)
             print(f"project: {n} windows ({args.recordings} simulated recordings of {args.hours:g} h), "
@@ -121,11 +148,11 @@ def main() -> None:
             print(f"peer {name:<28} {peers[name]:5.2f} s  (CPU {cpus[name]:.2f} s)")
         bare = peers["python -c pass"]
         for cmd in COMMANDS:
-            argv = ["-m", "labeler.cli", *cmd, str(path)]
+            argv = ["-m", "labeler.cli", cmd[0], str(audited(path) if "audited" in cmd else path)]
             run(argv, env)  # writes the bytecode cache
             wall, cpu = best(argv, env, args.repeats)
             imp, heavy = import_seconds(argv, env)
-            print(f"labeler {' '.join(cmd):<8} {wall:5.2f} s  (CPU {cpu:.2f} s; imports {imp:.2f} s, "
+            print(f"labeler {' '.join(cmd):<17} {wall:5.2f} s  (CPU {cpu:.2f} s; imports {imp:.2f} s, "
                   f"heavy: {', '.join(heavy) or 'none'}; {wall / bare:.1f}x python -c pass, "
                   f"{wall / peers[PEERS[1][0]]:.1f}x import sqlite3; goal < {GOAL} s: "
                   f"{'met' if wall < GOAL else 'MISSED'})")

@@ -6,6 +6,11 @@ by ``numpy.savez`` (members stored, not deflated) holds each array's bytes in on
 arrays can be read-only views of the archive's bytes (copied where a member's numbers do not
 start on a multiple of their size). Anything else (deflated members, object
 arrays) goes through ``numpy.load``.
+
+:func:`npz_bytes` writes such an archive with every member's numbers starting on a multiple of
+64 bytes (a padding record in each member's extra field), so none needs the copy: the project's
+blobs are written with it, and ``numpy.load`` (and ``scipy.sparse.load_npz``) read them as any
+``.npz``.
 """
 
 from __future__ import annotations
@@ -13,10 +18,13 @@ from __future__ import annotations
 import io
 import struct
 import zipfile
+from typing import Mapping
 
 import numpy as np
 
 _LOCAL_HEADER = 30  # bytes of a zip member's local header before its name and extra field
+ALIGN = 64          # numpy pads an array's header to a multiple of this, so numbers follow aligned
+_PAD_ID = 0x6C62    # the extra-field record that only pads (an id no zip tool assigns meaning to)
 
 
 class _NotStored(Exception):
@@ -30,6 +38,26 @@ def npz_arrays(data: bytes) -> dict[str, np.ndarray]:
     except (_NotStored, ValueError, KeyError, struct.error, zipfile.BadZipFile):
         with np.load(io.BytesIO(data), allow_pickle=False) as z:
             return {k: z[k] for k in z.files}
+
+
+def npz_bytes(arrays: Mapping[str, object]) -> bytes:
+    """The ``.npz`` archive of ``arrays`` (what ``numpy.savez(buf, **arrays)`` holds: members
+    ``NAME.npy``, stored), each member's numbers starting on a multiple of 64 bytes of the
+    archive, so that :func:`npz_arrays` reads every one as a view."""
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+        for name, value in arrays.items():
+            member = io.BytesIO()
+            np.lib.format.write_array(member, np.asanyarray(value), allow_pickle=False)
+            info = zipfile.ZipInfo(f"{name}.npy", date_time=(1980, 1, 1, 0, 0, 0))
+            info.compress_type = zipfile.ZIP_STORED
+            # the member's bytes follow its local header, name and extra field; numpy's header
+            # inside the member is a multiple of ALIGN long already
+            start = buf.tell() + _LOCAL_HEADER + len(info.filename.encode("utf-8")) + 4
+            pad = -start % ALIGN
+            info.extra = struct.pack("<HH", _PAD_ID, pad) + bytes(pad)
+            zf.writestr(info, member.getbuffer())
+    return buf.getvalue()
 
 
 def _views(data: bytes) -> dict[str, np.ndarray]:

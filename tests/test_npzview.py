@@ -61,3 +61,33 @@ def test_members_at_any_offset_come_back_aligned_and_equal():
         np.testing.assert_array_equal(got, a)
         misaligned += data.find(npy.getvalue()) % 8 != 0
     assert misaligned  # the copying branch was taken
+
+
+def test_written_archives_read_back_as_views_by_numpy_load_and_scipy_sparse():
+    from labeler.npzview import npz_bytes
+
+    rng = np.random.default_rng(1)
+    arrays = {"ids": np.arange(1001, dtype=np.int64), "F": rng.random((1001, 7), np.float32),
+              "fortran": np.asfortranarray(rng.random((5, 3))), "scalar": np.float64(2.5),
+              "empty": np.empty((0, 4), np.int32), "text": np.array(b"csr"),
+              "a_much_longer_member_name": np.arange(3, dtype=np.int16),
+              "names": np.array(["a", "bc"])}
+    data = npz_bytes(arrays)
+    whole = np.frombuffer(data, dtype=np.uint8)
+    got = npz_arrays(data)
+    with np.load(io.BytesIO(data), allow_pickle=False) as z:  # the reference reader
+        assert set(z.files) == set(got) == set(arrays)
+        for k in z.files:
+            assert got[k].dtype == z[k].dtype and got[k].shape == z[k].shape, k
+            np.testing.assert_array_equal(got[k], z[k])
+            np.testing.assert_array_equal(z[k], np.asarray(arrays[k]))
+            # a view of the archive's bytes, aligned: no copy was needed
+            assert got[k].flags.aligned and (got[k].size == 0 or np.shares_memory(got[k], whole)), k
+    # as numpy.savez writes them, some members of the same arrays needed copies
+    plain = np.frombuffer(plain_data := _archive(np.savez, **arrays), dtype=np.uint8)
+    assert not all(v.size == 0 or np.shares_memory(v, plain) for v in npz_arrays(plain_data).values())
+    W = sparse.random(40, 30, density=0.2, format="csr", random_state=2)
+    blob = npz_bytes({"indices": W.indices, "indptr": W.indptr, "format": b"csr",
+                      "shape": W.shape, "data": W.data})
+    back = sparse.load_npz(io.BytesIO(blob))
+    assert back.format == "csr" and back.shape == W.shape and (back != W).nnz == 0

@@ -19,7 +19,7 @@ import time
 import numpy as np
 
 from labeler.errors import InputError
-from labeler.npzview import npz_arrays
+from labeler.npzview import npz_arrays, npz_bytes
 from labeler.results import ProposalRun, ReviewDraw
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context, Progress
@@ -88,11 +88,16 @@ class Proposals:
         W = build_graph(X, recording=rid, seq=seq, n_neighbors=params["n_neighbors"],
                         temporal_weight=params["temporal_weight"],
                         pca_components=pca if pca and pca < X.shape[1] else None)
-        buf = io.BytesIO()
         from scipy import sparse
 
-        sparse.save_npz(buf, W, compressed=False)  # read on every queue: no inflating
-        self.ctx.store.put_blob(GRAPH_BLOB, buf.getvalue(), {"key": key, **params})
+        W = W.tocsr()
+        # what scipy.sparse.save_npz(compressed=False) writes, its arrays aligned: read on every
+        # queue, as views (no inflating, no copies)
+        arrays = dict(indices=W.indices, indptr=W.indptr, format=W.format.encode("ascii"),
+                      shape=W.shape, data=W.data)
+        if isinstance(W, sparse.sparray):
+            arrays["_is_array"] = True
+        self.ctx.store.put_blob(GRAPH_BLOB, npz_bytes(arrays), {"key": key, **params})
         self.ctx.cache["graph"] = (W, key)
         return W, key, True
 
@@ -229,20 +234,19 @@ class Proposals:
                                f"(Rabiner 1989) with stay probability {stay:g}" if stay > 0
                                else ""),
                   "graph_key": key}
-        buf = io.BytesIO()
         rid, seq = self.catalog.window_sequence()  # kept with the run: the queue reads no windows
-        np.savez(buf, window_id=self.catalog.windows()["id"].to_numpy(np.int64),
-                 recording_id=rid, seq=seq,
-                 F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
-                 label=out.label, confidence=out.confidence.astype(np.float32),
-                 margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
-                 conflict=out.conflict.astype(np.float32), y=y,
-                 reference=np.asarray(reference, dtype=np.float32))
+        latest = npz_bytes(dict(
+            window_id=self.catalog.windows()["id"].to_numpy(np.int64), recording_id=rid, seq=seq,
+            F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
+            label=out.label, confidence=out.confidence.astype(np.float32),
+            margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
+            conflict=out.conflict.astype(np.float32), y=y,
+            reference=np.asarray(reference, dtype=np.float32)))
         summary["seconds"] = round(time.perf_counter() - t0, 3)
         store = self.ctx.store
         with store.atomic():
             run_id = store.add_run("proposals", params, summary, created_by=self.ctx.annotator)
-            store.put_blob(LATEST_BLOB, buf.getvalue(),
+            store.put_blob(LATEST_BLOB, latest,
                            {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
         self.ctx.invalidate("proposals")
         if progress:
