@@ -30,7 +30,7 @@ REASON_WORDS = {
     "conflict": "confirmed, but its neighbours point to another class — check the label",
     "disagreement": "annotators gave it different labels",
     "uncertain": "the proposal is unsure between two classes",
-    "unexplored": "nothing confirmed nearby yet",
+    "unexplored": "few confirmations reach it, so its proposal is a guess from afar",
 }
 
 COLOUR_HINTS = {
