@@ -47,6 +47,7 @@ from labeler.graph import build_graph
 from labeler.review import review_queue
 from labeler.service.proposals import QUEUE_FLOOR, QUEUE_POWER
 from labeler.proposing import DEFAULT_CLASSIFIER_WEIGHT, DEFAULT_STAY, Proposer
+from labeler.quality import audit_would_narrow
 from labeler.spreading import LabelSpreader
 from sklearn.base import clone
 
@@ -200,7 +201,9 @@ def run(data: dict, order: str, seed: int, checkpoints=CHECKPOINTS, level: float
         if k >= cps[0]:
             cps.pop(0)
             est = _estimate(W, y, sp, rec, seq, weight, batch, audit, level, n_boot, seed)
-            if est.basis == "none" and audit is None and audit_size:
+            # the annotator does what the estimate asks: an audit where it has no figure, or
+            # where its interval is wide (labeler.quality.audit_would_narrow)
+            if (est.basis == "none" or audit_would_narrow(est)) and audit is None and audit_size:
                 conf = sp.label_distributions_.max(axis=1)
                 audit = draw_stratified_audit(~labeled, conf, audit_size, random_state=rng)
                 y[audit[0]] = t[audit[0]]

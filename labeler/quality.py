@@ -241,6 +241,21 @@ def calibrate(confidence, calibration: dict) -> np.ndarray:
     return np.interp(np.asarray(confidence, dtype=np.float64), xs, ys)
 
 
+#: A figure whose interval is wider than this, resting on no audit, comes with the advice to answer
+#: a blind audit of about 30 windows (:func:`audit_would_narrow`). Queue answers weigh by their
+#: inverse chance of being drawn (0.0003-20 in the simulated crew), so cross-validation on them is
+#: honest but can span most of [0, 1] (measured with benchmarks/estimate_orderings.py on the crew
+#: at 50 queue answers: intervals 0.15-0.97); a stratified audit of 30 spans about 0.1-0.25.
+WIDE_INTERVAL = 0.25
+
+
+def audit_would_narrow(est: Estimate) -> bool:
+    """True when ``est`` has a figure resting on no audit and an interval wider than
+    :data:`WIDE_INTERVAL`: answering a blind audit of about 30 windows would narrow it."""
+    return (est.basis != "none" and "audit" not in est.basis
+            and float(est.high) - float(est.low) > WIDE_INTERVAL)
+
+
 def with_audit(cross_validation: Estimate, audit: Estimate | None, *, level: float = 0.95) -> Estimate:
     """The headline from cross-validation and an answered audit scored on other windows: the
     audit alone where cross-validation has no figure, both joined by :func:`combine` where it has

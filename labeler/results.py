@@ -112,7 +112,8 @@ class AccuracyReport:
     None without a figure; ``expected_wrong``: proposed windows expected to be wrong (sum of one
     minus the calibrated confidence); ``likely_wrong``: proposed windows more likely wrong than
     right; ``needs_audit``: there is no figure, and a blind audit (about 30 answers) would give
-    one. Cross-validation is computed once per proposal run and stored with it; the answered audit
+    one; ``audit_advised``: there is a figure, resting on no audit, whose interval is wide
+    (:func:`labeler.quality.audit_would_narrow`), and a blind audit would narrow it. Cross-validation is computed once per proposal run and stored with it; the answered audit
     joins when the report is asked for.
     """
     run_id: int
@@ -123,6 +124,7 @@ class AccuracyReport:
     expected_wrong: float | None = None
     likely_wrong: int | None = None
     needs_audit: bool = False
+    audit_advised: bool = False
 
     @classmethod
     def from_dict(cls, d: dict) -> "AccuracyReport":
@@ -137,7 +139,8 @@ class AccuracyReport:
                    training_set=est(d["training_set"]) if d.get("training_set") else None,
                    audit_runs=tuple(d.get("audit_runs") or ()), calibration=d.get("calibration"),
                    expected_wrong=d.get("expected_wrong"), likely_wrong=d.get("likely_wrong"),
-                   needs_audit=bool(d.get("needs_audit", False)))
+                   needs_audit=bool(d.get("needs_audit", False)),
+                   audit_advised=bool(d.get("audit_advised", False)))
 
     @property
     def value(self) -> float | None:
@@ -187,6 +190,7 @@ class AccuracyReport:
         out["expected_wrong"] = self.expected_wrong
         out["likely_wrong"] = self.likely_wrong
         out["needs_audit"] = self.needs_audit
+        out["audit_advised"] = self.audit_advised
         return out
 
 

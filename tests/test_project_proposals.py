@@ -319,6 +319,53 @@ def test_a_queue_drawn_ahead_is_the_queue_of_its_state_and_kept_only_when_shown(
     assert {w_ for w_, _q, _m in stale.draws} - set(fresh["window_id"])
 
 
+def test_a_wide_interval_resting_on_no_audit_comes_with_the_advice_to_answer_one():
+    from labeler.app import words
+    from labeler.quality import WIDE_INTERVAL, Estimate, audit_would_narrow
+    from labeler.results import AccuracyReport
+
+    wide = Estimate(0.8, 0.8 - WIDE_INTERVAL, 0.81, "cross-validation", 50)
+    assert audit_would_narrow(wide)
+    assert not audit_would_narrow(Estimate(0.8, 0.7, 0.9, "cross-validation", 50))
+    assert not audit_would_narrow(Estimate(0.8, 0.3, 0.9, "cross-validation + audit", 80))
+    assert not audit_would_narrow(Estimate(0.8, 0.3, 0.9, "audit", 30))
+    assert not audit_would_narrow(Estimate(float("nan"), 0.0, 1.0, "none", 0))
+    text = words.estimate(AccuracyReport(run_id=3, estimate=wide, audit_advised=True))
+    assert "The interval is wide: press <b>Audit</b>" in text
+    assert "interval is wide" not in words.estimate(AccuracyReport(run_id=3, estimate=wide))
+    back = AccuracyReport.from_dict(AccuracyReport(run_id=3, estimate=wide,
+                                                   audit_advised=True).as_dict())
+    assert back.audit_advised
+
+
+def test_accuracy_advises_an_audit_while_the_interval_is_wide_and_not_once_answered(
+        project, sims, monkeypatch):
+    import labeler.quality
+
+    p = project
+    truth = truth_of(p, sims)
+    # windows spread over the recordings, one action each: every class in several stretches, a
+    # figure from cross-validation alone
+    for wid in p.windows()["id"].to_numpy()[::12]:
+        confirm_truth(p, [wid], truth)
+    p.refresh_proposals()
+    e = p.accuracy_estimate()
+    assert e.basis == "cross-validation", e.note
+    # whether the interval counts as wide is read when the report is made: every figure is wide here
+    monkeypatch.setattr(labeler.quality, "WIDE_INTERVAL", 0.0)
+    e = p.accuracy_estimate()
+    assert e.audit_advised and not e.needs_audit
+    path = p.path
+    r = run("accuracy", path)
+    assert r.exit_code == 0, r.output
+    assert f"the interval is wide: to narrow it, `labeler audit {path} -n 30`" in r.output
+    a = p.draw_audit(12, random_state=3)
+    confirm_truth(p, a["window_id"], truth, source="audit")
+    e = p.accuracy_estimate()
+    assert "audit" in e.basis and not e.audit_advised
+    assert "interval is wide" not in run("accuracy", path).output
+
+
 def test_accuracy_with_an_answered_audit_reads_the_stored_estimate_without_heavy_imports(
         project, sims):
     # the figure as the Python API gives it, printed by `labeler accuracy` in a new process that

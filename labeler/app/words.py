@@ -335,6 +335,8 @@ def estimate(est) -> str:
         parts.append(f"Training set (confirmed windows counted right): {_pct(ts.value)} "
                      f"({_pct(ts.low)}–{_pct(ts.high)})")
     parts.append(span("muted", "rests on: " + note))
+    advice = ("The interval is wide: press <b>Audit</b> and label each of the windows it shows "
+              "to narrow it." if getattr(est, "audit_advised", False) else "")
     return (f"<details class='est'><summary><b>Proposals are right about {_pct(acc)} of the "
             f"time</b> (95% interval {_pct(lo)}–{_pct(hi)})</summary>{'<br>'.join(parts)}"
-            "</details>")
+            "</details>" + advice)

@@ -163,3 +163,7 @@ def accuracy_cmd(project, annotator):
         click.echo("  expected calibration error of the calibrated confidence "
                    f"{e.ece:.3f}" + (f" (spreading's own confidence {raw:.3f})" if raw is not None else ""))
     click.echo(f"  rests on: {e.note}")
+    if e.audit_advised:
+        click.echo(f"  the interval is wide: to narrow it, `labeler audit {project} -n 30`, label "
+                   f"each drawn window without looking at its proposal and run `labeler accuracy "
+                   f"{project}` again")

@@ -228,7 +228,8 @@ class Audits:
 
     def _report(self, run: dict, part: dict) -> AccuracyReport:
         """The report of ``run`` from its stored part and the audit as answered now."""
-        from labeler.quality import calibrate, training_set_estimate, with_audit
+        from labeler.quality import (audit_would_narrow, calibrate, training_set_estimate,
+                                     with_audit)
 
         cv = AccuracyReport.from_dict(part["cv"])
         held = {int(k): (int(v[0]), float(v[1])) for k, v in part["audit_held"].items()}
@@ -279,7 +280,8 @@ class Audits:
             est.note += ("; or answer a blind audit of about 30 windows: the figure then rests on "
                          "it")
         report = AccuracyReport(run_id=int(run["id"]), estimate=est, audit_runs=audit_runs,
-                                needs_audit=est.basis == "none")
+                                needs_audit=est.basis == "none",
+                                audit_advised=audit_would_narrow(est))
         proposed = y < 0
         conf = p["confidence"].astype(np.float64)
         if cv.calibration or (audit_cal is not None and est.basis == "audit"):
