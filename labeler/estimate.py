@@ -335,14 +335,20 @@ def audit_held_out(graph, y, audit_mask, *, recording=None, seq=None, gap: int =
     ones, so an audit keeps measuring the proposals as they improve. Returns the held-out
     predictions (:class:`HeldOut`; ``stretch`` is the window's index: each answer stands alone).
 
-    The answers are dealt at random into at most ``n_folds`` groups, each hidden in turn.
+    The answers are dealt into at most ``n_folds`` groups, each hidden in turn, class by class
+    (stratified, as scikit-learn's StratifiedKFold deals; common practice, no source): answers
+    of one class go to different groups while the class has fewer answers than there are groups,
+    so a class only the audit found is learned from its other answers when one is hidden, not
+    scored wrong whenever a random deal put its answers together.
     """
     y = _labels(y)
     m = np.asarray(audit_mask, dtype=bool) & (y >= 0)
     idx = np.flatnonzero(m)
     k = int(min(n_folds, idx.size))
     fold = np.full(y.size, -1, dtype=np.int64)
-    fold[idx] = np.random.default_rng(random_state).permutation(idx.size) % max(k, 1)
+    shuffled = idx[np.random.default_rng(random_state).permutation(idx.size)]
+    dealt = shuffled[np.argsort(y[shuffled], kind="stable")]  # by class, random within one
+    fold[dealt] = np.arange(idx.size) % max(k, 1)
     plan = FoldPlan(fold, k, np.where(m, np.arange(y.size), -1), {}, 2)
     return held_out_predictions(graph, y, plan, recording=recording, seq=seq, gap=gap,
                                 spreader=spreader, init=init, init_classes=init_classes)

@@ -332,6 +332,34 @@ def test_audit_answers_are_scored_by_proposals_made_without_them():
     assert with_audit(cv, a).basis == f"{cv.basis} + audit"
 
 
+def test_an_audit_deals_the_answers_of_a_class_into_different_folds():
+    # digits (scikit-learn; Alpaydin & Kaynak 1998): the audit is the only source of digit 9 (two
+    # answers) and holds 30 answers. Dealt class by class (common practice, no source), the two
+    # 9s never share a fold, so each is predicted with the other known; with every deal seed the
+    # same, and each 9 is right where its class can be learned from one example.
+    W, t, y, _ = _digits_state(n_conf=80, seed=3)
+    y = np.where(t == 9, -1, y)  # nobody confirmed a 9
+    rng = np.random.default_rng(7)
+    nines = rng.choice(np.flatnonzero((t == 9) & (y < 0)), 2, replace=False)
+    others = rng.choice(np.flatnonzero((t != 9) & (y < 0)), 28, replace=False)
+    audit = np.sort(np.r_[nines, others])
+    y2 = y.copy()
+    y2[audit] = t[audit]
+    mask = np.zeros(t.size, dtype=bool)
+    mask[audit] = True
+    for seed in range(5):
+        h = audit_held_out(W, y2, mask, random_state=seed)
+        f = dict(zip(h.index, h.fold))
+        assert f[nines[0]] != f[nines[1]]
+        # folds of equal size (30 answers)
+        from labeler.estimate import AUDIT_FOLDS
+        assert np.bincount(h.fold).tolist() == [30 // AUDIT_FOLDS] * AUDIT_FOLDS
+    nine_right = [bool(audit_held_out(W, y2, mask, random_state=s).take(np.isin(h.index, nines))
+                       .correct.all()) for s in range(3)]
+    # a 9 hidden alone is predicted from the other 9; both together would be unknown (wrong)
+    assert any(nine_right)
+
+
 def test_audit_answers_weigh_by_their_inverse_chance_of_being_drawn():
     # Cochran, "Sampling Techniques", 1977, ch. 5: an answer of band h weighs N_h / n_h. Worked
     # by hand: band 0 (N = 90) 20 answers, 10 right; band 1 (N = 10) 20 answers, all right; all

@@ -366,6 +366,30 @@ def test_accuracy_advises_an_audit_while_the_interval_is_wide_and_not_once_answe
     assert "interval is wide" not in run("accuracy", path).output
 
 
+def test_the_audit_part_of_the_estimate_does_not_change_with_the_run_alone(project, sims):
+    # two proposal runs on the same labels: the audit's answers are dealt into held-out folds and
+    # bootstrapped the same way, so the headline is the same (it used to move by several points)
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(40)["window_id"], truth)
+    p.refresh_proposals()
+    a = p.draw_audit(12, random_state=3)
+    confirm_truth(p, a["window_id"], truth, source="audit")
+    first = p.refresh_proposals()
+    e1 = p.accuracy_estimate()
+    second = p.refresh_proposals()
+    e2 = p.accuracy_estimate()
+    assert second.run_id != first.run_id and e2.run_id == second.run_id
+    assert "audit" in e1.basis and e1.basis == e2.basis
+    audit1 = next(s for s in e1.estimate.details.get("sources", [e1.estimate.as_dict()])
+                  if s["basis"] == "audit")
+    audit2 = next(s for s in e2.estimate.details.get("sources", [e2.estimate.as_dict()])
+                  if s["basis"] == "audit")
+    # (the runs' warm starts differ in the last digits only)
+    assert [audit1[k] for k in ("value", "low", "high")] == pytest.approx(
+        [audit2[k] for k in ("value", "low", "high")], abs=1e-9)
+
+
 def test_accuracy_with_an_answered_audit_reads_the_stored_estimate_without_heavy_imports(
         project, sims):
     # the figure as the Python API gives it, printed by `labeler accuracy` in a new process that
