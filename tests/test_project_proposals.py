@@ -51,6 +51,14 @@ def confirm_truth(p, ids, truth, source="api"):
         p.confirm(ids[truth[pos] == c], c, source=source, create_class=True)
 
 
+def answer_an_audit(p, truth):
+    """40 queue windows confirmed, proposals, then a blind audit of 12 drawn and answered."""
+    confirm_truth(p, p.review_queue(40)["window_id"], truth)
+    p.refresh_proposals()
+    a = p.draw_audit(12, random_state=3)
+    confirm_truth(p, a["window_id"], truth, source="audit")
+
+
 def test_refresh_stores_runs_caches_graph_and_warm_starts(project, sims):
     p = project
     with pytest.raises(InputError, match="no confirmed window"):
@@ -371,10 +379,7 @@ def test_the_audit_part_of_the_estimate_does_not_change_with_the_run_alone(proje
     # bootstrapped the same way, so the headline is the same (it used to move by several points)
     p = project
     truth = truth_of(p, sims)
-    confirm_truth(p, p.review_queue(40)["window_id"], truth)
-    p.refresh_proposals()
-    a = p.draw_audit(12, random_state=3)
-    confirm_truth(p, a["window_id"], truth, source="audit")
+    answer_an_audit(p, truth)
     first = p.refresh_proposals()
     e1 = p.accuracy_estimate()
     second = p.refresh_proposals()
@@ -401,10 +406,7 @@ def test_accuracy_with_an_answered_audit_reads_the_stored_estimate_without_heavy
 
     p = project
     truth = truth_of(p, sims)
-    confirm_truth(p, p.review_queue(40)["window_id"], truth)
-    p.refresh_proposals()
-    a = p.draw_audit(12, random_state=3)
-    confirm_truth(p, a["window_id"], truth, source="audit")
+    answer_an_audit(p, truth)
     want = p.accuracy_estimate()  # stores the run's part, as `labeler propose` does
     assert want.audit_runs and "audit" in want.basis
     path = str(p.path)
