@@ -103,12 +103,8 @@ class Audits:
         (its current label, None while unanswered), correct."""
         import pandas as pd
 
-        df = pd.DataFrame(self.ctx.store.audits(), columns=AUDIT_COLUMNS)
-        df = df[df["window_id"].isin(self.catalog.windows()["id"])]  # not of removed recordings
-        lab = self.ledger.labels()
-        cur = dict(zip(lab["window_id"], lab["class_id"]))
+        df = pd.DataFrame(self._audited(), columns=AUDIT_COLUMNS + ["answer_class_id"])
         names = self.ledger.class_names()
-        df["answer_class_id"] = df["window_id"].map(cur)
         df["proposed"] = df["proposed_class_id"].map(names)
         df["answer"] = df["answer_class_id"].map(names)
         df["correct"] = np.where(df["answer_class_id"].isna() | (df["answer"] == ANSWERS["unsure"]),
@@ -143,27 +139,34 @@ class Audits:
                                         run_id=int(run["id"]))
         return self._report(run, part)
 
+    def _audited(self) -> list[dict]:
+        """Every drawn audit row (as ``Store.audits`` gives it) of a window whose recording is
+        in the project, with ``answer_class_id``: the class id of the window's current label
+        (None while unanswered). Read without pandas and without the window table."""
+        drawn = self.ctx.store.audits()
+        if not drawn:
+            return []
+        named = self.ctx.store.window_names(r["window_id"] for r in drawn)
+        cur = {int(w): int(c) for w, c, *_ in self.ctx.store.current_labels()}
+        return [{**r, "answer_class_id": cur.get(int(r["window_id"]))} for r in drawn
+                if int(r["window_id"]) in named and not named[int(r["window_id"])][2]]
+
     def _latest_audit(self, run_id: int) -> list[dict]:
         """Answered windows of the latest audit drawn from run ``run_id`` or before ("not sure"
         left out: it says nothing about the proposal), windows of removed recordings left out:
         window_id, run_id, answer (class name), stratum, stratum_size of each, in the order
         drawn. Read without pandas and without the window table (`labeler accuracy` reads it)."""
-        drawn = [r for r in self.ctx.store.audits() if int(r["run_id"]) <= run_id]
-        if not drawn:
-            return []
-        named = self.ctx.store.window_names(r["window_id"] for r in drawn)
-        cur = {int(w): int(c) for w, c, *_ in self.ctx.store.current_labels()}
         names = self.ledger.class_names()
         done = []
-        for r in drawn:
-            wid = int(r["window_id"])
-            if wid not in named or named[wid][2] or wid not in cur:
+        for r in self._audited():
+            if int(r["run_id"]) > run_id or r["answer_class_id"] is None:
                 continue
-            answer = names.get(cur[wid])
+            answer = names.get(r["answer_class_id"])
             if answer is None or answer == ANSWERS["unsure"]:
                 continue
-            done.append({"window_id": wid, "run_id": int(r["run_id"]), "answer": answer,
-                         "stratum": r["stratum"], "stratum_size": r["stratum_size"]})
+            done.append({"window_id": int(r["window_id"]), "run_id": int(r["run_id"]),
+                         "answer": answer, "stratum": r["stratum"],
+                         "stratum_size": r["stratum_size"]})
         if not done:
             return done
         last = max(r["run_id"] for r in done)
