@@ -20,6 +20,7 @@ Run: python benchmarks/bench_scale.py [--recordings 24 --hours 1 --study 8 --bac
 from __future__ import annotations
 
 import argparse
+import concurrent.futures as cf
 import contextlib
 import os
 import resource
@@ -80,14 +81,45 @@ def _ingest(folder: Path, project: Path, workers: int, backend: str, dask_defaul
         study_runner.local_worker_settings = saved
     if rep.refused:
         raise SystemExit(f"refused: {rep.refused[0].reason}")
-    return seconds, rep, me1 - me0, kids1 - kids0, load
+    # forked workers are the fork server's children, not this process's: ask the report
+    workers_cpu = rep.worker_cpu_seconds if rep.worker_cpu_seconds is not None else kids1 - kids0
+    return seconds, rep, me1 - me0, workers_cpu, load
+
+
+def _forkserver_cpu() -> float:
+    """CPU seconds of this process's fork server (it loads the workers' modules once), if any."""
+    import psutil
+
+    total = 0.0
+    for child in psutil.Process().children():
+        try:
+            if "forkserver" in " ".join(child.cmdline()):
+                t = child.cpu_times()
+                total += t.user + t.system
+        except psutil.Error:
+            pass
+    return total
+
+
+def _ingest_fresh(*args):
+    """:func:`_ingest` in a fresh process, so that each run starts its workers (and their fork
+    server) from nothing, as a command does; plus the fork server's CPU seconds."""
+    import multiprocessing
+
+    with cf.ProcessPoolExecutor(1, mp_context=multiprocessing.get_context("spawn")) as ex:
+        return ex.submit(_ingest_and_forkserver, *args).result()
+
+
+def _ingest_and_forkserver(*args):
+    return _ingest(*args) + (_forkserver_cpu(),)
 
 
 def _pair(folder: Path, tmp: Path, n: int, backend: str, dask_defaults: bool, tag: str) -> tuple:
     runs = {}
     for workers in (1, 2):
-        t, rep, cpu_main, cpu_workers, load = _ingest(folder, tmp / f"{tag}{workers}.labeler",
-                                                      workers, backend, dask_defaults)
+        t, rep, cpu_main, cpu_workers, load, cpu_server = _ingest_fresh(
+            folder, tmp / f"{tag}{workers}.labeler", workers, backend, dask_defaults)
+        cpu_workers += cpu_server
         runs[workers] = (t, rep, cpu_main)
         print(f"  {workers} worker(s): {t:.1f} s wall at load {load:.1f} ({rep.runner}; "
               f"{len(rep.added)} recordings, {rep.n_windows} windows); cluster start "

@@ -47,6 +47,9 @@ class IngestReport:
     task_cpu_seconds: float = 0.0
     write_seconds: float = 0.0
     write_cpu_seconds: float = 0.0
+    #: CPU seconds of the workers of a local cluster at the end, in all (tasks, start, runtime);
+    #: None where the runner cannot tell (a process pool, a cluster given by its scheduler)
+    worker_cpu_seconds: float | None = None
 
     @property
     def n_windows(self) -> int:
@@ -214,6 +217,7 @@ def ingest(project, sources: Sequence[str | os.PathLike], runner=None, *,
                              "refused)")
         report.added = write(gathered)
         added_ids = [a.id for a in report.added]
+    report.worker_cpu_seconds = runner.worker_cpu_seconds()
     if added_ids:
         project.place_new_windows(added_ids)
     report.seconds = time.perf_counter() - t0
