@@ -124,6 +124,8 @@ def test_local_workers_fork_from_one_server_that_has_loaded_the_task_modules(tmp
             assert b"multiprocessing.forkserver" in f.read()
     assert [a.name for a in rep.added] == ["rec0", "rec1"]
     assert rep.worker_cpu_seconds >= rep.task_cpu_seconds > 0
+    with runner_mod.open_runner(2, backend="processes") as r:  # the pool without Dask too
+        assert {got for _, got in r.as_completed([r.submit(os.getppid)])} <= parents
 
 
 def test_all_or_none_writes_nothing_when_a_file_is_refused(tmp_path, scheduler):

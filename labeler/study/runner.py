@@ -4,8 +4,9 @@
 ``as_completed(handles)``. The Dask runner starts a ``LocalCluster`` of ``workers`` processes (one
 thread each, no dashboard, listening on 127.0.0.1 only) unless a scheduler address is given; then it
 connects to that cluster and starts nothing. The process runner uses
-:class:`concurrent.futures.ProcessPoolExecutor` with fresh (spawned) processes, so no worker shares
-the parent's open project file.
+:class:`concurrent.futures.ProcessPoolExecutor`. Local workers of either come from a fork server
+(or are spawned), never forked from this process, so no worker shares the parent's open project
+file.
 """
 
 from __future__ import annotations
@@ -40,7 +41,8 @@ class TaskFailed(Exception):
 
 
 class ProcessRunner:
-    """A local pool of spawned processes."""
+    """A local pool of processes, forked from a fork server where the platform has one (see
+    :func:`local_worker_settings`), else spawned."""
 
     kind = "processes"
 
@@ -53,8 +55,11 @@ class ProcessRunner:
         return f"a local process pool of {self.workers} worker(s)"
 
     def __enter__(self) -> "ProcessRunner":
-        self._pool = cf.ProcessPoolExecutor(max_workers=self.workers,
-                                            mp_context=multiprocessing.get_context("spawn"))
+        method = start_method()
+        context = multiprocessing.get_context(method)
+        if method == "forkserver":  # as for a local Dask cluster (see local_worker_settings)
+            context.set_forkserver_preload(worker_preload())
+        self._pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=context)
         return self
 
     def __exit__(self, *exc) -> None:
@@ -66,8 +71,7 @@ class ProcessRunner:
         return obj
 
     def worker_cpu_seconds(self) -> float | None:
-        """CPU seconds the workers have spent so far: not known for a process pool (its spawned
-        processes count as this process's children once they end)."""
+        """CPU seconds the workers have spent so far: not known for a process pool."""
         return None
 
     def submit(self, fn: Callable, *args) -> cf.Future:
