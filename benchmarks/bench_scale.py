@@ -32,9 +32,11 @@ import numpy as np
 
 from labeler.project import Project
 from labeler.study import runner as study_runner
-from labeler.study.apply import apply_to_study, train_from_project
 from labeler.study.ingest import prepare_file
-from labeler.synthetic import simulate_recording, window_truth
+
+# The simulator (scipy.signal) and the study model (scikit-learn) are imported where they are used:
+# workers load this main module again, as they load the command's main module when a user runs
+# `labeler ingest`, whose imports are as light as these.
 
 
 def _write(rec, path: Path) -> None:
@@ -47,6 +49,8 @@ def _write(rec, path: Path) -> None:
 def _make(folder: Path, n: int, hours: float, seed: int, first_person: int) -> dict:
     """Simulated recordings of people ``first_person``.. as CSV files in ``folder`` (a file that
     is there already is kept); their truth by recording name."""
+    from labeler.synthetic import simulate_recording
+
     folder.mkdir(parents=True, exist_ok=True)
     truth = {}
     for k in range(n):
@@ -203,6 +207,9 @@ def main() -> None:
               f"single writer needs {study_hours * r2.write_cpu_seconds / (n * args.hours) / 3600:.2f} h "
               f"of "
               "CPU for it, so it keeps up)")
+
+        from labeler.study.apply import apply_to_study, train_from_project
+        from labeler.synthetic import window_truth
 
         with Project.open(tmp / "ours2.labeler", annotator="bench") as p:
             w = p.windows()
