@@ -4,9 +4,10 @@ Run: python benchmarks/bench_features.py [hours] [repeats]
 
 For an 8-hour, 2-site, 12-channel 50 Hz simulated recording (the demo scenario) it prints: the
 simulation time, the number of windows (2.56 s, step 1.28 s), feature extraction in windows/s, the
-time of a bare numpy rfft over the same windows (gathered into (channels, length) rows, 256 windows
-per call, the fastest layout for numpy), their ratio (goal: within 3x) and peak memory. Times are
-the best of ``repeats`` runs, single-threaded numpy/scipy calls.
+time of a bare numpy rfft over the same windows and channels (gathered into (channels, length) rows,
+256 windows per call, the fastest layout for numpy) in float64 and in float32, the ratio to the
+float64 one (goal: within 3x) and peak memory. The contenders alternate; times are the best of
+``repeats`` runs, wall and CPU, single-threaded numpy/scipy calls, beside the load average.
 """
 
 from __future__ import annotations
@@ -36,9 +37,13 @@ def best(fn, repeats):
     return min(times), out
 
 
-def bare_rfft(signal, starts, length, chunk=256):
+def bare_rfft(signal, starts, length, dtype, chunk=256):
+    """numpy's rfft of every window of every channel, ``dtype`` being the precision it computes
+    in (numpy 2 transforms float32 in float32): the windows gathered into (channels, length)
+    rows, ``chunk`` windows per call."""
     for a in range(0, starts.size, chunk):
-        w = np.ascontiguousarray(window_view(signal, starts[a:a + chunk], length).transpose(0, 2, 1))
+        w = np.ascontiguousarray(window_view(signal, starts[a:a + chunk], length).transpose(0, 2, 1),
+                                 dtype=dtype)
         np.fft.rfft(w, axis=-1)
 
 
@@ -56,12 +61,35 @@ def main(hours: float = 8.0, repeats: int = 3) -> None:
     n = starts.size
     print(f"windows: {n} of {length} samples, step {step}")
 
-    t_feat, (X, names) = best(
-        lambda: window_features(rec.signal, starts, length, rec.rate, rec.channels), repeats)
-    t_fft, _ = best(lambda: bare_rfft(rec.signal, starts, length), repeats)
-    print(f"features: {X.shape[1]} per window in {t_feat:.2f} s = {n / t_feat:,.0f} windows/s")
-    print(f"bare numpy rfft over the same windows: {t_fft:.2f} s = {n / t_fft:,.0f} windows/s")
-    print(f"ratio features / rfft: {t_feat / t_fft:.2f}x (goal: within 3x)")
+    def feats():
+        return window_features(rec.signal, starts, length, rec.rate, rec.channels)
+
+    def rfft64():
+        bare_rfft(rec.signal, starts, length, np.float64)
+
+    def rfft32():
+        bare_rfft(rec.signal, starts, length, np.float32)
+
+    X, names = feats()
+    # the contenders alternate, so that a busy machine hurts them alike
+    wall = {"features": [], "rfft64": [], "rfft32": []}
+    cpu = {"features": [], "rfft64": [], "rfft32": []}
+    for _ in range(repeats):
+        for key, fn in (("features", feats), ("rfft64", rfft64), ("rfft32", rfft32)):
+            w, c = time.perf_counter(), time.process_time()
+            fn()
+            cpu[key].append(time.process_time() - c)
+            wall[key].append(time.perf_counter() - w)
+    t_feat, t_fft, t_f32 = (min(wall[k]) for k in ("features", "rfft64", "rfft32"))
+    c_feat, c_fft, c_f32 = (min(cpu[k]) for k in ("features", "rfft64", "rfft32"))
+    print(f"load {' '.join(f'{v:.2f}' for v in os.getloadavg())} on {os.cpu_count()} cores; "
+          f"best of {repeats}, wall (CPU)")
+    print(f"features: {X.shape[1]} per window in {t_feat:.2f} s ({c_feat:.2f}) = "
+          f"{n / t_feat:,.0f} windows/s")
+    print(f"bare numpy rfft of the same windows and channels, float64: {t_fft:.2f} s ({c_fft:.2f}); "
+          f"float32: {t_f32:.2f} s ({c_f32:.2f})")
+    print(f"ratio features / float64 rfft: {t_feat / t_fft:.2f}x wall, {c_feat / c_fft:.2f}x CPU "
+          f"(goal: within 3x); against the float32 rfft {c_feat / c_f32:.2f}x CPU")
 
     tracemalloc.start()
     window_features(rec.signal, starts, length, rec.rate, rec.channels)

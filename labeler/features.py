@@ -395,8 +395,9 @@ def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: f
 
 def _invariant_block(ws: _Workspace, plan: _Plan) -> np.ndarray:
     """Orientation-free features (:mod:`labeler.invariants`) of the windows in ``ws.raw``."""
-    from labeler.invariants import invariant_features
+    from labeler.invariants import stacked_invariant_features
 
-    wins = {(site, kind): ws.raw[list(idx)].transpose(1, 2, 0)
-            for site, kind, idx in plan.triads}
-    return invariant_features(wins, plan.triads, plan.rate, BAND_EDGES)
+    stack = np.empty((len(plan.triads), 3, ws.n_windows, plan.length), dtype=np.float64)
+    for t, (_, _, idx) in enumerate(plan.triads):
+        stack[t] = ws.raw[list(idx)]
+    return stacked_invariant_features(stack, plan.triads, plan.rate, BAND_EDGES)

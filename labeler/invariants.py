@@ -155,6 +155,19 @@ def _percentiles(x: np.ndarray, qs) -> list[np.ndarray]:
     return out
 
 
+def _norm3(x: np.ndarray, y: np.ndarray, z: np.ndarray, out: np.ndarray,
+           tmp: np.ndarray, root: bool = True) -> np.ndarray:
+    """``sqrt(x * x + y * y + z * z)`` (without the root when ``root`` is false) into ``out``
+    (which may be ``x``), in that order of operations, with ``tmp`` (of the same shape,
+    distinct from the others) as scratch."""
+    np.multiply(y, y, out=tmp)
+    np.multiply(x, x, out=out)
+    out += tmp
+    np.multiply(z, z, out=tmp)
+    out += tmp
+    return np.sqrt(out, out=out) if root else out
+
+
 def _dot(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Sum of products over the last axis."""
     return np.einsum("...l,...l->...", a, b)
@@ -165,63 +178,123 @@ def invariant_features(windows: dict[tuple[str, str], np.ndarray], triads, rate:
     """Orientation-free features (see the module docstring) of the windows of each triad.
 
     ``windows[(site, kind)]`` is (n_windows, length, 3) float; returns float32
-    (n_windows, len(invariant_names(triads, edges))). Computed on one (n_windows, length) array
-    per axis, every window at once.
+    (n_windows, len(invariant_names(triads, edges))).
     """
-    def axes(arr):
-        arr = np.asarray(arr)
-        return [np.ascontiguousarray(arr[..., i], dtype=np.float64) for i in range(3)]
-
-    comps = {key: axes(windows[key[:2]]) for key in triads}
-    means = {key: [c.mean(axis=1) for c in comps[key]] for key in triads}
-    acc_of = {site: (site, kind, idx) for site, kind, idx in triads if kind == "acc"}
-    cols = []
-    for key in triads:
-        site, kind, _ = key
-        ax, ay, az = comps[key]
-        n, L = ax.shape
-        inv_l = 1.0 / L
-        norm = np.sqrt(ax * ax + ay * ay + az * az)
-        cols += _percentiles(norm, (10, 50, 90))
-        mx, my, mz = means[key]
-        dx, dy, dz = ax - mx[:, None], ay - my[:, None], az - mz[:, None]
-        dn = np.sqrt(dx * dx + dy * dy + dz * dz)
-        cols += [dn.mean(axis=1), dn.std(axis=1)]
-        vals, main = sym3_eigen(_dot(dx, dx) * inv_l, _dot(dy, dy) * inv_l, _dot(dz, dz) * inv_l,
-                                _dot(dx, dy) * inv_l, _dot(dx, dz) * inv_l, _dot(dy, dz) * inv_l)
-        vals = np.maximum(vals, 0.0)
-        cols += [np.sqrt(vals[:, 0]), np.sqrt(vals[:, 1]), np.sqrt(vals[:, 2])]
-        total = vals.sum(axis=1)
-        cols.append(np.where(total > 1e-12, vals[:, 0] / np.where(total > 1e-12, total, 1.0), 0.0))
-        jx, jy, jz = np.diff(ax, axis=1), np.diff(ay, axis=1), np.diff(az, axis=1)
-        cols.append(np.sqrt(jx * jx + jy * jy + jz * jz).mean(axis=1) * rate)
-        # spectrum of the norm, mean removed
-        c = norm - norm.mean(axis=1, keepdims=True)
-        spec = np.fft.rfft(c, axis=1)[:, 1:]
-        power = spec.real ** 2 + spec.imag ** 2
-        freqs = np.fft.rfftfreq(L, 1.0 / rate)[1:]
-        ptot = power.sum(axis=1)
-        has = ptot > 1e-20 * max(1.0, float(np.abs(norm).max()) ** 2) * L
-        p = power * np.where(has, 1.0 / np.where(has, ptot, 1.0), 0.0)[:, None]
-        for lo, hi in zip(edges[:-1], edges[1:]):
-            cols.append(p[:, (freqs >= lo) & (freqs < hi)].sum(axis=1))
-        ent = -_dot(p, np.log(p + 1e-30))
-        cols.append(ent / math.log(freqs.size) if freqs.size > 1 else np.zeros(n))
-        if kind == "acc":
-            (gx, gy, gz), ok = _unit(mx, my, mz)
-            v = dx * gx[:, None] + dy * gy[:, None] + dz * gz[:, None]
-            hx, hy, hz = dx - v * gx[:, None], dy - v * gy[:, None], dz - v * gz[:, None]
-            along = np.abs(main[:, 0] * gx + main[:, 1] * gy + main[:, 2] * gz)
-            cols += [v.std(axis=1), np.sqrt((hx * hx + hy * hy + hz * hz).mean(axis=1)),
-                     np.where(ok & (vals[:, 0] > 1e-12), along, 0.0)]
-        elif site in acc_of:
-            (gx, gy, gz), ok = _unit(*means[acc_of[site]])
-            # main rotation axis: the angular rate's own main axis (mean included)
-            rvals, axis = sym3_eigen(_dot(ax, ax) * inv_l, _dot(ay, ay) * inv_l,
-                                     _dot(az, az) * inv_l, _dot(ax, ay) * inv_l,
-                                     _dot(ax, az) * inv_l, _dot(ay, az) * inv_l)
-            along = np.abs(axis[:, 0] * gx + axis[:, 1] * gy + axis[:, 2] * gz)
-            cols.append(np.where(ok & (rvals[:, 0] > 1e-12), along, 0.0))
-    if not cols:
+    if not triads:
         return np.empty((0, 0), np.float32)
-    return np.column_stack(cols).astype(np.float32)
+    stack = np.empty((len(triads), 3) + np.shape(windows[triads[0][:2]])[:2], dtype=np.float64)
+    for t, (site, kind, _) in enumerate(triads):
+        arr = np.asarray(windows[(site, kind)])
+        for i in range(3):
+            stack[t, i] = arr[..., i]
+    return stacked_invariant_features(stack, triads, rate, edges)
+
+
+def stacked_invariant_features(a: np.ndarray, triads, rate: float, edges) -> np.ndarray:
+    """:func:`invariant_features` of ``a``, (n_triads, 3, n_windows, length) float64 in the
+    order of ``triads``: every triad and every window at once, one array operation per step."""
+    a = np.asarray(a, dtype=np.float64)
+    T, _, n, L = a.shape
+    inv_l = 1.0 / L
+    ax, ay, az = a[:, 0], a[:, 1], a[:, 2]  # (T, n, L)
+    out: dict[str, np.ndarray] = {}  # name -> (T, n)
+    norm = _norm3(ax, ay, az, np.empty_like(ax), np.empty_like(ax))
+    srt = np.sort(norm, axis=-1)
+    for q in (10, 50, 90):
+        pos = q / 100.0 * (L - 1)
+        i0 = int(math.floor(pos))
+        frac = pos - i0
+        v = srt[..., i0]
+        if frac > 0:
+            v = v + frac * (srt[..., min(i0 + 1, L - 1)] - v)
+        out[f"inv.p{q}"] = v
+    del srt
+    mean = a.mean(axis=-1)  # (T, 3, n)
+    d = a - mean[..., None]
+    dx, dy, dz = d[:, 0], d[:, 1], d[:, 2]
+    tmp = np.empty_like(ax)
+    dn = _norm3(dx, dy, dz, np.empty_like(ax), tmp)
+    out["inv.dyn_mean"] = dn.mean(axis=-1)
+    out["inv.dyn_std"] = dn.std(axis=-1)
+    del dn
+    vals, main = sym3_eigen(_dot(dx, dx) * inv_l, _dot(dy, dy) * inv_l, _dot(dz, dz) * inv_l,
+                            _dot(dx, dy) * inv_l, _dot(dx, dz) * inv_l, _dot(dy, dz) * inv_l)
+    vals = np.maximum(vals, 0.0)  # (T, n, 3)
+    for j in range(3):
+        out[f"inv.sd{j + 1}"] = np.sqrt(vals[..., j])
+    total = vals.sum(axis=-1)
+    out["inv.line"] = np.where(total > 1e-12,
+                               vals[..., 0] / np.where(total > 1e-12, total, 1.0), 0.0)
+    j = np.subtract(a[..., 1:], a[..., :-1])  # (T, 3, n, L - 1): the change per sample
+    out["inv.jerk"] = _norm3(j[:, 0], j[:, 1], j[:, 2], j[:, 0], tmp[..., 1:]).mean(axis=-1) * rate
+    del j, tmp
+    # spectrum of the norm, mean removed
+    c = norm - norm.mean(axis=-1, keepdims=True)
+    spec = np.fft.rfft(c, axis=-1)[..., 1:]
+    power = spec.real ** 2 + spec.imag ** 2
+    del spec, c
+    freqs = np.fft.rfftfreq(L, 1.0 / rate)[1:]
+    ptot = power.sum(axis=-1)
+    # the floor of "no power" scales with each triad's largest norm over these windows
+    top = np.maximum(1.0, np.abs(norm).max(axis=(1, 2))) ** 2
+    has = ptot > 1e-20 * top[:, None] * L
+    p = power * np.where(has, 1.0 / np.where(has, ptot, 1.0), 0.0)[..., None]
+    bands = []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        bands.append(p[..., (freqs >= lo) & (freqs < hi)].sum(axis=-1))
+    ent = -_dot(p, np.log(p + 1e-30))
+    entropy = ent / math.log(freqs.size) if freqs.size > 1 else np.zeros((T, n))
+    # the moving part along and across gravity (acceleration triads)
+    acc_rows = [t for t, (_, kind, _) in enumerate(triads) if kind == "acc"]
+    acc_cols: dict[int, list[np.ndarray]] = {}
+    unit_of_site: dict[str, tuple] = {}
+    if acc_rows:
+        r = np.array(acc_rows)
+        (gx, gy, gz), ok = _unit(mean[r, 0], mean[r, 1], mean[r, 2])
+        ex, ey, ez = dx[r], dy[r], dz[r]  # copies, changed in place below
+        gx_, gy_, gz_ = gx[..., None], gy[..., None], gz[..., None]
+        v = np.multiply(ex, gx_)
+        tmp = np.multiply(ey, gy_)
+        v += tmp
+        np.multiply(ez, gz_, out=tmp)
+        v += tmp
+        vert = v.std(axis=-1)
+        # the part across gravity: h = e - v g
+        for e, g_ in ((ex, gx_), (ey, gy_), (ez, gz_)):
+            np.multiply(v, g_, out=tmp)
+            e -= tmp
+        horiz = np.sqrt(_norm3(ex, ey, ez, ex, tmp, root=False).mean(axis=-1))
+        del ex, ey, ez, v, tmp
+        mr = main[r]
+        along = np.abs(mr[..., 0] * gx + mr[..., 1] * gy + mr[..., 2] * gz)
+        main_vert = np.where(ok & (vals[r, :, 0] > 1e-12), along, 0.0)
+        for k, t in enumerate(acc_rows):
+            acc_cols[t] = [vert[k], horiz[k], main_vert[k]]
+            unit_of_site[triads[t][0]] = ((gx[k], gy[k], gz[k]), ok[k])
+    # the main rotation axis against gravity (gyroscope triads of a site with an acceleration
+    # triad): the angular rate's own main axis (mean included)
+    gyr_rows = [t for t, (site, kind, _) in enumerate(triads)
+                if kind != "acc" and site in unit_of_site]
+    gyr_cols: dict[int, np.ndarray] = {}
+    if gyr_rows:
+        r = np.array(gyr_rows)
+        bx, by, bz = ax[r], ay[r], az[r]
+        rvals, axis = sym3_eigen(_dot(bx, bx) * inv_l, _dot(by, by) * inv_l,
+                                 _dot(bz, bz) * inv_l, _dot(bx, by) * inv_l,
+                                 _dot(bx, bz) * inv_l, _dot(by, bz) * inv_l)
+        for k, t in enumerate(gyr_rows):
+            (gx, gy, gz), ok = unit_of_site[triads[t][0]]
+            along = np.abs(axis[k, :, 0] * gx + axis[k, :, 1] * gy + axis[k, :, 2] * gz)
+            gyr_cols[t] = np.where(ok & (rvals[k, :, 0] > 1e-12), along, 0.0)
+    cols = []
+    for t in range(T):
+        cols += [out[name][t] for name in COMMON]
+        cols += [b[t] for b in bands]
+        cols.append(entropy[t])
+        cols += acc_cols.get(t, [])
+        if t in gyr_cols:
+            cols.append(gyr_cols[t])
+    res = np.empty((n, len(cols)), dtype=np.float32)
+    for j, col in enumerate(cols):
+        res[:, j] = col
+    return res
