@@ -593,30 +593,35 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         # every valid point, what interpolating over the complete rows alone gives (the arithmetic
         # of numpy.interp), except NaN where a point within rounding of a row is followed by a
         # missing value: such a point takes its row.
-        left = np.clip(_rows_at_or_before(t, grid, fs) - 1, 0, n - 1)
-        right = np.minimum(left + 1, n - 1)
-        exact = np.abs(t[left] - grid) <= 1e-9 * max(1.0, abs(t[-1]))
-        valid = row_ok[left] & (exact | row_ok[right])
-        lo = np.minimum(left, n - 2)
-        hi = lo + 1
-        span = t[hi] - t[lo]
-        offset = grid - t[lo]
+        left_all = np.clip(_rows_at_or_before(t, grid, fs) - 1, 0, n - 1)
+        near = 1e-9 * max(1.0, abs(t[-1]))
+        valid = np.empty(n_grid, dtype=bool)
         # in blocks of grid points, so that the temporaries stay in the cache
         for a in range(0, n_grid, _GRID_BLOCK):
-            b = a + _GRID_BLOCK
-            lo_b, hi_b, span_b, offset_b = lo[a:b], hi[a:b], span[a:b], offset[a:b]
+            b = min(a + _GRID_BLOCK, n_grid)
+            left, g = left_all[a:b], grid[a:b]
+            right = np.minimum(left + 1, n - 1)
+            exact = np.abs(t[left] - g) <= near
+            ok = valid[a:b]
+            np.logical_and(row_ok[left], exact | row_ok[right], out=ok)
+            lo = np.minimum(left, n - 2)
+            hi = lo + 1
+            t_lo = t[lo]
+            span = t[hi] - t_lo
+            offset = g - t_lo
             for j in range(c):  # loop over channels
                 y = values[:, j]
-                y_lo = y[lo_b]
-                v = y[hi_b] - y_lo
-                v /= span_b
-                v *= offset_b
-                np.add(v, y_lo, out=out[j, a:b])  # in float64, rounded once to float32
-        for j in range(c):
-            if has_nan[j]:
-                # a point within rounding of a complete row that a missing value follows
-                on_row = np.flatnonzero(np.isnan(out[j]) & valid)
-                out[j, on_row] = y[left[on_row]]
+                y_lo = y[lo]
+                v = y[hi] - y_lo
+                v /= span
+                v *= offset
+                o = out[j, a:b]
+                np.add(v, y_lo, out=o)  # in float64, rounded once to float32 on the way out
+                if has_nan[j]:
+                    # a point within rounding of a complete row that a missing value follows
+                    on_row = np.flatnonzero(np.isnan(o) & ok)
+                    o[on_row] = y[left[on_row]]
+        del left_all
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
         short = int(np.count_nonzero((dt > 1.5 * nominal) & (dt <= max(max_gap_s, 1.5 * nominal))))

@@ -194,6 +194,16 @@ def test_clock_within_rounding_of_the_grid_keeps_every_valid_sample_finite():
     assert np.isfinite(rec.signal[rec.valid]).all()
     assert rec.valid[999] and not rec.valid[1000:1101].any() and rec.valid[1101]
     assert not rec.valid[2000:2200].any() and rec.valid[2200:].all()
+    # and each is its own channel's value at that time (the sample at 999 takes its row's value,
+    # which numpy.interp gives within rounding of the clock)
+    cols = [c for c in frame.columns if c != "time"]
+    t = frame["time"].to_numpy()
+    grid = np.arange(3000) / 50.0
+    for j, c in enumerate(cols):
+        ok = ~frame[c].isna().to_numpy()
+        expected = np.interp(grid, t[ok], frame[c].to_numpy()[ok])
+        np.testing.assert_allclose(rec.signal[rec.valid, j], expected[rec.valid], rtol=0,
+                                   atol=1e-5, err_msg=c)
 
 
 def test_rows_at_or_before_each_grid_point_as_numpy_searchsorted_counts():
