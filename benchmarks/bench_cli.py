@@ -11,7 +11,7 @@ Then it runs each command as a new process
 start of Python (`python -c pass`), Python opening SQLite (`import sqlite3`) and Python with numpy
 imported; the CPU time (user + system) of each, which stays near the command's cost when the
 shared machine is loaded; how much of the command is spent importing modules (from
-``python -X importtime``) and whether pandas, scipy or scikit-learn were imported. Goal: each
+``python -X importtime``) and whether numpy, pandas, scipy or scikit-learn were imported. Goal: each
 command under 0.5 s.
 
 Run: python benchmarks/bench_cli.py [--recordings 5] [--hours 8] [--repeats 3] [--keep FILE]
@@ -38,7 +38,7 @@ COMMANDS = (["status"], ["queue"], ["history"], ["accuracy"], ["accuracy", "audi
 AUDIT = 30
 PEERS = (("python -c pass", "pass"), ("python -c 'import sqlite3'", "import sqlite3"),
          ("python -c 'import numpy'", "import numpy"))
-HEAVY = ("pandas", "scipy", "sklearn", "pyarrow")
+HEAVY = ("numpy", "pandas", "scipy", "sklearn", "pyarrow")
 
 
 def audited(path: Path) -> Path:

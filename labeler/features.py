@@ -45,11 +45,12 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
-
 from labeler.channels import parse_channel, triads
 from labeler.errors import ValueInputError
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 #: Version of the feature set new projects compute. "1": the per-channel and per-triad features
 #: above; "2": those and, per triad, the orientation-free features of :mod:`labeler.invariants`
@@ -372,6 +373,8 @@ def window_features(signal: np.ndarray, starts: np.ndarray, length: int, rate: f
     plan = _Plan(length, rate, channels)
     rows_per_window = (len(channels) + len(plan.triads)) * length
     step = max(1, min(int(chunk_size), _MAX_CHUNK_ELEMENTS // max(1, rows_per_window)))
+    from numpy.lib.stride_tricks import sliding_window_view
+
     sig_t = signal.T  # (n_channels, n_samples) view; contiguous rows for a column-major signal
     every = sliding_window_view(sig_t, length, axis=1)  # (n_channels, n_starts, length) view
     C = len(channels)

@@ -20,7 +20,9 @@ import struct
 import zipfile
 from typing import Mapping
 
-import numpy as np
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 _LOCAL_HEADER = 30  # bytes of a zip member's local header before its name and extra field
 ALIGN = 64          # numpy pads an array's header to a multiple of this, so numbers follow aligned

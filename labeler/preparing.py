@@ -9,14 +9,16 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-import numpy as np
-
 from labeler import features as _features
 from labeler.errors import InputError
 from labeler.windows import cut_windows, window_samples
 
 if TYPE_CHECKING:
     from labeler.recordings import Recording
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 CHUNK_SECONDS = 60.0
 

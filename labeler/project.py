@@ -11,8 +11,6 @@ import functools
 import os
 from typing import TYPE_CHECKING, Iterable, Sequence
 
-import numpy as np
-
 import labeler
 from labeler.errors import ProjectError
 from labeler.results import (AccuracyReport, ExportReport, ImportReport, LabelBatch, MapRun,
@@ -32,6 +30,10 @@ if TYPE_CHECKING:  # pandas is imported by the use cases that hand back tables, 
     from labeler.preparing import PreparedRecording
     from labeler.recordings import Recording
     from labeler.service.export import Exporter
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 __all__ = ["Project", "AddedRecording", "PALETTE", "SOURCES", "CHUNK_SECONDS", "Progress",
            "default_annotator"]

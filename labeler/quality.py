@@ -34,9 +34,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-import numpy as np
-
 from labeler.errors import InputError
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 CV_NOTE = ("cross-validation on confirmed windows: biased, since confirmed windows are not a random "
            "sample (queue picks are harder than average, windows picked on the map or next to "

@@ -10,9 +10,11 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
-import numpy as np
-
 from labeler.quality import Estimate
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 
 @dataclass(frozen=True)

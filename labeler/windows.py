@@ -10,9 +10,11 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 from labeler.errors import InputError, ValueInputError
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 DEFAULT_LENGTH_S = 2.56
 DEFAULT_STEP_S = 1.28

@@ -18,8 +18,6 @@ import json
 import os
 from typing import TYPE_CHECKING
 
-import numpy as np
-
 from labeler.answers import ANSWERS
 from labeler.errors import InputError
 from labeler.results import AccuracyReport
@@ -30,6 +28,10 @@ from labeler.service.proposals import GRAPH_PARAMS, Proposals
 
 if TYPE_CHECKING:  # pandas is imported where a table is made
     import pandas as pd
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 AUDIT_COLUMNS = ["id", "run_id", "window_id", "position", "drawn_at", "drawn_by",
                  "proposed_class_id", "confidence", "stratum", "stratum_size"]

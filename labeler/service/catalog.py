@@ -13,8 +13,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Sequence
 
-import numpy as np
-
 from labeler import features as _features
 from labeler.errors import InputError, ProjectError
 from labeler.preparing import CHUNK_SECONDS, PreparedRecording, prepare_recording  # noqa: F401
@@ -27,6 +25,10 @@ if TYPE_CHECKING:  # pandas is imported where a table is made
     import pandas as pd
 
     from labeler.recordings import Recording
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 RECORDING_COLUMNS = ["id", "name", "source_path", "content_hash", "rate", "channels", "units",
                      "n_samples", "start_time", "added_at", "added_by", "repairs", "window_length",

@@ -11,8 +11,6 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterable
 
-import numpy as np
-
 from labeler.answers import ANSWER_COLOUR, answer_class, is_answer, is_reserved
 from labeler.errors import InputError
 from labeler.results import ClassCount, ImportReport, ImportRow, LabelBatch, label_batch
@@ -22,6 +20,10 @@ from storage import StoreError
 
 if TYPE_CHECKING:  # pandas is imported where a table is made
     import pandas as pd
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 # Okabe & Ito, "Color universal design: how to make figures and presentations that are friendly to
 # colorblind people", 2008: eight colours distinguishable with the common colour-vision deficiencies.

@@ -13,8 +13,6 @@ from typing import TYPE_CHECKING
 
 import io
 
-import numpy as np
-
 from labeler.errors import InputError, ProjectError
 from labeler.results import MapRun
 from labeler.service.catalog import Catalog
@@ -22,6 +20,10 @@ from labeler.service.context import Context, Progress
 
 if TYPE_CHECKING:  # pandas is imported where a table is made
     import pandas as pd
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 
 class Maps:

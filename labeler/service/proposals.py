@@ -16,8 +16,6 @@ import io
 import json
 import time
 
-import numpy as np
-
 from labeler.errors import InputError
 from labeler.npzview import npz_arrays, npz_bytes
 from labeler.results import ProposalRun, ReviewDraw
@@ -27,6 +25,10 @@ from labeler.service.ledger import Ledger
 
 if TYPE_CHECKING:  # pandas is imported where a table is made
     import pandas as pd
+
+from labeler.deferred import numpy_when_used
+
+np = numpy_when_used(globals())
 
 GRAPH_BLOB = "proposals/graph"
 LATEST_BLOB = "proposals/latest"
