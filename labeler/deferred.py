@@ -49,9 +49,6 @@ class _Deferred:
         return module
 
     def __getattr__(self, attr: str):
-        if attr.startswith("__") and attr.endswith("__"):
-            # copy, pickle and introspection probe for these; they do not need the module
-            raise AttributeError(attr)
         return getattr(self._load(), attr)
 
     def __repr__(self) -> str:

@@ -36,6 +36,16 @@ def test_a_stand_in_becomes_numpy_on_first_use_in_every_module_that_asked():
     assert out == "[0, 2, 4, 6]"
 
 
+def test_any_attribute_of_a_stand_in_imports_numpy():
+    out = _run("""
+        import labeler.quality as q
+        version = q.np.__version__
+        import numpy
+        print(version == numpy.__version__, q.np is numpy)
+    """)
+    assert out == "True True"
+
+
 def test_numpy_already_imported_is_bound_at_once():
     out = _run("""
         import numpy
