@@ -10,7 +10,9 @@ come back through ``doc.add_next_tick_callback``, so a callback never waits on t
 
 from __future__ import annotations
 
+import asyncio
 import datetime as _dt
+import logging
 import os
 import time
 import traceback
@@ -19,7 +21,7 @@ from typing import Callable
 
 import numpy as np
 from bokeh.events import DocumentReady, SelectionGeometry, Tap
-from bokeh.layouts import column, row
+from bokeh.layouts import column
 from bokeh.models import (ColumnDataSource, CustomJS, Div, InlineStyleSheet, LinearColorMapper,
                           TextInput)
 
@@ -43,9 +45,8 @@ IDLE_S = 1.5                     # the map's source takes changes after a pause 
 FRESH_MAX = 5000                 # more windows labeled than this without a pause: sent at once
 PICK_REACH_PX = 8                # a click picks the nearest window within this many pixels
 DRAW_BACKENDS = ("webgl", "canvas")
-#: the map and signal column takes the room the side panel leaves; below about 1200 px of width
-#: the side panel moves under it (flex-wrap)
-_WRAP_CSS = ":host { flex-wrap: wrap; column-gap: 14px; row-gap: 6px; align-items: flex-start; }"
+_log = logging.getLogger(__name__)
+STEP_PAUSE_S = 0.01              # a served page's build lets the server's loop run this long per step
 
 
 def _requested_draw(doc) -> str | None:
@@ -74,19 +75,23 @@ def build_document(doc, project_path: str | os.PathLike, annotator: str | None =
     ``project``: an already open :class:`Project` (the session then owns it); by default the file is
     opened once for this session. ``background=False`` computes proposals in the calling thread
     (tests). ``draw``: "webgl" (default) or "canvas" for the map; in a served session the page's
-    ``?draw=`` argument decides: the page asks for it by itself (``templates/page.html``), webgl
+    ``?draw=`` argument decides: the page asks for it by itself (``templates/ask_draw.html``), webgl
     when the browser has a GPU, else canvas; a served page without it gets a placeholder (None).
     """
     from labeler.project import Project
 
     if draw is None and _requested_draw(doc) is None and _served_without_draw(doc):
-        # the page asks again at once with ?draw= (templates/page.html): build nothing for this one
-        doc.template = template("page.html")
+        # the page asks again at once with ?draw= (templates/ask_draw.html): build nothing for this one
+        doc.template = template("ask_draw.html")      # it loads no BokehJS
         doc.add_root(Div(text="opening the project…", name="opening"))
         return None
     draw = draw or _requested_draw(doc) or "webgl"
     if draw not in DRAW_BACKENDS:
         raise ValueError(f"draw must be one of {DRAW_BACKENDS}, got {draw!r}")
+    doc.template_variables["labeler_js"] = page_scripts(draw)
+    if project is None and getattr(doc, "session_context", None) is not None:
+        _build_later(doc, Path(project_path), annotator, background=background, draw=draw)
+        return None
     if project is None:
         project = Project.open(project_path, annotator=annotator)
     app = LabelerApp(doc, project, background=background, draw=draw)
@@ -95,10 +100,113 @@ def build_document(doc, project_path: str | os.PathLike, annotator: str | None =
     return app
 
 
+def page_scripts(draw: str) -> str:
+    """The page's script tags: BokehJS and its widgets, its WebGL part only when the map is drawn
+    with WebGL; not the mathematics (1.8 MB) and tables bundles a Bokeh server page loads by
+    default, which the page never uses (its Divs are built with ``disable_math``)."""
+    from bokeh.resources import Resources
+    from bokeh.server.views.static_handler import StaticHandler
+
+    parts = ["bokeh", "bokeh-gl", "bokeh-widgets"] if draw == "webgl" else ["bokeh",
+                                                                            "bokeh-widgets"]
+    return Resources(mode="server", root_url="/", components=parts,
+                     path_versioner=StaticHandler.append_version).render_js()
+
+
+def _serialize_ahead(doc) -> None:
+    """Serialize ``doc`` now, for the page's request for it (which would otherwise wait while the
+    server serializes several hundred models, 0.4-0.6 s): the next ``doc.to_json()`` returns this
+    result once, unless the document changed in between (any change drops it)."""
+    ahead = {"json": doc.to_json()}
+    compute = doc.to_json
+
+    def dropped(_event) -> None:
+        ahead.clear()
+
+    def to_json(*args, **kwargs):
+        got = ahead.pop("json", None) if not args and not kwargs else None
+        doc.remove_on_change(dropped)
+        del doc.to_json                 # back to the class's method
+        return got if got is not None else compute(*args, **kwargs)
+
+    doc.on_change(dropped)
+    doc.to_json = to_json
+
+
+#: the page's roots, each laid out by the page on its own (``templates/page.html`` places them):
+#: the header and caution; the map and signal; the side panel beside them (under them below about
+#: 1200 px); the timeline. A root's size change lays out that root alone: a side panel's text
+#: that grows a line no longer lays out the page again and repaints every point of the map.
+ROOT_NAMES = ("labeler_root", "map_and_signal", "side_root", "labeler_bottom")
+
+
+def _roots() -> list:
+    """The page's roots, empty (each shows a word until the panels go in)."""
+    return [column(Div(text="opening the project…" if k == 0 else "", disable_math=True),
+                   sizing_mode="stretch_width", name=name)
+            for k, name in enumerate(ROOT_NAMES)]
+
+
+def _page_title(path: Path) -> str:
+    return f"labeler · {path.name}"
+
+
+def _build_later(doc, path: Path, annotator: str | None, *, background: bool, draw: str) -> None:
+    """A served session: the page's HTML goes out at once around an empty root, and the document is
+    built on the server's next turn, while the browser fetches and runs BokehJS (about half a
+    second); the page's request for the document waits for the document's lock, so it always gets
+    the built document. A file that cannot be opened is said in the page."""
+    from labeler.project import Project
+
+    doc.template = template("page.html")
+    doc.title = _page_title(path)
+    roots = _roots()
+    for r in roots:
+        doc.add_root(r)
+    box: dict = {}
+
+    async def build():
+        project = None
+        try:
+            project = Project.open(path, annotator=annotator)
+            box["app"] = await LabelerApp.served(doc, project, background=background, draw=draw,
+                                                 roots=roots)
+        except Exception as exc:
+            if project is not None:
+                project.close()
+            _log.error("could not build the page for %s", path, exc_info=True)
+            text = exc.args[0] if isinstance(exc, LabelerError) and exc.args else repr(exc)
+            roots[0].children = [Div(text=words.message(f"cannot show {path.name}: {text}"),
+                                     disable_math=True)]
+
+    def closed(_ctx):
+        if "app" in box:
+            box["app"].close()
+
+    doc.add_next_tick_callback(build)
+    doc.on_session_destroyed(closed)
+
+
 class LabelerApp(Actions):
     """The session: its panels, what is picked, and the actions keys and buttons call."""
 
-    def __init__(self, doc, project, *, background: bool = True, draw: str = "webgl"):
+    def __init__(self, doc, project, *, background: bool = True, draw: str = "webgl",
+                 roots=None):
+        for _ in self._steps(doc, project, background=background, draw=draw, roots=roots):
+            pass
+
+    @classmethod
+    async def served(cls, doc, project, *, background: bool, draw: str, roots) -> "LabelerApp":
+        """Build in steps, letting the server's loop run between them (it sends BokehJS to the
+        page meanwhile); then serialize the document ahead of the page's request for it."""
+        app = cls.__new__(cls)
+        for _ in app._steps(doc, project, background=background, draw=draw, roots=roots):
+            await asyncio.sleep(STEP_PAUSE_S)
+        await asyncio.sleep(STEP_PAUSE_S)
+        _serialize_ahead(doc)
+        return app
+
+    def _steps(self, doc, project, *, background: bool, draw: str, roots):
         self.doc = doc
         self.draw = draw
         self.project = project
@@ -122,8 +230,8 @@ class LabelerApp(Actions):
                                      deliver=lambda got: self._post(
                                          lambda: self._apply_proposals(got)),
                                      on_start=lambda: self._post(self._worker_started))
-        self._build()
-        doc.title = f"labeler · {Path(str(project.path)).name}"
+        yield from self._build(roots)
+        doc.title = _page_title(Path(str(project.path)))
         self._map_run = project.map_run_id()
         self._mark = project.change_mark()
         if self.served:
@@ -131,7 +239,7 @@ class LabelerApp(Actions):
             doc.add_periodic_callback(self.check_others, OTHERS_CHECK_MS)
         if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
-            # page has loaded, so a page that reloads itself (templates/page.html) costs no run
+            # page has loaded, so a page that reloads itself (templates/ask_draw.html) costs no run
             # (only the estimate when the stored proposals are of the current confirmations)
             refresh = not proposals_current(project, self.state)
             if not refresh:
@@ -143,7 +251,9 @@ class LabelerApp(Actions):
                 self.request_proposals(refresh=refresh)
 
     # ================================================================== building
-    def _build(self) -> None:
+    def _build(self, roots=None):
+        """The panels, under ``roots`` (the empty roots of :func:`_roots` already in the document)
+        or under roots added to the document; a generator that pauses between panels."""
         s = self.state
         self.css = InlineStyleSheet(css=static("app.css"))
         self.classes_src = ColumnDataSource(self._classes_data())
@@ -158,13 +268,17 @@ class LabelerApp(Actions):
         self.map.fig.on_event(SelectionGeometry, self._on_map_shape)
         self.map.fig.on_event(Tap, lambda e: self.pick_at(e.x, e.y))
         self.map.src.selected.on_change("indices", lambda _a, _o, new: self.pick_on_map(new))
+        yield
         self.signal = SignalView(s.channels, self.project.signal, self.css)
         self.signal.steady.on_change("active", lambda _a, _o, _n: self._draw_gallery())
+        yield
         self.gallery = Gallery(s.channels, self.project.signal, self.class_mapper)
         self.gallery.fig.on_event(Tap, lambda e: self.look_at(self.gallery.row_at(e.x, e.y)))
+        yield
         self.timeline = TimelineView(s, self.class_mapper)
         self.timeline.fig.on_event(SelectionGeometry, self._on_timeline_box)
         self.timeline.fig.on_event(Tap, lambda e: self.pick_time(e.x, e.y))
+        yield
         self.side = SidePanel(self, self.css, self.gallery.fig)
         self.key_bus = TextInput(value="", visible=False, name="key_bus")
         self.key_bus.on_change("value", lambda _a, _o, new: self.press(new.split("|", 1)[0]))
@@ -176,19 +290,28 @@ class LabelerApp(Actions):
                                                         code=static("text_in_place.js")))
         self.caution = Div(text=words.caution(), sizing_mode="stretch_width", name="caution",
                            stylesheets=[self.css])
-        left = column(self.map.bar, self.map.fig, self.signal.box, sizing_mode="stretch_width",
-                      styles={"flex": "1 1 760px", "min-width": "0"}, name="map_and_signal")
-        main = row(left, self.side.box, sizing_mode="stretch_width", name="main",
-                   stylesheets=[_WRAP_CSS])
-        self.root = column(self.header, self.caution, main, self.timeline.fig, self.key_bus,
-                           sizing_mode="stretch_width", name="labeler_root")
-        self.doc.add_root(self.root)
+        parts = [[self.header, self.caution], [self.map.bar, self.map.fig, self.signal.box],
+                 [self.side.box], [self.timeline.fig, self.key_bus]]
+        for group in parts:                           # the page loads no mathematics bundle
+            for part in group:
+                for div in part.select({"type": Div}):
+                    div.disable_math = True
+        yield
         self.side.rebuild_classes(s)
         self._refresh_selection()
         self._refresh_queue()
         self._refresh_counts()
         self._refresh_estimate()
         self.side.progress.text = self.progress_text
+        yield
+        if roots is None:
+            roots = _roots()
+            for r in roots:
+                self.doc.add_root(r)
+        with self.doc.models.freeze():                # one walk of the document's models
+            for r, group in zip(roots, parts):        # the served page's roots, empty until now
+                r.children = group
+        self.root = roots[0]
 
     def _header_html(self) -> str:
         s = self.state
