@@ -515,3 +515,30 @@ def test_a_dragged_box_picks_its_windows_and_a_key_recolours_them_at_once(driver
             return picked & set(p.labels()["window_id"].tolist())
 
     _wait(lambda: not still_labeled() or None, 20, "the undo in the file")
+
+
+def test_the_page_loads_the_bundles_it_uses_and_a_side_panel_change_leaves_the_map_alone(
+        driver, served):
+    """The page loads BokehJS and its widgets, not the mathematics and tables bundles; the side
+    panel is a root of its own, so a side-panel text that grows by several lines lays out the side
+    panel alone: the map is not painted again."""
+    srv, _path = served
+    _open(driver, srv.url)
+    scripts = driver.execute_script(
+        "return Array.from(document.scripts).map((s) => s.src).filter((s) => s);")
+    names = {s.split("/")[-1].split("?")[0] for s in scripts}
+    assert {"bokeh.min.js", "bokeh-widgets.min.js"} <= names, names
+    assert not names & {"bokeh-mathjax.min.js", "bokeh-tables.min.js"}, names
+    roots = driver.execute_script("return Bokeh.documents[0].roots().map((r) => r.name);")
+    assert roots == ["labeler_root", "map_and_signal", "side_root", "labeler_bottom"], roots
+    side_h = _box(driver, "side")[3]
+    painted = driver.execute_async_script("""
+        const done = arguments[arguments.length - 1];
+        const d = Bokeh.documents[0];
+        const v = Bokeh.index.get_one(d.get_model_by_name('map'));
+        let n = 0; const paint = v.paint;
+        v.paint = function (...a) { n += 1; return paint.apply(this, a); };
+        d.get_model_by_name('message').text = '<p>one</p><p>two</p><p>three</p><p>four</p>';
+        setTimeout(() => requestAnimationFrame(() => { v.paint = paint; done(n); }), 800);""")
+    assert _box(driver, "side")[3] > side_h + 40        # the side panel did grow
+    assert painted == 0, painted

@@ -694,3 +694,22 @@ def test_a_disagreement_card_names_each_annotators_label(app):
     assert item.window_id == wid and item.reason == "disagreement"
     card = app.side.queue.text
     assert f"maple: <b>{a}</b>" in card and f"birch: <b>{b}</b>" in card
+
+
+def test_a_document_serialized_ahead_is_given_once_and_dropped_by_any_change(app):
+    """The served page's document is serialized before the page asks for it; the page gets that
+    only while nothing changed since, and every later request is serialized anew."""
+    from labeler.app.document import _serialize_ahead
+
+    doc = app.doc
+    _serialize_ahead(doc)
+    first = doc.to_json()
+    assert doc.to_json.__func__ is Document.to_json           # back to the class's method
+    assert "not yet changed" not in repr(first.content)
+    _serialize_ahead(doc)
+    app.side.message.text = "<b>not yet changed</b> ahead"
+    second = doc.to_json()
+    assert second is not first and "not yet changed" in repr(second.content)
+    assert doc.to_json.__func__ is Document.to_json
+    third = doc.to_json()
+    assert "not yet changed" in repr(third.content)

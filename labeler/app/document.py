@@ -151,11 +151,84 @@ def _page_title(path: Path) -> str:
     return f"labeler · {path.name}"
 
 
+# ---------------------------------------------------------------------------- panels built ahead
+#: per served file (path, annotator): the panels of the next page, built ahead while the server is
+#: idle (an asyncio task on the server's loop giving a LabelerApp with no document)
+_SPARES: dict[tuple[str, str | None], "asyncio.Future"] = {}
+_WANTED: set[tuple[str, str | None]] = set()   # spares a page waits for
+_LAST_ACTION = [0.0]             # time.monotonic() of the last action of any page in this process
+SPARE_IDLE_S = 3.0               # the spare is built in steps, each once pages were idle this long
+
+
+def _spare_key(path, annotator) -> tuple[str, str | None]:
+    return (str(Path(path).resolve()), annotator)
+
+
+def make_spare(path, annotator: str | None) -> None:
+    """Start building the panels of the next page of ``path`` on the running loop (the server's),
+    each step once the pages of this process have been idle for SPARE_IDLE_S: a new page then
+    only puts them in its document (:func:`take_spare`)."""
+    from labeler.project import Project
+
+    key = _spare_key(path, annotator)
+    if key in _SPARES:
+        return
+
+    async def idle() -> None:
+        while key not in _WANTED and time.monotonic() - _LAST_ACTION[0] < SPARE_IDLE_S:
+            await asyncio.sleep(SPARE_IDLE_S / 3)
+
+    async def build():
+        await idle()
+        project = Project.open(path, annotator=annotator)
+        try:
+            return await LabelerApp.ahead(project, between=idle)
+        except BaseException:
+            project.close()
+            raise
+
+    _SPARES[key] = asyncio.ensure_future(build())
+
+
+async def take_spare(path, annotator: str | None) -> "LabelerApp | None":
+    """The panels built ahead for the next page of ``path`` (waiting for them when they are being
+    built), or None when there are none or the project changed since they were built."""
+    key = _spare_key(path, annotator)
+    task = _SPARES.pop(key, None)
+    if task is None:
+        return None
+    _WANTED.add(key)                    # a page waits: no more waiting for a pause
+    try:
+        app = await task
+    except Exception:
+        _log.warning("panels built ahead for %s failed; building anew", path, exc_info=True)
+        return None
+    finally:
+        _WANTED.discard(key)
+    if app.stale():
+        app.close()
+        return None
+    return app
+
+
+def drop_spare(path, annotator: str | None) -> None:
+    """Close the panels built ahead for ``path`` (its server stops); call on the server's loop."""
+    task = _SPARES.pop(_spare_key(path, annotator), None)
+    if task is None:
+        return
+    if task.done() and not task.cancelled() and task.exception() is None:
+        task.result().close()
+    else:
+        task.cancel()
+
+
 def _build_later(doc, path: Path, annotator: str | None, *, background: bool, draw: str) -> None:
-    """A served session: the page's HTML goes out at once around an empty root, and the document is
-    built on the server's next turn, while the browser fetches and runs BokehJS (about half a
-    second); the page's request for the document waits for the document's lock, so it always gets
-    the built document. A file that cannot be opened is said in the page."""
+    """A served session: the page's HTML goes out at once around empty roots, and the panels go in
+    on the server's next turn: the panels built ahead for it when the project has not changed
+    since (:func:`make_spare`), else built then, in steps, while the browser fetches and runs
+    BokehJS (about half a second); then the document is serialized ahead of the page's request
+    for it, which waits for the document's lock, so it always gets the built document. A file that
+    cannot be opened is said in the page."""
     from labeler.project import Project
 
     doc.template = template("page.html")
@@ -168,9 +241,14 @@ def _build_later(doc, path: Path, annotator: str | None, *, background: bool, dr
     async def build():
         project = None
         try:
-            project = Project.open(path, annotator=annotator)
-            box["app"] = await LabelerApp.served(doc, project, background=background, draw=draw,
-                                                 roots=roots)
+            app = await take_spare(path, annotator) if background else None
+            if app is None:
+                project = Project.open(path, annotator=annotator)
+                app = await LabelerApp.ahead(project, background=background)
+            app.attach(doc, roots, draw)
+            box["app"] = app
+            await asyncio.sleep(STEP_PAUSE_S)
+            _serialize_ahead(doc)
         except Exception as exc:
             if project is not None:
                 project.close()
@@ -178,6 +256,9 @@ def _build_later(doc, path: Path, annotator: str | None, *, background: bool, dr
             text = exc.args[0] if isinstance(exc, LabelerError) and exc.args else repr(exc)
             roots[0].children = [Div(text=words.message(f"cannot show {path.name}: {text}"),
                                      disable_math=True)]
+            return
+        if background:
+            make_spare(path, annotator)             # for the next page of the file
 
     def closed(_ctx):
         if "app" in box:
@@ -192,27 +273,37 @@ class LabelerApp(Actions):
 
     def __init__(self, doc, project, *, background: bool = True, draw: str = "webgl",
                  roots=None):
-        for _ in self._steps(doc, project, background=background, draw=draw, roots=roots):
+        served = getattr(doc, "session_context", None) is not None
+        for _ in self._steps(project, background=background, draw=draw, served=served):
             pass
+        self.attach(doc, roots)
 
     @classmethod
-    async def served(cls, doc, project, *, background: bool, draw: str, roots) -> "LabelerApp":
-        """Build in steps, letting the server's loop run between them (it sends BokehJS to the
-        page meanwhile); then serialize the document ahead of the page's request for it."""
+    async def ahead(cls, project, *, background: bool = True, between=None) -> "LabelerApp":
+        """The panels of a served page built with no document yet (:meth:`attach` gives them one),
+        in steps between which the server's loop runs (it serves other pages meanwhile);
+        ``between``: a coroutine function awaited before each step."""
         app = cls.__new__(cls)
-        for _ in app._steps(doc, project, background=background, draw=draw, roots=roots):
+        for _ in app._steps(project, background=background, draw="webgl", served=True):
+            if between is not None:
+                await between()
             await asyncio.sleep(STEP_PAUSE_S)
-        await asyncio.sleep(STEP_PAUSE_S)
-        _serialize_ahead(doc)
         return app
 
-    def _steps(self, doc, project, *, background: bool, draw: str, roots):
-        self.doc = doc
+    def stale(self) -> bool:
+        """True when the project changed since these panels were built (labels, classes,
+        recordings, the map or the proposals): a spare built then shows the project as it was."""
+        p = self.project
+        return (p.change_mark(), p.map_run_id(), p.proposals_run_id()) != self._built_on
+
+    def _steps(self, project, *, background: bool, draw: str, served: bool):
+        self.doc = None
         self.draw = draw
         self.project = project
+        self._built_on = (project.change_mark(), project.map_run_id(), project.proposals_run_id())
         self.state = SessionState(project)
         self.background = background
-        self.served = getattr(doc, "session_context", None) is not None
+        self.served = served
         self._pending: list[Callable[[], None]] = []
         self.target_rows = np.zeros(0, np.int64)
         self.target_source = "map"
@@ -230,13 +321,36 @@ class LabelerApp(Actions):
                                      deliver=lambda got: self._post(
                                          lambda: self._apply_proposals(got)),
                                      on_start=lambda: self._post(self._worker_started))
-        yield from self._build(roots)
-        doc.title = _page_title(Path(str(project.path)))
+        yield from self._build()
         self._map_run = project.map_run_id()
         self._mark = project.change_mark()
+
+    def attach(self, doc, roots=None, draw: str | None = None) -> None:
+        """Put the panels in ``doc``: under ``roots`` (the empty roots of :func:`_roots`, already
+        in the document) or under roots added to it; ``draw`` changes the map's drawing."""
+        self.doc = doc
+        project = self.project
+        if draw is not None and draw != self.draw:
+            self.draw = draw
+            self.map.fig.output_backend = draw
+            self.header.text = self._header_html()
+        for code in self._on_ready:
+            doc.js_on_event("document_ready", code)
+        if roots is None:
+            roots = _roots()
+            for r in roots:
+                doc.add_root(r)
+        with doc.models.freeze():                     # one walk of the document's models
+            for r, group in zip(roots, self._parts):  # a served page's roots, empty until now
+                r.children = group
+        self.root = roots[0]
+        doc.title = _page_title(Path(str(project.path)))
         if self.served:
             doc.add_periodic_callback(self.check_map, MAP_CHECK_MS)
             doc.add_periodic_callback(self.check_others, OTHERS_CHECK_MS)
+            waiting, self._pending = self._pending, []   # what came while there was no page
+            for fn in waiting:
+                self._post(fn)
         if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
             # page has loaded, so a page that reloads itself (templates/ask_draw.html) costs no run
@@ -251,9 +365,8 @@ class LabelerApp(Actions):
                 self.request_proposals(refresh=refresh)
 
     # ================================================================== building
-    def _build(self, roots=None):
-        """The panels, under ``roots`` (the empty roots of :func:`_roots` already in the document)
-        or under roots added to the document; a generator that pauses between panels."""
+    def _build(self):
+        """The panels (no document yet); a generator that pauses between panels."""
         s = self.state
         self.css = InlineStyleSheet(css=static("app.css"))
         self.classes_src = ColumnDataSource(self._classes_data())
@@ -282,17 +395,15 @@ class LabelerApp(Actions):
         self.side = SidePanel(self, self.css, self.gallery.fig)
         self.key_bus = TextInput(value="", visible=False, name="key_bus")
         self.key_bus.on_change("value", lambda _a, _o, new: self.press(new.split("|", 1)[0]))
-        self.doc.js_on_event("document_ready", CustomJS(args={"bus": self.key_bus},
-                                                        code=static("keys.js")))
         self.header = Div(text=self._header_html(), sizing_mode="stretch_width", name="header",
                           stylesheets=[self.css])
-        self.doc.js_on_event("document_ready", CustomJS(args={"div": self.header},
-                                                        code=static("text_in_place.js")))
+        self._on_ready = [CustomJS(args={"bus": self.key_bus}, code=static("keys.js")),
+                          CustomJS(args={"div": self.header}, code=static("text_in_place.js"))]
         self.caution = Div(text=words.caution(), sizing_mode="stretch_width", name="caution",
                            stylesheets=[self.css])
-        parts = [[self.header, self.caution], [self.map.bar, self.map.fig, self.signal.box],
-                 [self.side.box], [self.timeline.fig, self.key_bus]]
-        for group in parts:                           # the page loads no mathematics bundle
+        self._parts = [[self.header, self.caution], [self.map.bar, self.map.fig, self.signal.box],
+                       [self.side.box], [self.timeline.fig, self.key_bus]]
+        for group in self._parts:                           # the page loads no mathematics bundle
             for part in group:
                 for div in part.select({"type": Div}):
                     div.disable_math = True
@@ -303,15 +414,6 @@ class LabelerApp(Actions):
         self._refresh_counts()
         self._refresh_estimate()
         self.side.progress.text = self.progress_text
-        yield
-        if roots is None:
-            roots = _roots()
-            for r in roots:
-                self.doc.add_root(r)
-        with self.doc.models.freeze():                # one walk of the document's models
-            for r, group in zip(roots, parts):        # the served page's roots, empty until now
-                r.children = group
-        self.root = roots[0]
 
     def _header_html(self) -> str:
         s = self.state
@@ -381,7 +483,9 @@ class LabelerApp(Actions):
     def later(self, fn: Callable[[], None]) -> None:
         """Run ``fn`` on the session's next tick (after what has changed so far reaches the page);
         at once without a server (tests)."""
-        if self.served:
+        if self.served and self.doc is None:      # built ahead, no page yet
+            self._pending.append(fn)
+        elif self.served:
             self.doc.add_next_tick_callback(lambda: self.act(fn))
         else:
             fn()
@@ -637,7 +741,7 @@ class LabelerApp(Actions):
     def _post(self, fn: Callable[[], None]) -> None:
         if self.closed:
             return
-        if self.served:
+        if self.served and self.doc is not None:
             try:
                 self.doc.add_next_tick_callback(lambda: self.act(fn))
             except Exception:           # the session is gone
@@ -682,7 +786,7 @@ class LabelerApp(Actions):
     def touched(self) -> None:
         """The annotator acted (a pick, a key): new proposals wait for a pause before the map
         redraws them, so the page answers the annotator first."""
-        self._last_touch = time.monotonic()
+        self._last_touch = _LAST_ACTION[0] = time.monotonic()
 
     def _send_when_idle(self, rows: np.ndarray) -> None:
         """Send new proposals' rows to the map once the annotator has paused for ``IDLE_S`` (every

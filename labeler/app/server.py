@@ -90,12 +90,18 @@ class AppServer:
         """Serve in this thread until interrupted."""
         self.server = self._make_server()
         self.server.start()
+        self.server.io_loop.add_callback(self._spare)
         if on_ready:
             self.server.io_loop.add_callback(on_ready, self.url)
         try:
             self.server.io_loop.start()
         finally:
             self.server.stop()
+
+    def _spare(self) -> None:
+        from labeler.app.document import make_spare
+
+        make_spare(self.project_path, self.annotator)    # the first page's panels, built ahead
 
     def start_in_thread(self) -> "AppServer":
         """Serve from a daemon thread (tests, benchmarks); returns when it listens."""
@@ -112,6 +118,7 @@ class AppServer:
             try:
                 self.server = self._make_server(io_loop=loop)
                 self.server.start()
+                loop.add_callback(self._spare)
             except BaseException as exc:
                 failure.append(exc)
                 ready.set()
@@ -133,6 +140,9 @@ class AppServer:
         loop = srv.io_loop
 
         def _stop():
+            from labeler.app.document import drop_spare
+
+            drop_spare(self.project_path, self.annotator)
             srv.stop()
             loop.stop()
 
