@@ -713,3 +713,44 @@ def test_a_document_serialized_ahead_is_given_once_and_dropped_by_any_change(app
     assert doc.to_json.__func__ is Document.to_json
     third = doc.to_json()
     assert "not yet changed" in repr(third.content)
+
+
+def test_panels_built_ahead_are_used_only_while_the_project_is_as_they_show_it(base_project,
+                                                                               tmp_path):
+    """A served file keeps the next page's panels built ahead: a page takes them when nothing
+    changed since they were built (they show what a page built then would), and never once labels
+    changed (they are closed and the page is built anew)."""
+    import asyncio
+
+    from labeler.app import document as D
+
+    path = tmp_path / "p.labeler"
+    shutil.copy(base_project, path)
+
+    async def scenario():
+        D.make_spare(path, "ann")
+        spare = await D.take_spare(path, "ann")
+        assert spare is not None and spare.doc is None and not spare.stale()
+        fresh = await D.LabelerApp.ahead(Project.open(path, annotator="ann"))   # built now
+        fresh.attach(Document(), draw="canvas")
+        doc = Document()
+        spare.attach(doc, draw="canvas")
+        try:
+            assert spare.root in doc.roots and len(doc.roots) == 4
+            assert spare.map.fig.output_backend == "canvas"
+            assert "drawn with canvas" in spare.root.children[0].text
+            for name in ("counts", "class_pad", "selection"):
+                assert getattr(spare.side, name).text == getattr(fresh.side, name).text
+            assert np.array_equal(spare.map.src.data["cf"], fresh.map.src.data["cf"])
+        finally:
+            spare.close()
+            fresh.close()
+        D.make_spare(path, "ann")
+        await D._SPARES[D._spare_key(path, "ann")]              # built, then the file changes
+        with Project.open(path, annotator="other") as p:
+            free = sorted(set(p.windows()["id"]) - set(p.labels()["window_id"]))
+            p.confirm(free[:3], p.active_classes()[0])
+        assert await D.take_spare(path, "ann") is None          # changed since: built anew
+        assert await D.take_spare(path, "ann") is None          # and not kept
+
+    asyncio.run(scenario())

@@ -14,6 +14,7 @@ import asyncio
 import datetime as _dt
 import logging
 import os
+import threading
 import time
 import traceback
 from pathlib import Path
@@ -46,6 +47,7 @@ FRESH_MAX = 5000                 # more windows labeled than this without a paus
 PICK_REACH_PX = 8                # a click picks the nearest window within this many pixels
 DRAW_BACKENDS = ("webgl", "canvas")
 _log = logging.getLogger(__name__)
+PENDING_MAX = 8                  # deliveries kept for panels built ahead (see LabelerApp._keep)
 STEP_PAUSE_S = 0.01              # a served page's build lets the server's loop run this long per step
 
 
@@ -305,6 +307,7 @@ class LabelerApp(Actions):
         self.background = background
         self.served = served
         self._pending: list[Callable[[], None]] = []
+        self._pending_lock = threading.Lock()
         self.target_rows = np.zeros(0, np.int64)
         self.target_source = "map"
         self.focus_row: int | None = None
@@ -328,7 +331,6 @@ class LabelerApp(Actions):
     def attach(self, doc, roots=None, draw: str | None = None) -> None:
         """Put the panels in ``doc``: under ``roots`` (the empty roots of :func:`_roots`, already
         in the document) or under roots added to it; ``draw`` changes the map's drawing."""
-        self.doc = doc
         project = self.project
         if draw is not None and draw != self.draw:
             self.draw = draw
@@ -345,11 +347,15 @@ class LabelerApp(Actions):
                 r.children = group
         self.root = roots[0]
         doc.title = _page_title(Path(str(project.path)))
+        with self._pending_lock:                      # the worker's reader thread posts too
+            self.doc = doc
+            waiting = self._pending if self.served else []
+            if self.served:
+                self._pending = []
         if self.served:
             doc.add_periodic_callback(self.check_map, MAP_CHECK_MS)
             doc.add_periodic_callback(self.check_others, OTHERS_CHECK_MS)
-            waiting, self._pending = self._pending, []   # what came while there was no page
-            for fn in waiting:
+            for fn in waiting:                        # what came while there was no page
                 self._post(fn)
         if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
@@ -484,7 +490,7 @@ class LabelerApp(Actions):
         """Run ``fn`` on the session's next tick (after what has changed so far reaches the page);
         at once without a server (tests)."""
         if self.served and self.doc is None:      # built ahead, no page yet
-            self._pending.append(fn)
+            self._keep(fn)
         elif self.served:
             self.doc.add_next_tick_callback(lambda: self.act(fn))
         else:
@@ -747,7 +753,19 @@ class LabelerApp(Actions):
             except Exception:           # the session is gone
                 pass
             return
-        self._pending.append(fn)
+        self._keep(fn)
+
+    def _keep(self, fn: Callable[[], None]) -> None:
+        """Keep ``fn`` for later: until ``drain`` (tests without a server), or until a page takes
+        these panels built ahead (at most the last PENDING_MAX: more means a proposal run came,
+        and a page then builds its panels anew, see ``stale``)."""
+        with self._pending_lock:
+            if self.served and self.doc is not None:
+                self.doc.add_next_tick_callback(lambda: self.act(fn))
+                return
+            self._pending.append(fn)
+            if self.served:
+                del self._pending[:-PENDING_MAX]
 
     def drain(self, timeout: float = 60.0) -> None:
         """Wait for background work and run what it handed back (tests without a server)."""
