@@ -104,8 +104,11 @@ class Project:
 
     def reread(self) -> None:
         """Forget what this object has read from the file (windows, features, map, graph,
-        proposals), so that the next call reads what other processes have written since."""
-        self._ctx.invalidate()
+        proposals), so that the next call reads what other processes have written since. The
+        window graph and what is made from it are kept with the key of what they were made from
+        (recordings, feature set, window count, graph settings; the proposer also with its run)
+        and used again only while the file still matches it."""
+        self._ctx.reread()
 
     # ------------------------------------------------------------------ settings
     @property

@@ -214,11 +214,18 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     s = np.where(step, switch, 1.0 / k)
     c = np.where(step, stay - switch, 0.0)
     # each block's transfer matrix G_b = A_(L-1) ... A_0 with A_j = diag(E_j) T_j
+    # (in place, each product and sum in the same order as written out: the same numbers)
     G = np.broadcast_to(np.eye(k), (nb, k, k)).copy()
+    col = np.empty((nb, 1, k))
+    top = np.empty((nb, 1, 1))
     for j in range(L):  # all blocks at once
-        G = E[:, j, :, None] * (s[:, j, None, None] * G.sum(axis=1, keepdims=True)
-                                + c[:, j, None, None] * G)
-        G /= G.max(axis=(1, 2), keepdims=True)
+        np.sum(G, axis=1, keepdims=True, out=col)
+        col *= s[:, j, None, None]
+        G *= c[:, j, None, None]
+        G += col
+        G *= E[:, j, :, None]
+        np.max(G, axis=(1, 2), keepdims=True, out=top)
+        G /= top
     g = np.empty((nb, k))  # forward message before each block's first window
     g[0] = 1.0 / k
     for b in range(1, nb):

@@ -13,6 +13,10 @@ from storage import Store
 
 #: progress callbacks get (fraction done 0-1, what is being done)
 Progress = Callable[[float, str], None]
+#: cache entries held as (value, key of what it was made from) or checked against the stored run
+#: on every use: a reread keeps them (the window graph, the classifier's view of the features,
+#: the proposer that made the latest run)
+KEYED = ("graph", "classifier_features", "proposer")
 
 
 def default_annotator() -> str:
@@ -35,7 +39,8 @@ def check_annotator(name: str) -> str:
 class Context:
     """The open project file, who acts, and arrays read from the file (dropped on change).
 
-    Cache keys: ``windows``, ``window_arrays``, ``features``, ``map``, ``graph``, ``proposals``.
+    Cache keys: ``windows``, ``window_arrays``, ``features``, ``map``, ``graph``, ``proposals``,
+    ``classifier_features``, ``proposer``.
     """
 
     def __init__(self, store: Store, annotator: str | None = None):
@@ -64,3 +69,11 @@ class Context:
             self.cache.clear()
         for k in keys:
             self.cache.pop(k, None)
+
+    def reread(self) -> None:
+        """Forget what was read from the file, but for the entries held with the key of what
+        they were made from (:data:`KEYED`: the window graph and what goes with it), which every
+        use checks against the file again."""
+        for k in list(self.cache):
+            if k not in KEYED:
+                del self.cache[k]

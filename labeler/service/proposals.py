@@ -202,13 +202,24 @@ class Proposals:
             progress(0.6, "spreading labels")
         cw = float(DEFAULT_CLASSIFIER_WEIGHT)
         stay = float(DEFAULT_STAY)
-        proposer = self.proposer(alpha, cw, key, stay)
         prev = self.latest_arrays()
         same = prev is not None and prev["meta"].get("graph_key") == key \
             and prev["meta"].get("alpha") == alpha
         init = init_classes = None
-        if same and prev["F"].shape[0] == y.size:
-            init, init_classes = prev["F"].astype(np.float64), prev["classes"]
+        # the proposer that made the stored run, kept by this process: it warm-starts from its
+        # own label mass (float64), solves again only the classes whose confirmed windows
+        # changed, and keeps the normalized graph (no check and no normalization again)
+        kept = self.ctx.cache.get("proposer")
+        settings = (key, alpha, cw, stay)
+        if kept is not None and same and kept[0] == settings and kept[1] == prev["meta"].get(
+                "run_id") and kept[2].spreader_.label_mass_.shape[0] == y.size:
+            proposer, warm = kept[2], True
+        else:
+            proposer = self.proposer(alpha, cw, key, stay)
+            if same and prev["F"].shape[0] == y.size:
+                init, init_classes = prev["F"].astype(np.float64), prev["classes"]
+            warm = init is not None
+        self.ctx.cache.pop("proposer", None)  # kept again once the run is stored
         proposer.fit(W, y, init=init, init_classes=init_classes)
         spreader = proposer.spreader_
         if same and "reference" in prev:
@@ -224,7 +235,7 @@ class Proposals:
                    "mean_confidence": float(out.confidence[unconf].mean()) if unconf.any() else None,
                    "low_support": int((out.support[unconf] < 0.05).sum()),
                    "conflicts": int(((~unconf) & (out.conflict > 0.5)).sum()),
-                   "iterations": int(spreader.n_iter_), "warm_start": init is not None,
+                   "iterations": int(spreader.n_iter_), "warm_start": warm,
                    "graph_rebuilt": bool(rebuilt), "graph_edges": int(W.nnz // 2)}
         params = {"alpha": alpha, **gparams, "solver": spreader.solver, "tol": spreader.tol,
                   "classifier_weight": cw, "stay": stay,
@@ -251,6 +262,7 @@ class Proposals:
             store.put_blob(LATEST_BLOB, latest,
                            {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
         self.ctx.invalidate("proposals")
+        self.ctx.cache["proposer"] = (settings, int(run_id), proposer)
         if progress:
             progress(1.0, "done")
         return ProposalRun(run_id=int(run_id), **summary)
