@@ -423,3 +423,50 @@ def test_accuracy_with_an_answered_audit_reads_the_stored_estimate_without_heavy
     assert out[0].startswith(f"accuracy of proposed windows {want.value:.3f} ("
                              f"{want.level:.0%} interval {want.low:.3f}-{want.high:.3f})")
     assert out[-2] == f"  rests on: {want.note}" and "12 window(s)" in want.note
+
+
+def test_the_proposer_kept_by_the_process_proposes_as_a_refresh_from_nothing(project, sims,
+                                                                            tmp_path):
+    """The app's worker refreshes with the proposer that made the latest run (warm start from
+    its own label mass, only the class with a new confirmation solved again). Spreading stops
+    each class within tol = 1e-6 of the exact solution (2-norm of the column), so proposals
+    made from nothing on the same confirmations agree up to that: the same labels wherever the
+    margin is not a near tie, confidences within 1e-4; margins within 1e-3, as they also take
+    the distribution before smoothing, where a window with little label mass (the error divided
+    by its mass) moves most (tolerances chosen here, no source)."""
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(40)["window_id"], truth)
+    p.refresh_proposals(estimate=False)
+    kept = p._ctx.cache["proposer"][2]
+    unconfirmed = p.proposals().query("not confirmed")["window_id"].to_numpy()
+    for extra in unconfirmed[[5, 300]]:  # one more confirmation each time, as the worker does
+        confirm_truth(p, [int(extra)], truth)
+        p.reread()
+        run = p.refresh_proposals(estimate=False)
+        assert run.warm_start and p._ctx.cache["proposer"][2] is kept
+        assert run.iterations < 40
+    # the same recordings and confirmations in a new project, proposed once from nothing
+    with Project.create(tmp_path / "cold.labeler", annotator="tester") as cold:
+        cold.add_recording_data([sims[0][0], sims[1][0]])
+        lab = p.labels()
+        for name, ids in lab.groupby("class")["window_id"]:
+            cold.confirm(ids.tolist(), name, create_class=True)
+        first = cold.refresh_proposals(estimate=False)
+        assert not first.warm_start
+        a, b = p.proposals(), cold.proposals()
+    assert (a["window_id"] == b["window_id"]).all() and (a["confirmed"] == b["confirmed"]).all()
+    sure = (a["margin"] > 1e-3).to_numpy()
+    assert sure.mean() > 0.9
+    assert (a["label"][sure] == b["label"][sure]).all()
+    assert np.abs(a["confidence"] - b["confidence"]).max() < 1e-4
+    assert np.abs(a["margin"] - b["margin"]).max() < 1e-3
+    # a run made by another process: the kept proposer is not used, the stored run is
+    with Project.open(p.path, annotator="other") as q:
+        confirm_truth(q, [int(unconfirmed[600])], truth)
+        q.refresh_proposals(estimate=False)
+    confirm_truth(p, [int(unconfirmed[700])], truth)
+    p.reread()
+    run = p.refresh_proposals(estimate=False)
+    assert run.warm_start and p._ctx.cache["proposer"][2] is not kept
+    assert run.confirmed == len(p.labels())

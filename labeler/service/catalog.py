@@ -295,12 +295,20 @@ class Catalog:
         """The columns of :meth:`windows` but the recording's name, as arrays (read-only)."""
         cache = self.ctx.cache
         if "window_arrays" not in cache:
-            cols = self.ctx.store.windows_columns()
-            out = {k: np.array(cols[k], dtype=np.int64) for k in
-                   ("id", "recording_id", "seq", "start_sample", "stop_sample")}
-            out.update({k: np.array(cols[k], dtype=np.float64) for k in ("start_s", "stop_s")})
-            for a in out.values():
-                a.flags.writeable = False
+            # a recording's windows are written with it and never change, so the windows are
+            # those of the recordings in the project: kept across a reread with their ids
+            key = [[int(r["id"]), str(r["content_hash"])] for r in self.ctx.store.recordings()]
+            kept = cache.get("window_arrays_kept")
+            if kept is not None and kept[1] == key:
+                out = kept[0]
+            else:
+                cols = self.ctx.store.windows_columns()
+                out = {k: np.array(cols[k], dtype=np.int64) for k in
+                       ("id", "recording_id", "seq", "start_sample", "stop_sample")}
+                out.update({k: np.array(cols[k], dtype=np.float64) for k in ("start_s", "stop_s")})
+                for a in out.values():
+                    a.flags.writeable = False
+                cache["window_arrays_kept"] = (out, key)
             cache["window_arrays"] = out
         return dict(cache["window_arrays"])
 

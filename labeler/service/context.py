@@ -15,8 +15,8 @@ from storage import Store
 Progress = Callable[[float, str], None]
 #: cache entries held as (value, key of what it was made from) or checked against the stored run
 #: on every use: a reread keeps them (the window graph, the classifier's view of the features,
-#: the proposer that made the latest run)
-KEYED = ("graph", "classifier_features", "proposer")
+#: the proposer that made the latest run, the windows' columns with the recordings they belong to)
+KEYED = ("graph", "classifier_features", "proposer", "window_arrays_kept")
 
 
 def default_annotator() -> str:
@@ -40,7 +40,7 @@ class Context:
     """The open project file, who acts, and arrays read from the file (dropped on change).
 
     Cache keys: ``windows``, ``window_arrays``, ``features``, ``map``, ``graph``, ``proposals``,
-    ``classifier_features``, ``proposer``.
+    ``classifier_features``, ``proposer``, ``window_arrays_kept``.
     """
 
     def __init__(self, store: Store, annotator: str | None = None):
