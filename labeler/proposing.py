@@ -141,12 +141,18 @@ def combine(P_graph: np.ndarray, P_clf: np.ndarray, weight: float) -> np.ndarray
     """Product of experts ``P_graph**(1 - weight) * P_clf**weight``, rows normalized; a row the
     graph left at zero takes ``P_clf`` alone."""
     reached = P_graph.sum(axis=1) > 0
-    lg = np.log(np.maximum(P_graph, _EPS))
-    lc = np.log(np.maximum(P_clf, _EPS))
-    L = np.where(reached[:, None], (1.0 - weight) * lg + weight * lc, lc)
+    # in place, each operation as written out in the formula (the same numbers, fewer copies)
+    L = np.maximum(P_graph, _EPS)
+    np.log(L, out=L)
+    lc = np.maximum(P_clf, _EPS)
+    np.log(lc, out=lc)
+    L *= 1.0 - weight
+    L += weight * lc
+    L[~reached] = lc[~reached]
     L -= L.max(axis=1, keepdims=True)
-    P = np.exp(L)
-    return P / P.sum(axis=1, keepdims=True)
+    np.exp(L, out=L)
+    L /= L.sum(axis=1, keepdims=True)
+    return L
 
 
 def _chains(recording, seq, n):
@@ -213,17 +219,21 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     # the chain goes on, forget the past (s = 1/k, c = 0) where a new chain starts
     s = np.where(step, switch, 1.0 / k)
     c = np.where(step, stay - switch, 0.0)
-    # each block's transfer matrix G_b = A_(L-1) ... A_0 with A_j = diag(E_j) T_j
-    # (in place, each product and sum in the same order as written out: the same numbers)
+    # each block's transfer matrix G_b = A_(L-1) ... A_0 with A_j = diag(E_j) T_j; in place,
+    # each product and sum in the same order as written out (the same numbers), from copies of
+    # E, s and c laid out step by step (each step's slice contiguous)
+    Et = np.ascontiguousarray(E.transpose(1, 0, 2))[:, :, :, None]
+    st = np.ascontiguousarray(s.T)[:, :, None, None]
+    ct = np.ascontiguousarray(c.T)[:, :, None, None]
     G = np.broadcast_to(np.eye(k), (nb, k, k)).copy()
     col = np.empty((nb, 1, k))
     top = np.empty((nb, 1, 1))
     for j in range(L):  # all blocks at once
         np.sum(G, axis=1, keepdims=True, out=col)
-        col *= s[:, j, None, None]
-        G *= c[:, j, None, None]
+        col *= st[j]
+        G *= ct[j]
         G += col
-        G *= E[:, j, :, None]
+        G *= Et[j]
         np.max(G, axis=(1, 2), keepdims=True, out=top)
         G /= top
     g = np.empty((nb, k))  # forward message before each block's first window
@@ -237,15 +247,15 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     f = np.empty((nb, L, k))
     v = g
     for j in range(L):
-        v = E[:, j] * (s[:, j, None] * v.sum(axis=1, keepdims=True) + c[:, j, None] * v)
+        v = Et[j, :, :, 0] * (st[j, :, 0] * v.sum(axis=1, keepdims=True) + ct[j, :, 0] * v)
         v = _normalize(v)
         f[:, j] = v
     beta = np.empty((nb, L, k))
     v = h
     beta[:, -1] = v
     for j in range(L - 1, 0, -1):
-        w = E[:, j] * v
-        v = _normalize(s[:, j, None] * w.sum(axis=1, keepdims=True) + c[:, j, None] * w)
+        w = Et[j, :, :, 0] * v
+        v = _normalize(st[j, :, 0] * w.sum(axis=1, keepdims=True) + ct[j, :, 0] * w)
         beta[:, j - 1] = v
     post = _normalize((f * beta).reshape(nb * L, k)[:n])
     out = np.empty_like(post)
