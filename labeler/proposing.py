@@ -357,7 +357,7 @@ class Proposer(BaseEstimator):
         """Per-window outputs: label, distribution, confidence and margin from the combined
         distribution; support and conflict from the graph spreading."""
         y = _check_y(y)
-        base = self.spreader_.outputs(y, reference=reference)
+        support, conflict = self.spreader_.support_conflict(y, reference=reference)
         P = self.label_distributions_
         n, k = P.shape
         label = self.transduction_
@@ -376,5 +376,4 @@ class Proposer(BaseEstimator):
                 differ = reached & (np.argmax(self.graph_distributions_, axis=1)
                                     != np.argmax(Pc, axis=1))
                 margin = np.where(differ & (y < 0), 0.0, margin)
-        return WindowOutputs(self.classes_, label, P, confidence, margin, base.support,
-                             base.conflict)
+        return WindowOutputs(self.classes_, label, P, confidence, margin, support, conflict)

@@ -356,6 +356,19 @@ class LabelSpreader(BaseEstimator):
         return _outputs(self.graph_, self.label_mass_, _check_y(y), self.classes_, reference,
                         float(self.alpha), self.class_balance)
 
+    def support_conflict(self, y, reference=None) -> tuple[np.ndarray, np.ndarray]:
+        """The support and conflict of :meth:`outputs` alone (the same numbers), for ``y`` the
+        labels of the last fit."""
+        y = _check_y(y)
+        if reference is None:
+            reference = self.reference_mass()
+        labeled, classes = y >= 0, self.classes_
+        col = np.searchsorted(classes, y)  # a confirmed window's column (the rest are not read)
+        col_ok = (col < classes.size) & (classes[np.minimum(col, classes.size - 1)] == y)
+        col = np.minimum(col, classes.size - 1)
+        return _support_conflict(self.graph_, np.maximum(self.label_mass_, 0.0).sum(axis=1),
+                                 self.label_distributions_, labeled, col, col_ok, reference)
+
 
 def _distributions(F, y, classes, class_balance):
     """Rows of F (optionally divided per class by its confirmation count) normalized to sum 1."""
@@ -408,6 +421,15 @@ def _outputs(W, F, y, classes, reference, alpha, class_balance) -> WindowOutputs
         margin = P[:, 0].copy()
     if reference is None:
         reference = reference_mass(W, alpha)
+    support, conflict = _support_conflict(W, mass, P, labeled, col, col_ok, reference)
+    return WindowOutputs(classes, label, P, confidence, margin, support, conflict)
+
+
+def _support_conflict(W, mass, P, labeled, col, col_ok, reference):
+    """(support, conflict) of :class:`WindowOutputs` from the label mass per window, the
+    distributions ``P``, the confirmed windows, each window's column in ``P`` (and whether it
+    has one) and the reference mass."""
+    n = mass.size
     reference = np.asarray(reference, dtype=np.float64)
     support = np.clip(np.divide(mass, reference, out=np.zeros(n), where=reference > 0), 0.0, 1.0)
     # conflict: neighbours' backing of the confirmed label
@@ -421,4 +443,4 @@ def _outputs(W, F, y, classes, reference, alpha, class_balance) -> WindowOutputs
         back = np.bincount(rows, weights=Wl.data * P[Wl.indices, col[idx][rows]], minlength=idx.size)
         share = np.divide(back, deg, out=np.ones(idx.size), where=deg > 0)
         conflict[idx] = np.where(col_ok[idx], 1.0 - share, 1.0)
-    return WindowOutputs(classes, label, P, confidence, margin, support, np.clip(conflict, 0.0, 1.0))
+    return support, np.clip(conflict, 0.0, 1.0)

@@ -270,3 +270,18 @@ def test_warm_refreshes_match_scikit_learn_after_every_kind_of_change(digits_gra
         out = warm.outputs(y)
         np.testing.assert_allclose(out.distribution, window_outputs(W, warm.label_mass_, y,
                                                                     classes=warm.classes_).distribution)
+
+
+@pytest.mark.parametrize("class_balance", [False, True])
+def test_support_and_conflict_alone_are_those_of_the_outputs(digits_graph, class_balance):
+    """scikit-learn's digits (Alpaydin & Kaynak 1998), 60 confirmed."""
+    _, y_true, W, _ = digits_graph
+    rng = np.random.default_rng(4)
+    y = np.full(y_true.size, -1)
+    idx = rng.choice(y_true.size, 60, replace=False)
+    y[idx] = y_true[idx]
+    sp = LabelSpreader(class_balance=class_balance).fit(W, y)
+    full = sp.outputs(y)
+    support, conflict = sp.support_conflict(y)
+    assert np.array_equal(full.support, support) and np.array_equal(full.conflict, conflict)
+    assert conflict[y < 0].max() == 0 and conflict[y >= 0].max() > 0
