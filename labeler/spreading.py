@@ -362,12 +362,9 @@ class LabelSpreader(BaseEstimator):
         y = _check_y(y)
         if reference is None:
             reference = self.reference_mass()
-        labeled, classes = y >= 0, self.classes_
-        col = np.searchsorted(classes, y)  # a confirmed window's column (the rest are not read)
-        col_ok = (col < classes.size) & (classes[np.minimum(col, classes.size - 1)] == y)
-        col = np.minimum(col, classes.size - 1)
+        col, col_ok = _columns(self.classes_, y)  # a confirmed window's (the rest are not read)
         return _support_conflict(self.graph_, np.maximum(self.label_mass_, 0.0).sum(axis=1),
-                                 self.label_distributions_, labeled, col, col_ok, reference)
+                                 self.label_distributions_, y >= 0, col, col_ok, reference)
 
 
 def _distributions(F, y, classes, class_balance):
@@ -410,9 +407,7 @@ def _outputs(W, F, y, classes, reference, alpha, class_balance) -> WindowOutputs
     top = np.argmax(P, axis=1)
     label = classes[top]
     label = np.where(labeled, y, label)
-    col = np.searchsorted(classes, label)
-    col_ok = (col < classes.size) & (classes[np.minimum(col, classes.size - 1)] == label)
-    col = np.minimum(col, classes.size - 1)
+    col, col_ok = _columns(classes, label)
     confidence = np.where(col_ok, P[np.arange(n), col], 0.0)
     if classes.size > 1:
         part = np.partition(P, classes.size - 2, axis=1)
@@ -423,6 +418,14 @@ def _outputs(W, F, y, classes, reference, alpha, class_balance) -> WindowOutputs
         reference = reference_mass(W, alpha)
     support, conflict = _support_conflict(W, mass, P, labeled, col, col_ok, reference)
     return WindowOutputs(classes, label, P, confidence, margin, support, conflict)
+
+
+def _columns(classes, codes):
+    """Each window's column in a (windows x classes) array for its class code, and whether the
+    code is one of ``classes`` (where not, the column is a valid index that must not be read)."""
+    col = np.searchsorted(classes, codes)
+    col_ok = (col < classes.size) & (classes[np.minimum(col, classes.size - 1)] == codes)
+    return np.minimum(col, classes.size - 1), col_ok
 
 
 def _support_conflict(W, mass, P, labeled, col, col_ok, reference):
