@@ -70,7 +70,8 @@ def _cpu() -> tuple[float, float]:
 
 
 def _ingest(folder: Path, project: Path, workers: int, backend: str, dask_defaults: bool):
-    """(wall seconds, report, CPU seconds of this process, of the workers, load at the start)."""
+    """(wall seconds, report, CPU seconds of this process, of the workers, load at the start,
+    CPU seconds of the fork server the workers came from)."""
     load = os.getloadavg()[0]
     settings = (contextlib.nullcontext if dask_defaults else study_runner.local_worker_settings)
     saved = study_runner.local_worker_settings
@@ -85,24 +86,31 @@ def _ingest(folder: Path, project: Path, workers: int, backend: str, dask_defaul
         study_runner.local_worker_settings = saved
     if rep.refused:
         raise SystemExit(f"refused: {rep.refused[0].reason}")
-    # forked workers are the fork server's children, not this process's: ask the report
-    workers_cpu = rep.worker_cpu_seconds if rep.worker_cpu_seconds is not None else kids1 - kids0
-    return seconds, rep, me1 - me0, workers_cpu, load
+    # forked workers are the fork server's children, not this process's: ask the report, or
+    # (a process pool, which cannot tell) the fork server for the workers it has reaped
+    own, reaped = _forkserver_cpu()
+    if rep.worker_cpu_seconds is not None:
+        workers_cpu = rep.worker_cpu_seconds
+    else:
+        workers_cpu = kids1 - kids0 + reaped
+    return seconds, rep, me1 - me0, workers_cpu, load, own
 
 
-def _forkserver_cpu() -> float:
-    """CPU seconds of this process's fork server (it loads the workers' modules once), if any."""
+def _forkserver_cpu() -> tuple[float, float]:
+    """CPU seconds of this process's fork server (it loads the workers' modules once) and of the
+    workers it has reaped; zeros without one."""
     import psutil
 
-    total = 0.0
+    own = reaped = 0.0
     for child in psutil.Process().children():
         try:
             if "forkserver" in " ".join(child.cmdline()):
                 t = child.cpu_times()
-                total += t.user + t.system
+                own += t.user + t.system
+                reaped += t.children_user + t.children_system
         except psutil.Error:
             pass
-    return total
+    return own, reaped
 
 
 def _ingest_fresh(*args):
@@ -111,11 +119,7 @@ def _ingest_fresh(*args):
     import multiprocessing
 
     with cf.ProcessPoolExecutor(1, mp_context=multiprocessing.get_context("spawn")) as ex:
-        return ex.submit(_ingest_and_forkserver, *args).result()
-
-
-def _ingest_and_forkserver(*args):
-    return _ingest(*args) + (_forkserver_cpu(),)
+        return ex.submit(_ingest, *args).result()
 
 
 def _pair(folder: Path, tmp: Path, n: int, backend: str, dask_defaults: bool, tag: str) -> tuple:
