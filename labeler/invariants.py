@@ -139,18 +139,18 @@ def sym3_eigen(sxx, syy, szz, sxy, sxz, syz):
 
 
 def _percentiles(x: np.ndarray, qs) -> list[np.ndarray]:
-    """Percentiles of each row of ``x`` with linear interpolation (``numpy.percentile``'s
+    """Percentiles over the last axis of ``x`` with linear interpolation (``numpy.percentile``'s
     default), from one sort."""
-    srt = np.sort(x, axis=1)
-    L = x.shape[1]
+    srt = np.sort(x, axis=-1)
+    L = x.shape[-1]
     out = []
     for q in qs:
         pos = q / 100.0 * (L - 1)
         i0 = int(math.floor(pos))
         frac = pos - i0
-        v = srt[:, i0]
+        v = srt[..., i0]
         if frac > 0:
-            v = v + frac * (srt[:, min(i0 + 1, L - 1)] - v)
+            v = v + frac * (srt[..., min(i0 + 1, L - 1)] - v)
         out.append(v)
     return out
 
@@ -199,16 +199,8 @@ def stacked_invariant_features(a: np.ndarray, triads, rate: float, edges) -> np.
     ax, ay, az = a[:, 0], a[:, 1], a[:, 2]  # (T, n, L)
     out: dict[str, np.ndarray] = {}  # name -> (T, n)
     norm = _norm3(ax, ay, az, np.empty_like(ax), np.empty_like(ax))
-    srt = np.sort(norm, axis=-1)
-    for q in (10, 50, 90):
-        pos = q / 100.0 * (L - 1)
-        i0 = int(math.floor(pos))
-        frac = pos - i0
-        v = srt[..., i0]
-        if frac > 0:
-            v = v + frac * (srt[..., min(i0 + 1, L - 1)] - v)
+    for q, v in zip((10, 50, 90), _percentiles(norm, (10, 50, 90))):
         out[f"inv.p{q}"] = v
-    del srt
     mean = a.mean(axis=-1)  # (T, 3, n)
     d = a - mean[..., None]
     dx, dy, dz = d[:, 0], d[:, 1], d[:, 2]
