@@ -132,9 +132,27 @@ def classifier_probabilities(Z, y, classes, *, C: float = DEFAULT_C) -> np.ndarr
         # to the optimum at the default tolerance)
         clf = LogisticRegression(C=C, solver="newton-cg", tol=1e-6, max_iter=100).fit(Z[lab],
                                                                                    y[lab])
+    if clf.classes_.size > 2:
+        proba = _softmax_scores(Z, clf.coef_, clf.intercept_)
+    else:
+        proba = clf.predict_proba(Z)
+    if np.array_equal(clf.classes_, classes):
+        return proba
     P = np.zeros((n, classes.size))
-    P[:, np.searchsorted(classes, clf.classes_)] = clf.predict_proba(Z)
+    P[:, np.searchsorted(classes, clf.classes_)] = proba
     return P
+
+
+def _softmax_scores(Z, coef, intercept) -> np.ndarray:
+    """A multinomial logistic regression's class probabilities of the rows of ``Z``: the
+    operations of scikit-learn's ``predict_proba`` (its ``decision_function``, then its
+    ``softmax``) in the same order, so the same numbers, without its input checks (``Z`` is the
+    float64 array the model was trained on rows of)."""
+    D = Z @ coef.T + intercept
+    D -= _row_max(D)
+    np.exp(D, out=D)
+    D /= np.sum(D, axis=1).reshape(-1, 1)
+    return D
 
 
 def combine(P_graph: np.ndarray, P_clf: np.ndarray, weight: float) -> np.ndarray:
@@ -146,10 +164,13 @@ def combine(P_graph: np.ndarray, P_clf: np.ndarray, weight: float) -> np.ndarray
     np.log(L, out=L)
     lc = np.maximum(P_clf, _EPS)
     np.log(lc, out=lc)
+    alone = None if reached.all() else lc[~reached]
     L *= 1.0 - weight
-    L += weight * lc
-    L[~reached] = lc[~reached]
-    L -= L.max(axis=1, keepdims=True)
+    lc *= weight
+    L += lc
+    if alone is not None:
+        L[~reached] = alone
+    L -= _row_max(L)
     np.exp(L, out=L)
     L /= L.sum(axis=1, keepdims=True)
     return L
@@ -172,12 +193,29 @@ def _chains(recording, seq, n):
 
 
 def _margin(P: np.ndarray) -> np.ndarray:
-    """Top probability minus the second one, per row."""
+    """Top probability minus the second one, per row (the two largest values found column by
+    column: the same values as sorting each row, fewer passes over few columns)."""
     k = P.shape[1]
     if k < 2:
         return P[:, 0].copy() if k else np.zeros(P.shape[0])
-    part = np.partition(P, k - 2, axis=1)
-    return part[:, -1] - part[:, -2]
+    top = np.maximum(P[:, 0], P[:, 1])
+    second = np.minimum(P[:, 0], P[:, 1])
+    low = np.empty_like(top)
+    for i in range(2, k):
+        np.minimum(top, P[:, i], out=low)
+        np.maximum(second, low, out=second)
+        np.maximum(top, P[:, i], out=top)
+    top -= second
+    return top
+
+
+def _row_max(A: np.ndarray) -> np.ndarray:
+    """The largest value of each row of a 2-D array without NaN, as a column (n x 1), found
+    column by column (the same values as ``A.max(axis=1)``; faster for few columns)."""
+    m = A[:, 0].copy()
+    for i in range(1, A.shape[1]):
+        np.maximum(m, A[:, i], out=m)
+    return m[:, None]
 
 
 def _normalize(v: np.ndarray) -> np.ndarray:
@@ -196,12 +234,14 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     transfer matrix, then the messages at the block borders one block after the other, then every
     window's message from its block's border (the same numbers as one pass, in O(sqrt(n)) steps
     of numpy instead of O(n)). The transition is applied as ``T v = s * sum(v) + c * v``, so no
-    k x k matrix per window is formed.
+    k x k matrix per window is formed. The arrays are laid out step, class(es), block, so that
+    every operation of a step runs over all blocks as one contiguous row and the sums over
+    classes add whole rows one after the other (with fewer than 8 classes the same order, so the
+    same numbers, as a sum along a row; from 8 on numpy sums a row in another order, which moves
+    the result by a few units in the last place).
     """
     P = np.asarray(P, dtype=np.float64)
     n, k = P.shape
-    if not (0 < stay < 1):
-        raise ProposingInputError(f"stay must lie strictly between 0 and 1, got {stay}")
     chains = _chains(recording, seq, n)
     if chains is None or k < 2 or stay <= 1.0 / k or n < 2:
         return P.copy()
@@ -211,53 +251,57 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     nb = int(np.ceil(n / L))
     E = np.ones((nb * L, k))
     E[:n] = np.maximum(P[order], 1e-12) ** temper
-    E = E.reshape(nb, L, k)
+    # step, class, block: every operation of a step runs over the blocks, contiguous
+    Et = np.ascontiguousarray(E.reshape(nb, L, k).transpose(1, 2, 0))
     step = np.zeros(nb * L, dtype=bool)
     step[:n] = cont
-    step = step.reshape(nb, L)
-    # T v = s * sum(v) + c * v: stay or switch uniformly (s = switch, c = stay - switch) where
-    # the chain goes on, forget the past (s = 1/k, c = 0) where a new chain starts
-    s = np.where(step, switch, 1.0 / k)
-    c = np.where(step, stay - switch, 0.0)
-    # each block's transfer matrix G_b = A_(L-1) ... A_0 with A_j = diag(E_j) T_j; in place,
-    # each product and sum in the same order as written out (the same numbers), from copies of
-    # E, s and c laid out step by step (each step's slice contiguous)
-    Et = np.ascontiguousarray(E.transpose(1, 0, 2))[:, :, :, None]
-    st = np.ascontiguousarray(s.T)[:, :, None, None]
-    ct = np.ascontiguousarray(c.T)[:, :, None, None]
-    G = np.broadcast_to(np.eye(k), (nb, k, k)).copy()
-    col = np.empty((nb, 1, k))
-    top = np.empty((nb, 1, 1))
-    for j in range(L):  # all blocks at once
-        np.sum(G, axis=1, keepdims=True, out=col)
+    step = np.ascontiguousarray(step.reshape(nb, L).T)
+    st = np.where(step, switch, 1.0 / k)
+    ct = np.where(step, stay - switch, 0.0)
+    # each block's transfer matrix G_b = A_(L-1) ... A_0 with A_j = diag(E_j) T_j, all blocks at
+    # once (G[i, m, b]); in place, each product and sum in the same order as written out
+    G = np.zeros((k, k, nb))
+    G[np.arange(k), np.arange(k)] = 1.0
+    col = np.empty((k, nb))
+    top = np.empty(nb)
+    for j in range(L):
+        np.sum(G, axis=0, out=col)
         col *= st[j]
         G *= ct[j]
         G += col
-        G *= Et[j]
-        np.max(G, axis=(1, 2), keepdims=True, out=top)
+        G *= Et[j][:, None, :]
+        np.max(G, axis=(0, 1), out=top)
         G /= top
+    Gb = np.ascontiguousarray(G.transpose(2, 0, 1))  # one k x k matrix per block
     g = np.empty((nb, k))  # forward message before each block's first window
     g[0] = 1.0 / k
     for b in range(1, nb):
-        g[b] = _normalize(G[b - 1] @ g[b - 1])
+        g[b] = _normalize(Gb[b - 1] @ g[b - 1])
     h = np.empty((nb, k))  # backward message at each block's last window
     h[-1] = 1.0
     for b in range(nb - 2, -1, -1):
-        h[b] = _normalize(G[b + 1].T @ h[b + 1])
-    f = np.empty((nb, L, k))
-    v = g
+        h[b] = _normalize(Gb[b + 1].T @ h[b + 1])
+    f = np.empty((L, k, nb))  # every window's forward message from its block's border
+    v = np.ascontiguousarray(g.T)
+    tot = np.empty(nb)
     for j in range(L):
-        v = Et[j, :, :, 0] * (st[j, :, 0] * v.sum(axis=1, keepdims=True) + ct[j, :, 0] * v)
-        v = _normalize(v)
-        f[:, j] = v
-    beta = np.empty((nb, L, k))
-    v = h
-    beta[:, -1] = v
+        np.sum(v, axis=0, out=tot)
+        v = Et[j] * (st[j] * tot + ct[j] * v)
+        np.sum(v, axis=0, out=tot)
+        v /= tot
+        f[j] = v
+    beta = np.empty((L, k, nb))  # ... and backward message
+    v = np.ascontiguousarray(h.T)
+    beta[-1] = v
     for j in range(L - 1, 0, -1):
-        w = Et[j, :, :, 0] * v
-        v = _normalize(st[j, :, 0] * w.sum(axis=1, keepdims=True) + ct[j, :, 0] * w)
-        beta[:, j - 1] = v
-    post = _normalize((f * beta).reshape(nb * L, k)[:n])
+        w = Et[j] * v
+        np.sum(w, axis=0, out=tot)
+        v = st[j] * tot + ct[j] * w
+        np.sum(v, axis=0, out=tot)
+        v /= tot
+        beta[j - 1] = v
+    f *= beta
+    post = _normalize(f.transpose(2, 0, 1).reshape(nb * L, k)[:n])
     out = np.empty_like(post)
     out[order] = post
     return out

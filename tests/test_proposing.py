@@ -9,8 +9,8 @@ import pytest
 from sklearn.linear_model import LogisticRegression
 
 from labeler.graph import build_graph
-from labeler.proposing import (Proposer, ProposingInputError, classifier_probabilities, combine,
-                               temporal_smoothing)
+from labeler.proposing import (Proposer, ProposingInputError, _margin, _softmax_scores,
+                               classifier_probabilities, combine, temporal_smoothing)
 from labeler.spreading import LabelSpreader
 
 
@@ -41,6 +41,40 @@ def test_smoothing_equals_the_sum_over_state_paths(n, gap):
     cont = np.r_[False, np.diff(seq) == 1]
     got = temporal_smoothing(P, np.zeros(n, int), seq, 0.8, temper=1.0)
     np.testing.assert_allclose(got, _posterior_by_enumeration(P, 0.8, cont), atol=1e-12)
+
+
+@pytest.mark.parametrize("k", [8, 9])
+def test_smoothing_with_eight_classes_and_more_equals_the_sum_over_state_paths(k):
+    # from 8 classes numpy sums a row in another order than the class-major layout adds rows:
+    # only the last places may differ
+    rng = np.random.default_rng(k)
+    P = rng.dirichlet(np.ones(k), 5)
+    got = temporal_smoothing(P, np.zeros(5, int), np.arange(5), 0.8, temper=1.0)
+    np.testing.assert_allclose(got, _posterior_by_enumeration(P, 0.8, np.r_[False, [True] * 4]),
+                               atol=1e-12)
+
+
+def test_margin_is_the_top_two_of_a_sort_bit_for_bit():
+    rng = np.random.default_rng(11)
+    for k in (1, 2, 3, 7, 9):
+        P = rng.dirichlet(np.ones(k), 500)
+        P[:50] = np.round(P[:50], 1)  # ties among the top two
+        part = np.sort(P, axis=1)
+        want = part[:, -1] - part[:, -2] if k > 1 else P[:, 0]
+        assert np.array_equal(_margin(P), want)
+
+
+def test_classifier_probabilities_are_scikit_learns_predict_proba_bit_for_bit():
+    from sklearn.datasets import load_digits
+
+    X, t = load_digits(return_X_y=True)
+    y = np.full(t.size, -1)
+    y[::15] = t[::15]
+    Z = X / 16.0
+    clf = LogisticRegression(C=1.0, solver="newton-cg", tol=1e-6, max_iter=100).fit(Z[y >= 0],
+                                                                                   y[y >= 0])
+    assert np.array_equal(classifier_probabilities(Z, y, np.arange(10)), clf.predict_proba(Z))
+    assert np.array_equal(_softmax_scores(Z, clf.coef_, clf.intercept_), clf.predict_proba(Z))
 
 
 def test_smoothing_of_several_recordings_in_any_order_is_per_recording():

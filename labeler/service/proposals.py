@@ -202,29 +202,34 @@ class Proposals:
             progress(0.6, "spreading labels")
         cw = float(DEFAULT_CLASSIFIER_WEIGHT)
         stay = float(DEFAULT_STAY)
-        prev = self.latest_arrays()
-        same = prev is not None and prev["meta"].get("graph_key") == key \
-            and prev["meta"].get("alpha") == alpha
+        # the stored run's meta alone first: with the proposer that made it kept by this process,
+        # its arrays (about 10 MB at 100k windows) are not read
+        meta = self.ctx.store.blob_meta(LATEST_BLOB)
+        same = meta is not None and meta.get("graph_key") == key and meta.get("alpha") == alpha
         init = init_classes = None
         # the proposer that made the stored run, kept by this process: it warm-starts from its
         # own label mass (float64), solves again only the classes whose confirmed windows
-        # changed, and keeps the normalized graph (no check and no normalization again)
+        # changed, and keeps the normalized graph (no check and no normalization again); the
+        # reference mass is kept with it as the run stored it (float32)
         kept = self.ctx.cache.get("proposer")
         settings = (key, alpha, cw, stay)
-        if kept is not None and same and kept[0] == settings and kept[1] == prev["meta"].get(
+        if kept is not None and same and kept[0] == settings and kept[1] == meta.get(
                 "run_id") and kept[2].spreader_.label_mass_.shape[0] == y.size:
-            proposer, warm = kept[2], True
+            proposer, warm, reference = kept[2], True, kept[3]
         else:
+            prev = self.latest_arrays()  # meta and arrays of one run, read together
+            same = prev is not None and prev["meta"].get("graph_key") == key \
+                and prev["meta"].get("alpha") == alpha
             proposer = self.proposer(alpha, cw, key, stay)
             if same and prev["F"].shape[0] == y.size:
                 init, init_classes = prev["F"].astype(np.float64), prev["classes"]
             warm = init is not None
+            reference = prev["reference"].astype(np.float64) if same and "reference" in prev \
+                else None
         self.ctx.cache.pop("proposer", None)  # kept again once the run is stored
         proposer.fit(W, y, init=init, init_classes=init_classes)
         spreader = proposer.spreader_
-        if same and "reference" in prev:
-            reference = prev["reference"].astype(np.float64)
-        else:
+        if reference is None:
             reference = spreader.reference_mass()
         out = proposer.outputs(y, reference=reference)
         unconf = y < 0
@@ -247,14 +252,15 @@ class Proposals:
                                f"(Rabiner 1989) with stay probability {stay:g}" if stay > 0
                                else ""),
                   "graph_key": key}
+        stored_reference = np.asarray(reference, dtype=np.float32)
         rid, seq = self.catalog.window_sequence()  # kept with the run: the queue reads no windows
         latest = npz_bytes(dict(
-            window_id=self.catalog.windows()["id"].to_numpy(np.int64), recording_id=rid, seq=seq,
+            window_id=self.catalog.window_arrays()["id"], recording_id=rid, seq=seq,
             F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
             label=out.label, confidence=out.confidence.astype(np.float32),
             margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
             conflict=out.conflict.astype(np.float32), y=y,
-            reference=np.asarray(reference, dtype=np.float32)))
+            reference=stored_reference))
         summary["seconds"] = round(time.perf_counter() - t0, 3)
         store = self.ctx.store
         with store.atomic():
@@ -262,7 +268,8 @@ class Proposals:
             store.put_blob(LATEST_BLOB, latest,
                            {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
         self.ctx.invalidate("proposals")
-        self.ctx.cache["proposer"] = (settings, int(run_id), proposer)
+        self.ctx.cache["proposer"] = (settings, int(run_id), proposer,
+                                      stored_reference.astype(np.float64))
         if progress:
             progress(1.0, "done")
         return ProposalRun(run_id=int(run_id), **summary)
