@@ -903,6 +903,15 @@ class Store:
         row = self.conn.execute("SELECT data, meta FROM blobs WHERE key = ?", (key,)).fetchone()
         return None if row is None else (row[0], json.loads(row[1] or "{}"))
 
+    def get_blobs(self, keys: Sequence[str]) -> dict[str, tuple[bytes, dict]]:
+        """The blobs ``keys`` that exist, as {key: (data, meta)}, read by one statement (so one
+        state of the file, whatever another process commits meanwhile)."""
+        keys = list(keys)
+        rows = self.conn.execute(
+            f"SELECT key, data, meta FROM blobs WHERE key IN ({', '.join('?' * len(keys))})",
+            keys).fetchall() if keys else []
+        return {r[0]: (r[1], json.loads(r[2] or "{}")) for r in rows}
+
     def blob_meta(self, key: str) -> dict | None:
         """The meta of blob ``key`` without its data (None when there is no such blob)."""
         row = self.conn.execute("SELECT meta FROM blobs WHERE key = ?", (key,)).fetchone()

@@ -470,3 +470,52 @@ def test_the_proposer_kept_by_the_process_proposes_as_a_refresh_from_nothing(pro
     run = p.refresh_proposals(estimate=False)
     assert run.warm_start and p._ctx.cache["proposer"][2] is not kept
     assert run.confirmed == len(p.labels())
+
+
+def test_the_window_order_and_reference_are_stored_once_per_graph_and_alpha(project, sims):
+    """A run stores what it changes; the window order and the reference mass (the same for every
+    run on one graph and alpha) are written with the first run that uses them and read with
+    every later one; a run stored with every array in one blob is still read."""
+    from labeler.npzview import npz_arrays, npz_bytes
+    from labeler.service.proposals import FRAME_BLOB, LATEST_BLOB
+
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(30)["window_id"], truth)
+    first = p.refresh_proposals(estimate=False)
+    store = p._ctx.store
+
+    def frame_run():
+        return store.conn.execute("SELECT run_id FROM blobs WHERE key = ?",
+                                  (FRAME_BLOB,)).fetchone()[0]
+
+    assert frame_run() == first.run_id
+    confirm_truth(p, [int(p.proposals().query("not confirmed")["window_id"].iloc[7])], truth)
+    p.reread()
+    second = p.refresh_proposals(estimate=False)
+    assert frame_run() == first.run_id  # not written again
+    assert "window_id" not in npz_arrays(store.get_blob(LATEST_BLOB)[0])
+    arrays = p._proposals.latest_arrays()
+    assert arrays["meta"]["run_id"] == second.run_id
+    assert np.array_equal(arrays["window_id"], p.windows()["id"].to_numpy())
+    rid, seq = p._catalog.window_sequence()
+    assert np.array_equal(arrays["recording_id"], rid) and np.array_equal(arrays["seq"], seq)
+    spreader = p._ctx.cache["proposer"][2].spreader_
+    assert np.array_equal(arrays["reference"], spreader.reference_mass().astype(np.float32))
+    # another alpha: another reference, so the frame is written again
+    third = p.refresh_proposals(alpha=0.8, estimate=False)
+    assert frame_run() == third.run_id
+    # a run stored before the frame was split off (every array in the run's blob) is read as is
+    whole = {k: np.asarray(v) for k, v in p._proposals.latest_arrays().items() if k != "meta"}
+    meta = store.blob_meta(LATEST_BLOB)
+    with store.atomic():
+        store.put_blob(LATEST_BLOB, npz_bytes(whole), meta, run_id=third.run_id)
+        store.conn.execute("DELETE FROM blobs WHERE key = ?", (FRAME_BLOB,))
+    p.reread()
+    before = p.proposals()
+    assert np.array_equal(p._proposals.latest_arrays()["window_id"], whole["window_id"])
+    assert len(p.review_queue(10)) == 10
+    p._ctx.cache.pop("proposer")
+    fourth = p.refresh_proposals(alpha=0.8, estimate=False)
+    assert fourth.warm_start and frame_run() == fourth.run_id
+    assert (p.proposals()["window_id"] == before["window_id"]).all()

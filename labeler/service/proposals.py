@@ -32,6 +32,10 @@ np = numpy_when_used(globals())
 
 GRAPH_BLOB = "proposals/graph"
 LATEST_BLOB = "proposals/latest"
+#: what the latest run's arrays go with and a refresh does not change: the window order
+#: (window_id, recording_id, seq) and the reference mass; written only when the graph or alpha
+#: change (meta: graph_key, alpha), in the transaction of the run that first uses it
+FRAME_BLOB = "proposals/frame"
 GRAPH_PARAMS = ("n_neighbors", "temporal_weight", "pca_components")
 #: the review queue draws windows with probability ~ score**QUEUE_POWER, plus QUEUE_FLOOR spread
 #: evenly, so each shown window's chance is known. On the simulator (1383 windows, 2 runs) the
@@ -42,6 +46,11 @@ QUEUE_FLOOR = 0.05
 QUEUE_COLUMNS = ["window_id", "reason", "score", "proposed", "confidence", "recording", "start_s"]
 PROPOSAL_COLUMNS = ["window_id", "label", "class_id", "confidence", "margin", "support", "conflict",
                     "confirmed"]
+
+
+def _frame_meta(meta: dict) -> dict:
+    """The meta of the frame a run with this meta goes with."""
+    return {"graph_key": meta.get("graph_key"), "alpha": meta.get("alpha")}
 
 
 class Proposals:
@@ -164,12 +173,20 @@ class Proposals:
         return None if meta is None or meta.get("run_id") is None else int(meta["run_id"])
 
     def latest_arrays(self) -> dict | None:
-        """The latest stored proposal arrays (npz) with their run, or None."""
-        got = self.ctx.store.get_blob(LATEST_BLOB)
-        if got is None:
+        """The latest stored proposal arrays (npz) with their run, or None: the run's own
+        arrays and the frame they go with (:data:`FRAME_BLOB`; a run stored before the frame was
+        split off holds every array itself)."""
+        got = self.ctx.store.get_blobs([LATEST_BLOB, FRAME_BLOB])  # one state of the file
+        if LATEST_BLOB not in got:
             return None
-        out: dict = npz_arrays(got[0])  # read-only views of the blob
-        out["meta"] = got[1]
+        data, meta = got[LATEST_BLOB]
+        out: dict = npz_arrays(data)  # read-only views of the blob
+        if "window_id" not in out:
+            frame = got.get(FRAME_BLOB)
+            if frame is None or frame[1] != _frame_meta(meta):
+                return None  # not written by any version: nothing to read the run with
+            out.update(npz_arrays(frame[0]))
+        out["meta"] = meta
         return out
 
     def refresh(self, *, alpha: float | None = None, n_neighbors: int = 10,
@@ -253,18 +270,23 @@ class Proposals:
                                else ""),
                   "graph_key": key}
         stored_reference = np.asarray(reference, dtype=np.float32)
-        rid, seq = self.catalog.window_sequence()  # kept with the run: the queue reads no windows
         latest = npz_bytes(dict(
-            window_id=self.catalog.window_arrays()["id"], recording_id=rid, seq=seq,
             F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
             label=out.label, confidence=out.confidence.astype(np.float32),
             margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
-            conflict=out.conflict.astype(np.float32), y=y,
-            reference=stored_reference))
-        summary["seconds"] = round(time.perf_counter() - t0, 3)
+            conflict=out.conflict.astype(np.float32), y=y))
         store = self.ctx.store
+        frame_meta = _frame_meta({"graph_key": key, "alpha": alpha})
+        summary["seconds"] = round(time.perf_counter() - t0, 3)
         with store.atomic():
             run_id = store.add_run("proposals", params, summary, created_by=self.ctx.annotator)
+            if store.blob_meta(FRAME_BLOB) != frame_meta:
+                # the window order (kept with the run: the queue reads no windows) and the
+                # reference mass, written again only when the graph or alpha change
+                rid, seq = self.catalog.window_sequence()
+                store.put_blob(FRAME_BLOB, npz_bytes(dict(
+                    window_id=self.catalog.window_arrays()["id"], recording_id=rid, seq=seq,
+                    reference=stored_reference)), frame_meta, run_id=run_id)
             store.put_blob(LATEST_BLOB, latest,
                            {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
         self.ctx.invalidate("proposals")
