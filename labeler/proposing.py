@@ -222,8 +222,8 @@ def _normalize(v: np.ndarray) -> np.ndarray:
     return v / v.sum(axis=-1, keepdims=True)
 
 
-def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: float = 1.0
-                       ) -> np.ndarray:
+def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: float = 1.0,
+                       *, chains=None) -> np.ndarray:
     """Posterior class distribution of each window given the emissions ``P`` (rows) of its whole
     recording, by forward-backward with a "stay or switch uniformly" transition (see the module
     docstring). ``stay`` in (0, 1); at or below 1/k (k classes) nothing is smoothed. ``temper``
@@ -238,11 +238,13 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     every operation of a step runs over all blocks as one contiguous row and the sums over
     classes add whole rows one after the other (with fewer than 8 classes the same order, so the
     same numbers, as a sum along a row; from 8 on numpy sums a row in another order, which moves
-    the result by a few units in the last place).
+    the result by a few units in the last place). ``chains``: what :func:`_chains` gives for
+    ``recording`` and ``seq`` when the caller keeps it (the same for every refresh).
     """
     P = np.asarray(P, dtype=np.float64)
     n, k = P.shape
-    chains = _chains(recording, seq, n)
+    if chains is None:
+        chains = _chains(recording, seq, n)
     if chains is None or k < 2 or stay <= 1.0 / k or n < 2:
         return P.copy()
     order, cont = chains
@@ -390,7 +392,14 @@ class Proposer(BaseEstimator):
         P[np.flatnonzero(lab), np.searchsorted(classes, y[lab])] = 1.0
         self.local_distributions_ = P
         if self.stay > 0 and recording is not None and seq is not None:
-            P = temporal_smoothing(P, recording, seq, float(self.stay), float(self.temper))
+            # the windows' time order is the same for every fit with these arrays: kept
+            kept = getattr(self, "_chains_kept", None)
+            if kept is None or kept[0] is not recording or kept[1] is not seq \
+                    or kept[2][0].size != y.size:
+                kept = (recording, seq, _chains(recording, seq, y.size))
+                self._chains_kept = kept
+            P = temporal_smoothing(P, recording, seq, float(self.stay), float(self.temper),
+                                   chains=kept[2])
         self.spreader_ = sp
         self.classes_ = classes
         self.label_distributions_ = P

@@ -12,7 +12,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Iterable
 
 from labeler.answers import ANSWER_COLOUR, answer_class, is_answer, is_reserved
-from labeler.errors import InputError
+from labeler.errors import InputError, ProjectError
 from labeler.results import ClassCount, ImportReport, ImportRow, LabelBatch, label_batch
 from labeler.service.catalog import Catalog
 from labeler.service.context import Context
@@ -282,11 +282,26 @@ class Ledger:
         return y, names
 
     def class_codes(self) -> np.ndarray:
-        """Current label of every window as its class id (stable across runs), -1 unlabeled."""
-        y, names = self.label_vector()
-        ids = {str(n): int(i) for i, n in self.class_names().items()}
-        lut = np.array([ids[n] for n in names], dtype=np.int64) if names else np.zeros(0, np.int64)
-        return np.where(y >= 0, lut[np.maximum(y, 0)] if lut.size else -1, -1)
+        """Current label of every window as its class id (stable across runs), -1 unlabeled or
+        answered (what :meth:`label_vector` gives, each name taken to the id of that name; read
+        as arrays, without the window table)."""
+        ids = self.catalog.window_arrays()["id"]  # sorted: window-id order
+        y = np.full(ids.size, -1, dtype=np.int64)
+        rows = self.ctx.store.current_labels()
+        if not rows:
+            return y
+        names = self.class_names()
+        by_name = {str(n): int(i) for i, n in names.items()}
+        code = {c: -1 if is_answer(names[c]) else by_name[str(names[c])]
+                for c in {int(r[1]) for r in rows}}
+        wid = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
+        pos = np.searchsorted(ids, wid)
+        if not (pos < ids.size).all() or not np.array_equal(ids[np.minimum(pos, ids.size - 1)],
+                                                             wid):
+            raise ProjectError(f"{self.ctx.path}: a current label names a window the project "
+                               "does not have; the file is damaged, restore it from a backup")
+        y[pos] = np.fromiter((code[int(r[1])] for r in rows), dtype=np.int64, count=len(rows))
+        return y
 
     def history(self, *, annotator: str | None = None, class_name: str | None = None,
                 source: str | None = None, since: str | None = None,
