@@ -253,6 +253,14 @@ def _box(driver, name):
         "return [r.left, r.top, r.width, r.height];", name)
 
 
+def _height(driver, name):
+    """Height of a model's element in the page; 0 when the model is not in the page (yet)."""
+    return driver.execute_script(
+        "const m = Bokeh.documents[0].get_model_by_name(arguments[0]);"
+        "const v = m == null ? null : Bokeh.index.get_one(m);"
+        "return v == null ? 0 : v.el.getBoundingClientRect().height;", name)
+
+
 def test_layout_fits_the_window(driver, served):
     """At 1400x900 the map and the signal are seen together, side panel beside them; at 1000 px the
     side panel moves under them and nothing scrolls sideways."""
@@ -267,7 +275,7 @@ def test_layout_fits_the_window(driver, served):
         sig, side, mp = _box(driver, "signal_box"), _box(driver, "side"), _box(driver, "map")
         assert sig[1] + sig[3] <= inner_h, (sig, inner_h)       # signal in the first viewport
         # nothing picked: no empty gallery; what to do next, and where things stand in sight
-        assert _box(driver, "gallery")[3] == 0
+        assert _height(driver, "gallery") == 0
         assert "Next" in _div_text(driver, "selection")
         for name in ("counts", "estimate", "queue_item"):
             box = _box(driver, name)
@@ -430,18 +438,25 @@ def test_opened_class_drawer_comes_into_sight(driver, served):
                    else None)(_box(driver, "class_drawer")), 20, "the drawer in sight")
     _click_in(driver, "drawer_toggle", "button")          # folded again
     _wait(lambda: _box(driver, "class_drawer")[3] == 0 or None, 20, "the drawer folded")
+    _click_in(driver, "drawer_toggle", "button")          # opened again: the same drawer
+    _wait(lambda: _box(driver, "class_drawer")[3] > 0 or None, 20, "the drawer again")
+    assert driver.execute_script(
+        "return Bokeh.documents[0].get_model_by_name('manage_class').options.length") >= 2
 
 
 def test_gallery_shows_for_a_pick_of_several_windows_only(driver, served):
     srv, _path = served
     _open(driver, srv.url)
-    assert _box(driver, "gallery")[3] == 0
+    assert _height(driver, "gallery") == 0
     driver.execute_script(
         "Bokeh.documents[0].get_model_by_name('map_source').selected.indices = [3, 9, 20, 41];")
     _wait(lambda: _box(driver, "gallery")[3] > 100 or None, 20, "the gallery")
     driver.execute_script("document.activeElement && document.activeElement.blur()")
     _key(driver, ESCAPE)
     _wait(lambda: _box(driver, "gallery")[3] == 0 or None, 20, "the gallery to go")
+    driver.execute_script(                                 # and back for the next pick
+        "Bokeh.documents[0].get_model_by_name('map_source').selected.indices = [5, 11, 30];")
+    _wait(lambda: _box(driver, "gallery")[3] > 100 or None, 20, "the gallery again")
 
 
 def _drag(driver, x0, y0, x1, y1):

@@ -14,6 +14,7 @@ import urllib.request
 import numpy as np
 import pytest
 from bokeh.document import Document
+from bokeh.models import Legend
 
 from labeler.app.document import build_document
 from labeler.app.state import SIZE_CONFIRMED
@@ -508,6 +509,67 @@ def test_enter_and_esc_act_on_what_is_shown(app):
     assert "paused" not in app.side.queue.text and len(app.map.pick_src.data["row"]) == 0
     app.press("Escape")                                # leaves the review
     assert s.current_item() is None and "left the review" in app.side.message.text
+
+
+def _in_document(app, model) -> bool:
+    return model.id in {m.id for m in app.doc.models}
+
+
+def test_gallery_and_drawer_join_the_page_when_first_shown_and_stay(app):
+    """A page starts without the gallery and the class drawer (fewer views for the browser to
+    build before the page is ready); the first pick of several windows puts the gallery in the
+    side panel under the pick's summary, the first opening of the drawer puts the drawer under
+    its toggle, each once, holding what they held when built with the page."""
+    side = app.side
+    assert not _in_document(app, app.gallery.fig) and not _in_document(app, side.drawer)
+    assert not _in_document(app, side.manage_class)
+    app.select_map([3])                                   # one window: still no gallery
+    assert not _in_document(app, app.gallery.fig)
+    app.select_map(np.arange(20))
+    kids = list(side.box.children)
+    assert kids.index(app.gallery.fig) == kids.index(side.selection) + 1
+    assert _in_document(app, app.gallery.fig) and len(app.gallery.cells.data["caption"]) == 9
+    app.select_map(np.arange(20, 30))                     # placed once
+    assert list(side.box.children).count(app.gallery.fig) == 1
+    side.drawer_toggle.active = True
+    kids = list(side.box.children)
+    assert kids.index(side.drawer) == kids.index(side.drawer_toggle) + 1
+    assert side.drawer.visible and _in_document(app, side.manage_class)
+    assert [label for _v, label in side.manage_class.options] == [
+        app.state.class_names[k] for k in app.state.active_codes()]
+    side.drawer_toggle.active = False
+    assert not side.drawer.visible
+    side.drawer_toggle.active = True
+    assert side.drawer.visible and list(side.box.children).count(side.drawer) == 1
+
+
+def test_signal_panel_draws_every_channel_of_the_window_shown(app):
+    """One multi-line per sensor site and kind (acceleration, rotation) holds each channel of the
+    site as read from the project, in its axis colour; the legend names each channel kind and axis
+    once, above the first panel."""
+    s = app.state
+    r = 5
+    app.select_map([r])
+    rec, a, b = s.rec_names[int(s.rec_code[r])], float(s.start[r]), float(s.stop[r])
+    t, sig, names = app.project.signal(rec, a - 4.0, b + 4.0)
+    col = {n: i for i, n in enumerate(names)}
+    drawn = 0
+    for site, srcs in app.signal.srcs.items():
+        for kind, src in srcs.items():
+            for xs, ys, ch, colour in zip(src.data["xs"], src.data["ys"], src.data["channel"],
+                                          src.data["colour"]):
+                assert ch.startswith(site + "_") and (("_gyr_" in ch) == (kind == "gyr"))
+                np.testing.assert_array_equal(xs, t)
+                np.testing.assert_array_equal(ys, sig[:, col[ch]])
+                assert colour == {"x": "#0072B2", "y": "#D55E00", "z": "#009E73"}[ch[-1]]
+                drawn += 1
+    assert drawn == len(s.channels)
+    legends = [x for f in app.signal.figs for x in f.select({"type": Legend})]
+    assert len(legends) == 1 and legends[0] in app.signal.figs[0].above
+    labels = [item.label["value"] for item in legends[0].items]
+    kinds = sorted({("gyr" if "_gyr_" in c else "acc") + " " + c[-1] for c in s.channels})
+    assert sorted(labels) == kinds and len(labels) == len(set(labels))
+    assert sum(len(f.renderers) for f in app.signal.figs) == 2 * len(app.signal.figs)
 
 
 def test_a_pick_shows_a_gallery_of_its_windows(app):

@@ -409,7 +409,8 @@ class LabelerApp(Actions):
                            stylesheets=[self.css])
         self._parts = [[self.header, self.caution], [self.map.bar, self.map.fig, self.signal.box],
                        [self.side.box], [self.timeline.fig, self.key_bus]]
-        for group in self._parts:                           # the page loads no mathematics bundle
+        later = [self.side.drawer, self.gallery.fig]        # join the page when first shown
+        for group in self._parts + [later]:                 # the page loads no mathematics bundle
             for part in group:
                 for div in part.select({"type": Div}):
                     div.disable_math = True
@@ -602,6 +603,8 @@ class LabelerApp(Actions):
 
     def _draw_gallery(self) -> None:
         rows = self.target_rows if self.picking() else self.target_rows[:0]
+        if rows.size > 1:
+            self.side.place_gallery()               # in the page from its first use on
         self.gallery.show(self.state, rows, self.signal.fixed)
 
     def show_signal(self, r: int | None) -> None:

@@ -35,6 +35,7 @@ class SidePanel:
     def __init__(self, app, css: InlineStyleSheet, gallery_fig):
         self.app = app
         self.css = css
+        self.gallery_fig = gallery_fig
         div = self.div
         self.selection = div(name="selection")
         self.queue_mode = RadioButtonGroup(labels=["Review (R)", "Audit"], active=None,
@@ -57,13 +58,14 @@ class SidePanel:
         self.drawer_toggle = Toggle(label="rename · merge · retire · recolour classes",
                                     active=False, sizing_mode="stretch_width",
                                     name="drawer_toggle")
-        self.drawer_toggle.on_change("active", lambda _a, _o, new: setattr(
-            self.drawer, "visible", bool(new)))
-        # the opened drawer is brought into sight (it opens under the fold at 1400x900)
-        self.drawer_toggle.js_on_change("active", CustomJS(args={"drawer": self.drawer}, code="""
+        self.drawer_toggle.on_change("active", lambda _a, _o, new: self.open_drawer(bool(new)))
+        # the opened drawer is brought into sight (it opens under the fold at 1400x900); it is
+        # looked up by name: it joins the page when first opened (see open_drawer)
+        self.drawer_toggle.js_on_change("active", CustomJS(code="""
             if (!cb_obj.active) return;
             const look = (k) => {
-              const v = Bokeh.index.get_one(drawer);
+              const drawer = cb_obj.document.get_model_by_name("class_drawer");
+              const v = drawer == null ? null : Bokeh.index.get_one(drawer);
               if (v && v.el && v.el.offsetHeight > 0) v.el.scrollIntoView({block: "nearest"});
               else if (k < 40) setTimeout(() => look(k + 1), 50);
             };
@@ -71,15 +73,34 @@ class SidePanel:
         for w in (self.add_class_btn, self.new_class, self.drawer_toggle):
             _release(w)
         # where things stand first (always in sight), then the pick's gallery (only while a pick
-        # holds several windows), the review slip, the classes
+        # holds several windows), the review slip, the classes. The gallery and the drawer join
+        # the page when first shown (place_gallery, open_drawer): every model in the page is
+        # views the browser builds and lays out before the page is ready
         self.box = column(
-            self.selection, gallery_fig, self.message,
+            self.selection, self.message,
             div(text=words.section("Where things stand")), self.progress, self.counts,
             self.estimate,
             div(text=words.section("Look next")), self.queue_mode, self.queue,
             div(text=words.section("Call it")), self.class_pad,
             row(self.new_class, self.add_class_btn, sizing_mode="stretch_width"),
-            self.drawer_toggle, self.drawer, self.keys, width=SIDE_W, name="side")
+            self.drawer_toggle, self.keys, width=SIDE_W, name="side")
+
+    def place_gallery(self) -> None:
+        """Put the gallery in the page (under the pick's summary), once."""
+        kids = list(self.box.children)
+        if self.gallery_fig not in kids:
+            kids.insert(kids.index(self.selection) + 1, self.gallery_fig)
+            self.box.children = kids
+
+    def open_drawer(self, opened: bool) -> None:
+        """Show or fold the class drawer; it joins the page when first opened."""
+        kids = list(self.box.children)
+        if opened and self.drawer not in kids:
+            self.drawer.visible = True
+            kids.insert(kids.index(self.drawer_toggle) + 1, self.drawer)
+            self.box.children = kids
+        else:
+            self.drawer.visible = opened
 
     def div(self, text: str = "", name: str | None = None) -> Div:
         return Div(text=text, sizing_mode="stretch_width", name=name, stylesheets=[self.css])

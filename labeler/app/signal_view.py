@@ -6,7 +6,8 @@ from __future__ import annotations
 
 import numpy as np
 from bokeh.layouts import column, row
-from bokeh.models import BoxAnnotation, Checkbox, ColumnDataSource, Div, LinearAxis, Range1d
+from bokeh.models import (BoxAnnotation, Checkbox, ColumnDataSource, Div, Legend, LegendItem,
+                          LinearAxis, Range1d)
 from bokeh.plotting import figure
 
 from labeler.app import words
@@ -41,6 +42,18 @@ def sites(channels: list[str]) -> dict[str, list[str]]:
     return out
 
 
+def _kind(channel: str) -> str:
+    """"gyr" for a rotation channel (``site_gyr_axis``), else "acc"."""
+    parts = channel.split("_")
+    return "gyr" if len(parts) > 1 and parts[1] == "gyr" else "acc"
+
+
+def _colour(channel: str) -> str:
+    """The channel's colour by its axis (x, y, z; anything else as x)."""
+    axis = channel.split("_")[-1]
+    return AXIS_COLOURS["xyz".find(axis) % 3 if axis in ("x", "y", "z") else 0]
+
+
 class SignalView:
     """Figures and sources of the signal panel; ``read(recording, a, b)`` gives (t, signal, names)."""
 
@@ -57,8 +70,11 @@ class SignalView:
         self.x_range = Range1d(0, 10)
         self.figs, self.srcs, self.spans = [], {}, []
         self._ranges: dict[str, tuple[Range1d, Range1d]] = {}
-        for site, chans in sites(channels).items():
-            src = ColumnDataSource({"t": np.zeros(0)} | {c: np.zeros(0) for c in chans})
+        for k, (site, chans) in enumerate(sites(channels).items()):
+            # one multi-line per kind of sensor (acceleration, rotation) and site: one renderer
+            # for each, not one per channel (each renderer is several views in the page)
+            kinds = {"acc": [c for c in chans if _kind(c) == "acc"],
+                     "gyr": [c for c in chans if _kind(c) == "gyr"]}
             acc_r, gyr_r = Range1d(-1, 1), Range1d(-1, 1)
             f = figure(height=SIGNAL_H, sizing_mode="stretch_width", min_width=360,
                        x_range=self.x_range, y_range=acc_r, tools="xpan,xwheel_zoom,reset",
@@ -68,30 +84,33 @@ class SignalView:
             f.add_layout(LinearAxis(y_range_name="gyr", axis_label="deg/s"), "right")
             f.yaxis[0].axis_label = f"{site} · g"
             f.min_border_left = 50
-            for ch in chans:
-                parts = ch.split("_")
-                axis = "xyz".find(parts[-1]) if parts[-1] in ("x", "y", "z") else 0
-                colour = AXIS_COLOURS[max(axis, 0) % 3]
-                if len(parts) > 1 and parts[1] == "gyr":
-                    f.line("t", ch, source=src, color=colour, line_width=1, line_alpha=0.55,
-                           line_dash="dashed", y_range_name="gyr", legend_label=f"gyr {parts[-1]}")
-                else:
-                    f.line("t", ch, source=src, color=colour, line_width=1.6,
-                           legend_label=f"acc {parts[-1]}")
-            f.legend.orientation = "horizontal"
-            f.legend.label_text_font_size = "10px"
-            f.legend.padding = 0
-            f.legend.margin = 0
-            f.legend.border_line_color = None
-            if self.figs:                       # one legend, above the first panel, off the traces
-                f.legend.visible = False
-            else:
-                f.add_layout(f.legend[0], "above")
+            items: dict[str, LegendItem] = {}
+            srcs = {}
+            for kind, names in kinds.items():
+                if not names:
+                    continue
+                # a row per channel from the start (empty lines), so the legend has its colours
+                src = ColumnDataSource({"xs": [np.zeros(0)] * len(names),
+                                        "ys": [np.zeros(0)] * len(names),
+                                        "colour": [_colour(c) for c in names],
+                                        "channel": list(names)})
+                look = (dict(line_width=1, line_alpha=0.55, line_dash="dashed",
+                             y_range_name="gyr") if kind == "gyr" else dict(line_width=1.6))
+                r = f.multi_line("xs", "ys", source=src, line_color="colour", **look)
+                srcs[kind] = src
+                for i, c in enumerate(names):
+                    label = f"{kind} {c.split('_')[-1]}"
+                    if label not in items:
+                        items[label] = LegendItem(label=label, renderers=[r], index=i)
+            if k == 0:                          # one legend, above the first panel, off the traces
+                f.add_layout(Legend(items=list(items.values()), orientation="horizontal",
+                                    label_text_font_size="10px", padding=0, margin=0,
+                                    border_line_color=None), "above")
             span = BoxAnnotation(left=0, right=0, fill_color="#8c8c8c", fill_alpha=0.14,
                                  line_color="#333333", line_alpha=0.6)
             f.add_layout(span)
             self.figs.append(f)
-            self.srcs[site] = src
+            self.srcs[site] = srcs
             self.spans.append(span)
             self._ranges[site] = (acc_r, gyr_r)
         for f in self.figs[:-1]:
@@ -126,18 +145,17 @@ class SignalView:
         self.last = (recording, a, b)
         t, sig, names = self.read(recording, a - CONTEXT_S, b + CONTEXT_S)
         col = {n: i for i, n in enumerate(names)}
-        for site, src in self.srcs.items():
-            data = {"t": t}
-            acc, gyr = [], []
-            for ch in src.data:
-                if ch == "t":
-                    continue
-                v = sig[:, col[ch]] if ch in col else np.full(len(t), np.nan, np.float32)
-                data[ch] = v
-                (gyr if "_gyr_" in ch else acc).append(v)
-            src.data = data
-            for vals, rng, fixed in zip((acc, gyr), self._ranges[site], (FIXED_ACC, FIXED_GYR)):
-                rng.start, rng.end = fixed if self.fixed else limits(vals)
+        for site, srcs in self.srcs.items():
+            vals = {"acc": [], "gyr": []}
+            for kind, src in srcs.items():
+                ys = [sig[:, col[ch]] if ch in col else np.full(len(t), np.nan, np.float32)
+                      for ch in src.data["channel"]]
+                vals[kind] = ys
+                src.data = {"xs": [t] * len(ys), "ys": ys, "colour": list(src.data["colour"]),
+                            "channel": list(src.data["channel"])}
+            for v, rng, fixed in zip((vals["acc"], vals["gyr"]), self._ranges[site],
+                                     (FIXED_ACC, FIXED_GYR)):
+                rng.start, rng.end = fixed if self.fixed else limits(v)
         self.x_range.start, self.x_range.end = a - CONTEXT_S, b + CONTEXT_S
         for span in self.spans:
             span.left, span.right = a, b
