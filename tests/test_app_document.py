@@ -645,8 +645,10 @@ def test_map_encodes_class_by_colour_and_shape_confidence_by_size(app):
     conf = s.proposals.confidence[prop]
     assert np.corrcoef(size, conf)[0, 1] > 0.99            # bigger = surer
     assert app.map.hover.limit == 1                         # the nearest point only
+    assert not app.map.fig.right                            # no colour bar until one is shown
     app.map.colour_mode.active = 1
     assert app.map.conf_bar.visible and not app.map.support_bar.visible
+    assert app.map.conf_bar in app.map.fig.right          # joined the map when first chosen
     app.map.colour_mode.active = 2
     assert app.map.support_bar.visible and not app.map.conf_bar.visible
     # recordings take colours of their own scheme, none of them a class colour

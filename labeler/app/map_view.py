@@ -85,8 +85,8 @@ class MapView:
                                  visible=False, name="confidence_bar")
         self.support_bar = ColorBar(color_mapper=self.support_mapper, title="support", width=10,
                                     visible=False, name="support_bar")
-        p.add_layout(self.conf_bar, "right")
-        p.add_layout(self.support_bar, "right")
+        # the colour bars join the figure when their colour mode is first chosen (set_colour_mode):
+        # each is views the page would build and lay out before it is ready
         fmt = _name_lookup(names, "—")
         # condensed: three short lines, of the nearest point only (limit=1: hits come nearest first)
         self.tooltips = [
@@ -213,8 +213,11 @@ class MapView:
                          "recording": ("rec", self.rec_mapper)}[mode]
         for glyph in (self.points.glyph, self.fresh.glyph):
             glyph.fill_color = {"field": field, "transform": mapper}
-        self.conf_bar.visible = mode == "confidence"
-        self.support_bar.visible = mode == "support"
+        for bar, shown in ((self.conf_bar, mode == "confidence"),
+                           (self.support_bar, mode == "support")):
+            bar.visible = shown
+            if shown and bar not in self.fig.right:
+                self.fig.add_layout(bar, "right")
         self.colour_hint.text = words.colour_hint(mode)
 
     def set_blind(self, blind: bool) -> None:
