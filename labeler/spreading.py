@@ -216,6 +216,9 @@ class LabelSpreader(BaseEstimator):
     label_distributions_ : F with rows normalized to sum 1 (all-zero rows stay zero).
     transduction_ : classes_[argmax F] per window.
     n_iter_ : solver iterations of the last fit.
+    unchanged_columns_ : per class, True where the column of ``label_mass_`` is the previous
+        fit's as it was (a warm start on the same graph whose confirmations of that class did
+        not change: not solved again).
     graph_ : the graph used (csr_matrix).
     """
 
@@ -311,6 +314,8 @@ class LabelSpreader(BaseEstimator):
         self.label_distributions_ = _distributions(F, y, classes, self.class_balance)
         self.transduction_ = classes[np.argmax(self.label_distributions_, axis=1)]
         self.n_iter_ = it
+        self.unchanged_columns_ = (np.zeros(c, dtype=bool) if solved is None
+                                   else np.asarray(solved, dtype=bool))
         return self
 
     def _unchanged_columns(self, y, classes, S, init):

@@ -903,14 +903,30 @@ class Store:
         row = self.conn.execute("SELECT data, meta FROM blobs WHERE key = ?", (key,)).fetchone()
         return None if row is None else (row[0], json.loads(row[1] or "{}"))
 
-    def get_blobs(self, keys: Sequence[str]) -> dict[str, tuple[bytes, dict]]:
-        """The blobs ``keys`` that exist, as {key: (data, meta)}, read by one statement (so one
-        state of the file, whatever another process commits meanwhile)."""
+    def get_blobs(self, keys: Sequence[str], prefix: str | None = None
+                  ) -> dict[str, tuple[bytes, dict]]:
+        """The blobs ``keys`` (and those whose key starts with ``prefix``) that exist, as
+        {key: (data, meta)}, read by one statement (so one state of the file, whatever another
+        process commits meanwhile)."""
         keys = list(keys)
-        rows = self.conn.execute(
-            f"SELECT key, data, meta FROM blobs WHERE key IN ({', '.join('?' * len(keys))})",
-            keys).fetchall() if keys else []
+        where = [f"key IN ({', '.join('?' * len(keys))})"] if keys else []
+        if prefix is not None:
+            where.append("key LIKE ?")
+            keys.append(prefix.replace("%", "") + "%")
+        if not where:
+            return {}
+        rows = self.conn.execute(f"SELECT key, data, meta FROM blobs WHERE {' OR '.join(where)}",
+                                 keys).fetchall()
         return {r[0]: (r[1], json.loads(r[2] or "{}")) for r in rows}
+
+    def blob_keys(self, prefix: str) -> list[str]:
+        """Keys of the blobs whose key starts with ``prefix``."""
+        return [r[0] for r in self.conn.execute("SELECT key FROM blobs WHERE key LIKE ?",
+                                                (prefix.replace("%", "") + "%",))]
+
+    def delete_blob(self, key: str) -> None:
+        with self.atomic():
+            self.conn.execute("DELETE FROM blobs WHERE key = ?", (key,))
 
     def blob_meta(self, key: str) -> dict | None:
         """The meta of blob ``key`` without its data (None when there is no such blob)."""

@@ -519,3 +519,78 @@ def test_the_window_order_and_reference_are_stored_once_per_graph_and_alpha(proj
     fourth = p.refresh_proposals(alpha=0.8, estimate=False)
     assert fourth.warm_start and frame_run() == fourth.run_id
     assert (p.proposals()["window_id"] == before["window_id"]).all()
+
+
+def test_a_refresh_writes_the_label_mass_of_the_classes_it_solved_again(project, sims):
+    """The spreading's label mass is stored per class; one more confirmation solves one class
+    again, and only its column is written; the columns read back are the fit's, bit for bit,
+    also after another process made a run meanwhile."""
+    from labeler.service.proposals import COLUMN_PREFIX, LATEST_BLOB
+
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(30)["window_id"], truth)
+    first = p.refresh_proposals(estimate=False)
+    store = p._ctx.store
+
+    def column_runs():
+        return {k[len(COLUMN_PREFIX):]: m["run_id"] for k, (_, m) in
+                store.get_blobs([], prefix=COLUMN_PREFIX).items()}
+
+    classes = [str(int(c)) for c in p._proposals.latest_arrays()["classes"]]
+    assert column_runs() == {c: first.run_id for c in classes}
+    j = int(p.proposals().query("not confirmed")["window_id"].iloc[11])
+    confirm_truth(p, [j], truth)
+    p.reread()
+    second = p.refresh_proposals(estimate=False)
+    c = str(p._ledger.class_id(truth[np.searchsorted(p.windows()["id"].to_numpy(), j)]))
+    assert column_runs() == {k: second.run_id if k == c else first.run_id for k in classes}
+    assert store.blob_meta(LATEST_BLOB)["F_runs"] == column_runs()
+    kept = p._ctx.cache["proposer"][2].spreader_
+    assert np.array_equal(p._proposals.latest_arrays()["F"], kept.label_mass_.astype(np.float32))
+    # another process runs meanwhile (writing every column); this one's next run, with its kept
+    # proposer, is not the stored one any more: it starts from the stored run instead
+    with Project.open(p.path, annotator="other") as q:
+        confirm_truth(q, [int(q.proposals().query("not confirmed")["window_id"].iloc[40])], truth)
+        third = q.refresh_proposals(estimate=False)
+    assert set(column_runs().values()) == {third.run_id}
+    confirm_truth(p, [int(p.proposals().query("not confirmed")["window_id"].iloc[90])], truth)
+    p.reread()
+    fourth = p.refresh_proposals(estimate=False)
+    arrays = p._proposals.latest_arrays()
+    assert arrays is not None and arrays["meta"]["run_id"] == fourth.run_id
+    assert np.array_equal(arrays["F"], p._ctx.cache["proposer"][2].spreader_.label_mass_
+                          .astype(np.float32))
+
+
+def test_a_run_stored_by_another_process_during_a_refresh_leaves_the_columns_whole(project,
+                                                                                    sims):
+    """Another process stores a run between the start of a refresh with the kept proposer and
+    its write: the columns the refresh did not solve again were overwritten meanwhile, so it
+    writes them too, and the run it stores reads back as its fit."""
+    from labeler.service.proposals import COLUMN_PREFIX
+
+    p = project
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(30)["window_id"], truth)
+    p.refresh_proposals(estimate=False)
+    kept = p._ctx.cache["proposer"][2]
+    fit = kept.fit
+    other = {}
+
+    def fit_then_another_process_runs(*args, **kwargs):
+        out = fit(*args, **kwargs)
+        with Project.open(p.path, annotator="other") as q:
+            other["run"] = q.refresh_proposals(estimate=False)
+        return out
+
+    kept.fit = fit_then_another_process_runs
+    confirm_truth(p, [int(p.proposals().query("not confirmed")["window_id"].iloc[3])], truth)
+    p.reread()
+    run = p.refresh_proposals(estimate=False)
+    assert run.warm_start and other["run"].run_id < run.run_id
+    runs = {m["run_id"] for _, m in p._ctx.store.get_blobs([], prefix=COLUMN_PREFIX).values()}
+    assert runs == {run.run_id}
+    arrays = p._proposals.latest_arrays()
+    assert arrays["meta"]["run_id"] == run.run_id
+    assert np.array_equal(arrays["F"], kept.spreader_.label_mass_.astype(np.float32))

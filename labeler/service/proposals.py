@@ -36,6 +36,11 @@ LATEST_BLOB = "proposals/latest"
 #: (window_id, recording_id, seq) and the reference mass; written only when the graph or alpha
 #: change (meta: graph_key, alpha), in the transaction of the run that first uses it
 FRAME_BLOB = "proposals/frame"
+#: the spreading's label mass of one class (float32, one value per window), a blob per class:
+#: "proposals/F/<class id>" (meta: the run that wrote it). A run writes the columns its fit
+#: solved again (one more confirmation: one class) and names in its meta ("F_runs") the run
+#: whose column it goes with for every class
+COLUMN_PREFIX = "proposals/F/"
 GRAPH_PARAMS = ("n_neighbors", "temporal_weight", "pca_components")
 #: the review queue draws windows with probability ~ score**QUEUE_POWER, plus QUEUE_FLOOR spread
 #: evenly, so each shown window's chance is known. On the simulator (1383 windows, 2 runs) the
@@ -176,7 +181,8 @@ class Proposals:
         """The latest stored proposal arrays (npz) with their run, or None: the run's own
         arrays and the frame they go with (:data:`FRAME_BLOB`; a run stored before the frame was
         split off holds every array itself)."""
-        got = self.ctx.store.get_blobs([LATEST_BLOB, FRAME_BLOB])  # one state of the file
+        # one statement, so one state of the file
+        got = self.ctx.store.get_blobs([LATEST_BLOB, FRAME_BLOB], prefix=COLUMN_PREFIX)
         if LATEST_BLOB not in got:
             return None
         data, meta = got[LATEST_BLOB]
@@ -186,6 +192,16 @@ class Proposals:
             if frame is None or frame[1] != _frame_meta(meta):
                 return None  # not written by any version: nothing to read the run with
             out.update(npz_arrays(frame[0]))
+        if "F" not in out:  # the label mass, one blob per class
+            runs = meta.get("F_runs") or {}
+            cols = []
+            for c in out["classes"]:
+                col = got.get(f"{COLUMN_PREFIX}{int(c)}")
+                if col is None or col[1].get("run_id") != runs.get(str(int(c))):
+                    return None  # not written by any version: nothing to read the run with
+                cols.append(npz_arrays(col[0])["F"])
+            n = out["window_id"].size
+            out["F"] = np.stack(cols, axis=1) if cols else np.zeros((n, 0), np.float32)
         out["meta"] = meta
         return out
 
@@ -271,8 +287,7 @@ class Proposals:
                   "graph_key": key}
         stored_reference = np.asarray(reference, dtype=np.float32)
         latest = npz_bytes(dict(
-            F=spreader.label_mass_.astype(np.float32), classes=spreader.classes_,
-            label=out.label, confidence=out.confidence.astype(np.float32),
+            classes=spreader.classes_, label=out.label, confidence=out.confidence.astype(np.float32),
             margin=out.margin.astype(np.float32), support=out.support.astype(np.float32),
             conflict=out.conflict.astype(np.float32), y=y))
         store = self.ctx.store
@@ -287,8 +302,28 @@ class Proposals:
                 store.put_blob(FRAME_BLOB, npz_bytes(dict(
                     window_id=self.catalog.window_arrays()["id"], recording_id=rid, seq=seq,
                     reference=stored_reference)), frame_meta, run_id=run_id)
+            # the label mass per class: a column the fit did not solve again is the kept
+            # proposer's as the stored run has it, so that run's blob of it stays
+            before = meta.get("F_runs") if warm and meta is not None and kept is not None \
+                and proposer is kept[2] else None
+            F_runs = {}
+            for j, c in enumerate(spreader.classes_):
+                c = str(int(c))
+                if before is not None and c in before and spreader.unchanged_columns_[j] \
+                        and (store.blob_meta(f"{COLUMN_PREFIX}{c}") or {}).get(
+                            "run_id") == before[c]:  # (another process may have run since)
+                    F_runs[c] = before[c]
+                    continue
+                F_runs[c] = int(run_id)
+                store.put_blob(f"{COLUMN_PREFIX}{c}", npz_bytes(dict(
+                    F=spreader.label_mass_[:, j].astype(np.float32))), {"run_id": int(run_id)},
+                    run_id=run_id)
+            for k in store.blob_keys(COLUMN_PREFIX):  # classes no longer confirmed
+                if k[len(COLUMN_PREFIX):] not in F_runs:
+                    store.delete_blob(k)
             store.put_blob(LATEST_BLOB, latest,
-                           {"run_id": run_id, "graph_key": key, "alpha": alpha}, run_id=run_id)
+                           {"run_id": run_id, "graph_key": key, "alpha": alpha,
+                            "F_runs": F_runs}, run_id=run_id)
         self.ctx.invalidate("proposals")
         self.ctx.cache["proposer"] = (settings, int(run_id), proposer,
                                       stored_reference.astype(np.float64))
