@@ -543,6 +543,17 @@ def test_gallery_and_drawer_join_the_page_when_first_shown_and_stay(app):
     assert side.drawer.visible and list(side.box.children).count(side.drawer) == 1
 
 
+def test_a_quick_second_click_on_the_map_picks_too(app):
+    """The page sends a click that follows another within 300 ms as a double tap (BokehJS's
+    threshold); it picks the window under it as a click does."""
+    from bokeh.events import DoubleTap, Tap
+
+    s = app.state
+    for kind, r in ((Tap, 4), (DoubleTap, 9)):
+        app.map.fig._trigger_event(kind(app.map.fig, x=float(s.x[r]), y=float(s.y[r])))
+        assert app.target_rows.tolist() == [r] and app.target_source == "map"
+
+
 def test_signal_panel_draws_every_channel_of_the_window_shown(app):
     """One multi-line per sensor site and kind (acceleration, rotation) holds each channel of the
     site as read from the project, in its axis colour; the legend names each channel kind and axis

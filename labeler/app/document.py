@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
-from bokeh.events import DocumentReady, SelectionGeometry, Tap
+from bokeh.events import DocumentReady, DoubleTap, SelectionGeometry, Tap
 from bokeh.layouts import column
 from bokeh.models import (ColumnDataSource, CustomJS, Div, InlineStyleSheet, LinearColorMapper,
                           TextInput)
@@ -385,7 +385,10 @@ class LabelerApp(Actions):
         # a pick is the shape the annotator drew (the server finds the windows in it); a selection
         # of the map's source set from outside (a script) is a pick too
         self.map.fig.on_event(SelectionGeometry, self._on_map_shape)
-        self.map.fig.on_event(Tap, lambda e: self.pick_at(e.x, e.y))
+        # a click within 300 ms of the one before (anywhere) reaches the page as a double tap,
+        # not a tap: it picks too, so a quick second click is not lost
+        for click in (Tap, DoubleTap):
+            self.map.fig.on_event(click, lambda e: self.pick_at(e.x, e.y))
         self.map.src.selected.on_change("indices", lambda _a, _o, new: self.pick_on_map(new))
         yield
         self.signal = SignalView(s.channels, self.project.signal, self.css)

@@ -15,6 +15,7 @@ map's source: a drag, a lasso or a click sends its shape to the server, which fi
 from __future__ import annotations
 
 import numpy as np
+from bokeh.core.property.descriptors import UnsetValueError
 from bokeh.layouts import row
 from bokeh.models import (BoxSelectTool, ColorBar, ColumnDataSource, CustomJS, CustomJSHover,
                           CustomJSTransform, Div, HoverTool, LassoSelectTool, LinearColorMapper,
@@ -198,9 +199,12 @@ class MapView:
         """Map units per screen pixel along x and y as the page last reported its ranges and size
         (NaN when it has not yet)."""
         p = self.fig
-        w, h = p.inner_width, p.inner_height
-        xs, xe = p.x_range.start, p.x_range.end
-        ys, ye = p.y_range.start, p.y_range.end
+        try:
+            w, h = p.inner_width, p.inner_height
+            xs, xe = p.x_range.start, p.x_range.end
+            ys, ye = p.y_range.start, p.y_range.end
+        except UnsetValueError:                 # the page has not said its size yet
+            return float("nan"), float("nan")
         if not all(isinstance(v, (int, float)) for v in (w, h, xs, xe, ys, ye)) or not w or not h:
             return float("nan"), float("nan")
         return abs(xe - xs) / w, abs(ye - ys) / h
