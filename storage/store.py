@@ -35,6 +35,9 @@ if TYPE_CHECKING:  # imported where the schema is written (a command that only r
 
 APPLICATION_ID = 0x4C424C52  # marks a labeler project file (PRAGMA application_id)
 BUSY_TIMEOUT_S = 30.0
+#: a blob key that starts with a given prefix (parameters: the prefix's length, the prefix),
+#: compared as written: LIKE would take "_" and "%" in the prefix as wildcards and ignore case
+_STARTS_WITH = "substr(key, 1, ?) = ?"
 
 
 class StoreError(LabelerError):
@@ -908,21 +911,21 @@ class Store:
         """The blobs ``keys`` (and those whose key starts with ``prefix``) that exist, as
         {key: (data, meta)}, read by one statement (so one state of the file, whatever another
         process commits meanwhile)."""
-        keys = list(keys)
-        where = [f"key IN ({', '.join('?' * len(keys))})"] if keys else []
+        params: list = list(keys)
+        where = [f"key IN ({', '.join('?' * len(params))})"] if params else []
         if prefix is not None:
-            where.append("key LIKE ?")
-            keys.append(prefix.replace("%", "") + "%")
+            where.append(_STARTS_WITH)
+            params += [len(prefix), prefix]
         if not where:
             return {}
         rows = self.conn.execute(f"SELECT key, data, meta FROM blobs WHERE {' OR '.join(where)}",
-                                 keys).fetchall()
+                                 params).fetchall()
         return {r[0]: (r[1], json.loads(r[2] or "{}")) for r in rows}
 
     def blob_keys(self, prefix: str) -> list[str]:
         """Keys of the blobs whose key starts with ``prefix``."""
-        return [r[0] for r in self.conn.execute("SELECT key FROM blobs WHERE key LIKE ?",
-                                                (prefix.replace("%", "") + "%",))]
+        return [r[0] for r in self.conn.execute(f"SELECT key FROM blobs WHERE {_STARTS_WITH}",
+                                                (len(prefix), prefix))]
 
     def delete_blob(self, key: str) -> None:
         with self.atomic():
@@ -935,7 +938,7 @@ class Store:
 
     def delete_blobs(self, prefix: str) -> None:
         with self.atomic():
-            self.conn.execute("DELETE FROM blobs WHERE key LIKE ?", (prefix.replace("%", "") + "%",))
+            self.conn.execute(f"DELETE FROM blobs WHERE {_STARTS_WITH}", (len(prefix), prefix))
 
     # ------------------------------------------------------------------ audits
     def add_audit(self, run_id: int, drawn_by: str,

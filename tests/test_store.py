@@ -255,3 +255,14 @@ def test_audit_strata_and_queue_draws_are_kept(store):
     with pytest.raises(ValueError):
         store.add_queue_draws(run, "ann", [(6, 0.5, 8), (7, "not a number", 8)])
     assert 6 not in {r["window_id"] for r in store.queue_draws()}
+
+
+def test_blobs_by_prefix_take_the_prefix_as_written(store):
+    # "_" and "%" are LIKE's wildcards and LIKE ignores case; a prefix is a plain string here
+    for key in ("a_b/1", "axb/2", "A_B/3", "a%b/4", "a_b"):
+        store.put_blob(key, key.encode())
+    assert sorted(store.blob_keys("a_b/")) == ["a_b/1"]
+    assert sorted(store.get_blobs(["axb/2"], prefix="a%b/")) == ["a%b/4", "axb/2"]
+    assert store.get_blobs([], prefix="a_b/")["a_b/1"][0] == b"a_b/1"
+    store.delete_blobs("a_b")
+    assert sorted(store.blob_keys("")) == ["A_B/3", "a%b/4", "axb/2"]
