@@ -243,6 +243,8 @@ def temporal_smoothing(P, recording, seq, stay: float = DEFAULT_STAY, temper: fl
     """
     P = np.asarray(P, dtype=np.float64)
     n, k = P.shape
+    if not (0 < stay < 1):
+        raise ProposingInputError(f"stay must lie strictly between 0 and 1, got {stay}")
     if chains is None:
         chains = _chains(recording, seq, n)
     if chains is None or k < 2 or stay <= 1.0 / k or n < 2:

@@ -104,6 +104,13 @@ def test_smoothing_at_uniform_stay_changes_nothing():
     np.testing.assert_allclose(temporal_smoothing(P, np.zeros(50, int), np.arange(50), 0.25), P)
 
 
+@pytest.mark.parametrize("stay", [0.0, 1.0, 1.5, -0.2])
+def test_smoothing_refuses_a_stay_outside_0_1(stay):
+    P = np.full((5, 2), 0.5)
+    with pytest.raises(ProposingInputError, match="stay must lie strictly between 0 and 1"):
+        temporal_smoothing(P, np.zeros(5, int), np.arange(5), stay)
+
+
 def test_classifier_probabilities_are_scikit_learns():
     rng = np.random.default_rng(4)
     Z = rng.normal(size=(200, 5))
