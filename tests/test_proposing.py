@@ -55,6 +55,8 @@ def test_smoothing_with_eight_classes_and_more_equals_the_sum_over_state_paths(k
 
 
 def test_margin_is_the_top_two_of_a_sort_bit_for_bit():
+    # reference: numpy's sort (the margin's definition, top minus second; common practice, no
+    # source)
     rng = np.random.default_rng(11)
     for k in (1, 2, 3, 7, 9):
         P = rng.dirichlet(np.ones(k), 500)
@@ -65,6 +67,9 @@ def test_margin_is_the_top_two_of_a_sort_bit_for_bit():
 
 
 def test_classifier_probabilities_are_scikit_learns_predict_proba_bit_for_bit():
+    # reference: scikit-learn's LogisticRegression.predict_proba (Pedregosa et al., "Scikit-learn:
+    # machine learning in Python", 2011) on its digits (Alpaydin & Kaynak, "Optical recognition
+    # of handwritten digits", 1998)
     from sklearn.datasets import load_digits
 
     X, t = load_digits(return_X_y=True)
