@@ -51,6 +51,14 @@ def confirm_truth(p, ids, truth, source="api"):
         p.confirm(ids[truth[pos] == c], c, source=source, create_class=True)
 
 
+def first_run(p, sims):
+    """The project's truth per window, and its first proposal run (no estimate) after 30 queue
+    windows confirmed with their truth."""
+    truth = truth_of(p, sims)
+    confirm_truth(p, p.review_queue(30)["window_id"], truth)
+    return truth, p.refresh_proposals(estimate=False)
+
+
 def answer_an_audit(p, truth):
     """40 queue windows confirmed, proposals, then a blind audit of 12 drawn and answered."""
     confirm_truth(p, p.review_queue(40)["window_id"], truth)
@@ -480,9 +488,7 @@ def test_the_window_order_and_reference_are_stored_once_per_graph_and_alpha(proj
     from labeler.service.proposals import FRAME_BLOB, LATEST_BLOB
 
     p = project
-    truth = truth_of(p, sims)
-    confirm_truth(p, p.review_queue(30)["window_id"], truth)
-    first = p.refresh_proposals(estimate=False)
+    truth, first = first_run(p, sims)
     store = p._ctx.store
 
     def frame_run():
@@ -528,9 +534,7 @@ def test_a_refresh_writes_the_label_mass_of_the_classes_it_solved_again(project,
     from labeler.service.proposals import COLUMN_PREFIX, LATEST_BLOB
 
     p = project
-    truth = truth_of(p, sims)
-    confirm_truth(p, p.review_queue(30)["window_id"], truth)
-    first = p.refresh_proposals(estimate=False)
+    truth, first = first_run(p, sims)
     store = p._ctx.store
 
     def column_runs():
@@ -571,9 +575,7 @@ def test_a_run_stored_by_another_process_during_a_refresh_leaves_the_columns_who
     from labeler.service.proposals import COLUMN_PREFIX
 
     p = project
-    truth = truth_of(p, sims)
-    confirm_truth(p, p.review_queue(30)["window_id"], truth)
-    p.refresh_proposals(estimate=False)
+    truth, _first = first_run(p, sims)
     kept = p._ctx.cache["proposer"][2]
     fit = kept.fit
     other = {}
