@@ -11,7 +11,9 @@ Goal: <= 0.2 s at 100k windows.
 ``--part project`` times what the app's worker and `labeler propose` run: a project of the same
 simulated recordings (built once in ``--folder``, kept for later runs), one more confirmation,
 then ``Project.reread`` + ``Project.refresh_proposals(estimate=False)`` in the same Project object
-(the app's worker) and ``Project.refresh_proposals(estimate=False)`` in a Project opened afresh
+(the app's worker; then, untimed in the refresh, ``Project.checkpoint``, which the worker calls
+once the proposals are handed over: its time is printed beside) and
+``Project.refresh_proposals(estimate=False)`` in a Project opened afresh
 (`labeler propose` in a new process: the graph read from the file and the proposer made anew),
 alternating; wall and CPU time, median over the refreshes, with the load average.
 
@@ -105,7 +107,7 @@ def project_part(args) -> None:
         print(f"built {path} in {time.perf_counter() - t0:.0f} s")
     truth = {int(k): v for k, v in json.loads(truth_file.read_text()).items()}
     rng = np.random.default_rng(int(time.time()))
-    kept, afresh = [], []
+    kept, afresh, later = [], [], []
     with Project.open(path, annotator="bench") as p:
         t0 = time.perf_counter()
         p.reread()
@@ -128,12 +130,16 @@ def project_part(args) -> None:
                     p.reread()
                     run = p.refresh_proposals(estimate=False)
                     kept.append((time.perf_counter() - t0, time.process_time() - c0))
+                    t0 = time.perf_counter()
+                    p.checkpoint()  # what the worker does once the proposals are handed over
+                    later.append(time.perf_counter() - t0)
                 assert run.warm_start
     k, a = np.median(kept, axis=0), np.median(afresh, axis=0)
     print(f"load average {os.getloadavg()[0]:.2f}; one more confirmation, then (median of "
           f"{args.refreshes}, wall / CPU):")
     print(f"  app's worker (reread + refresh_proposals, same Project): {k[0]:.3f} / {k[1]:.3f} s "
-          f"(goal <= 0.2 s)")
+          f"(goal <= 0.2 s); then, off the path, the checkpoint its commit left: "
+          f"{np.median(later):.3f} s")
     print(f"  labeler propose (refresh_proposals in a Project opened afresh): {a[0]:.3f} / "
           f"{a[1]:.3f} s (ratio worker / afresh {k[0] / a[0]:.2f})")
 

@@ -102,6 +102,13 @@ class Project:
     def __exit__(self, *exc) -> None:
         self.close()
 
+    def checkpoint(self) -> bool:
+        """Copy into the project file what the latest proposal run left in its write-ahead log
+        (the run's commit does not wait for that copy; it is as durable without it). Call it
+        when idle, e.g. once the proposals are shown; without it the next write copies it. True
+        when there was something to copy."""
+        return self.store.checkpoint()
+
     def reread(self) -> None:
         """Forget what this object has read from the file (windows, features, map, graph,
         proposals), so that the next call reads what other processes have written since. The

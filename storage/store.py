@@ -258,6 +258,8 @@ class Store:
         self.conn = conn
         self._depth = 0
         self._readonly = False
+        #: a commit left its WAL checkpoint for later (``atomic(defer_checkpoint=True)``)
+        self.checkpoint_due = False
         # how long this connection waited for the write lock (for benchmarks and diagnostics)
         self.lock_stats = {"transactions": 0, "retries": 0, "worst_wait_s": 0.0,
                            "total_wait_s": 0.0}
@@ -443,6 +445,7 @@ class Store:
         return bool(getattr(self, "_readonly", False))
 
     def close(self) -> None:
+        self.checkpoint()  # what a deferred commit left (SQLite does it only for the last user)
         self.conn.close()
 
     def __enter__(self) -> "Store":
@@ -453,7 +456,8 @@ class Store:
 
     # ------------------------------------------------------------------ transactions
     @contextlib.contextmanager
-    def atomic(self, timeout_s: float | None = None) -> Iterator[None]:
+    def atomic(self, timeout_s: float | None = None, *,
+               defer_checkpoint: bool = False) -> Iterator[None]:
         """One write transaction (nested calls join the outer one).
 
         ``BEGIN IMMEDIATE`` takes the write lock up front, so a transaction never fails half-way on a
@@ -462,6 +466,13 @@ class Store:
         StoreError says the file stayed busy. Short sleeps keep the wait close to the time the lock
         is actually held (SQLite's own busy handler sleeps up to 100 ms per try and lets a busy
         writer starve the others for seconds).
+
+        ``defer_checkpoint`` (the outer transaction's): its commit does not copy the write-ahead
+        log into the file when the log has grown past SQLite's threshold (the automatic
+        checkpoint, which a commit of a few MB pays nearly every time); :meth:`checkpoint` does
+        it later (:attr:`checkpoint_due`). The commit is as durable either way: it is in the log,
+        synced (``synchronous = FULL``), and a crash replays it. At most one commit is left so:
+        while a checkpoint is due, the next commit checkpoints as usual (the log stays bounded).
         """
         if self._depth:
             self._depth += 1
@@ -507,11 +518,35 @@ class Store:
                 raise store_error(self.path, exc) from exc
             raise
         self._depth = 0
+        defer = defer_checkpoint and not self.checkpoint_due
         try:
-            self.conn.execute("COMMIT")
+            if defer:
+                before = self.conn.execute("PRAGMA wal_autocheckpoint").fetchone()[0]
+                self.conn.execute("PRAGMA wal_autocheckpoint = 0")
+            try:
+                self.conn.execute("COMMIT")
+            finally:
+                if defer:
+                    self.conn.execute(f"PRAGMA wal_autocheckpoint = {int(before)}")
         except sqlite3.Error as exc:
             self._roll_back()  # a failed COMMIT leaves the transaction open: undo it
             raise store_error(self.path, exc) from exc
+        if defer:
+            self.checkpoint_due = True
+        elif self.checkpoint_due and self.conn.execute("PRAGMA wal_autocheckpoint").fetchone()[0]:
+            self.checkpoint_due = False  # the automatic checkpoint applied to this commit
+
+    def checkpoint(self) -> bool:
+        """Copy the write-ahead log into the file now (a passive checkpoint: it waits for no
+        reader or writer and leaves what they still need), when a commit left it for later
+        (:meth:`atomic` with ``defer_checkpoint``); True when one was run. Best effort: a busy
+        file is left to the next commit's automatic checkpoint."""
+        if not self.checkpoint_due or self.conn.in_transaction:
+            return False
+        self.checkpoint_due = False
+        with contextlib.suppress(sqlite3.Error):
+            self.conn.execute("PRAGMA wal_checkpoint(PASSIVE)")
+        return True
 
     def _roll_back(self) -> None:
         """Roll back the open transaction, if SQLite has not already (e.g. on a full disk)."""

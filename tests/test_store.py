@@ -266,3 +266,55 @@ def test_blobs_by_prefix_take_the_prefix_as_written(store):
     assert store.get_blobs([], prefix="a_b/")["a_b/1"][0] == b"a_b/1"
     store.delete_blobs("a_b")
     assert sorted(store.blob_keys("")) == ["A_B/3", "a%b/4", "axb/2"]
+
+
+def _grew(store, before):
+    return store.path.stat().st_size - before  # stat() opens no descriptor (no lock dropped)
+
+
+def test_a_commit_left_for_a_later_checkpoint_is_in_the_log_and_survives_a_crash(store):
+    # SQLite's automatic checkpoint copies the log into the file at a commit that leaves it past
+    # wal_autocheckpoint pages (1000 by default, 4 MB): a deferred commit does not; the copy
+    # comes with Store.checkpoint, or with the next commit
+    big = np.random.default_rng(0).bytes(6 << 20)
+    size = store.path.stat().st_size
+    with store.atomic():
+        store.put_blob("a", big)
+    assert _grew(store, size) >= len(big)  # checkpointed at the commit
+    size = store.path.stat().st_size
+    with store.atomic(defer_checkpoint=True):
+        store.put_blob("b", big[::-1])
+    assert store.checkpoint_due and _grew(store, size) == 0
+    assert store.conn.execute("PRAGMA wal_autocheckpoint").fetchone()[0] == 1000  # as it was
+    # another connection reads it (it is committed), and so does one after a crash: a process
+    # that dies now, before any checkpoint, with a deferred commit of its own
+    import subprocess
+    import sys
+    code = ("import sys, os; from storage import Store; s = Store.open(sys.argv[1]);\n"
+            "with s.atomic(defer_checkpoint=True): s.put_blob('c', b'x' * (6 << 20))\n"
+            "os._exit(0)")
+    subprocess.run([sys.executable, "-c", code, str(store.path)], check=True)
+    other = Store.open(store.path)
+    try:
+        assert other.get_blob("b")[0] == big[::-1] and other.get_blob("c")[0] == b"x" * (6 << 20)
+    finally:
+        other.close()
+    size = store.path.stat().st_size
+    assert store.checkpoint() and not store.checkpoint_due
+    assert _grew(store, size) > 0 and not store.checkpoint()  # nothing due any more
+
+
+def test_at_most_one_commit_is_left_for_later(store):
+    big = np.random.default_rng(1).bytes(6 << 20)
+    with store.atomic(defer_checkpoint=True):
+        store.put_blob("a", big)
+    size = store.path.stat().st_size
+    with store.atomic(defer_checkpoint=True):  # one is due: this one checkpoints as usual
+        store.put_blob("b", big)
+    assert _grew(store, size) >= len(big) and not store.checkpoint_due
+    with store.atomic(defer_checkpoint=True):
+        store.put_blob("c", big)
+    assert store.checkpoint_due
+    size = store.path.stat().st_size
+    store.close()  # closing checkpoints what is due
+    assert _grew(store, size) > 0

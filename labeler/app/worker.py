@@ -75,6 +75,7 @@ def spread_and_estimate(project, class_code: dict[str, int] | None, n: int, refr
         if got is not None:
             got.note = f"{time.perf_counter() - t0:.1f} s"
         deliver(got)
+        project.checkpoint()  # what the run's commit left for later, now that the page has it
         if got is None:
             return
     if not more_waiting():

@@ -293,7 +293,10 @@ class Proposals:
         store = self.ctx.store
         frame_meta = _frame_meta({"graph_key": key, "alpha": alpha})
         summary["seconds"] = round(time.perf_counter() - t0, 3)
-        with store.atomic():
+        # the run's few MB would make its commit copy the log into the file (the automatic
+        # checkpoint): left to Project.checkpoint, which the app's worker calls once the
+        # proposals are handed over (the commit is as durable)
+        with store.atomic(defer_checkpoint=True):
             run_id = store.add_run("proposals", params, summary, created_by=self.ctx.annotator)
             if store.blob_meta(FRAME_BLOB) != frame_meta:
                 # the window order (kept with the run: the queue reads no windows) and the
