@@ -218,6 +218,23 @@ def _row_max(A: np.ndarray) -> np.ndarray:
     return m[:, None]
 
 
+_BLAS = None
+
+
+def _one_blas_thread():
+    """A context in which BLAS runs on one thread (threadpoolctl). The one large BLAS product of
+    a fit (the classifier's scores of every window, n x d times d x k) gains little from a second
+    thread, and after it the second thread keeps spinning for a while, waiting for more work:
+    CPU time taken from the smoothing that follows (and from other processes). The same numbers:
+    OpenBLAS splits the rows between its threads, each entry is summed alike."""
+    global _BLAS
+    if _BLAS is None:
+        from threadpoolctl import ThreadpoolController
+
+        _BLAS = ThreadpoolController()
+    return _BLAS.limit(limits=1, user_api="blas")
+
+
 def _normalize(v: np.ndarray) -> np.ndarray:
     return v / v.sum(axis=-1, keepdims=True)
 
@@ -368,6 +385,10 @@ class Proposer(BaseEstimator):
         if not (self.C > 0):
             raise ProposingInputError(f"C must be > 0, got {self.C!r}")
         y = _check_y(y)
+        with _one_blas_thread():
+            return self._fit(graph, y, features, recording, seq, init, init_classes)
+
+    def _fit(self, graph, y, features, recording, seq, init, init_classes):
         if features is None:
             features = self.classifier_features
         if recording is None and seq is None:
