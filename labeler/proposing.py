@@ -38,6 +38,9 @@ Proposed labels are suggestions: a qualified person reviews them before they are
 
 from __future__ import annotations
 
+import contextlib
+import os
+import threading
 import warnings
 
 import numpy as np
@@ -126,8 +129,7 @@ def classifier_probabilities(Z, y, classes, *, C: float = DEFAULT_C) -> np.ndarr
     lab = y >= 0
     if classes.size < 2:
         return np.ones((n, max(classes.size, 1)))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # convergence warnings on a handful of examples
+    with _quiet():  # convergence warnings on a handful of examples
         # Newton steps: about 10 of them where lbfgs takes 100-250 (10x faster here, and closer
         # to the optimum at the default tolerance)
         clf = LogisticRegression(C=C, solver="newton-cg", tol=1e-6, max_iter=100).fit(Z[lab],
@@ -216,6 +218,83 @@ def _row_max(A: np.ndarray) -> np.ndarray:
     for i in range(1, A.shape[1]):
         np.maximum(m, A[:, i], out=m)
     return m[:, None]
+
+
+_SIDE = threading.local()  # .quiet: this thread's warnings are dropped by _beside's recorder
+
+
+@contextlib.contextmanager
+def _quiet():
+    """Warnings ignored while in the block: by a filter (process-wide) in the thread that calls
+    the fit, or, in the thread :func:`_beside` runs beside it (where the filters are the fit's
+    and its warnings are recorded), by a flag of that thread alone."""
+    if getattr(_SIDE, "recorded", False):
+        _SIDE.quiet = True
+        try:
+            yield
+        finally:
+            _SIDE.quiet = False
+        return
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        yield
+
+
+def _beside(main, side):
+    """``(main(), side())``, ``side`` run in a thread of its own while ``main`` runs here (the
+    sparse products, BLAS and numpy's operations on large arrays let go of the interpreter lock,
+    so on two cores the two overlap); the same operations on the same arrays as one after the
+    other, so the same numbers. Warnings filters are process-wide, so while both run every
+    warning is recorded (but those of ``side`` in a :func:`_quiet` block) and issued again
+    afterwards, under the filters as they were; an exception of ``main`` comes first, then one
+    of ``side``."""
+    got: dict = {}
+
+    def run():
+        _SIDE.recorded = True
+        try:
+            got["value"] = side()
+        except BaseException as exc:  # handed to the caller
+            got["error"] = exc
+
+    caught = []
+
+    def record(message, category, filename, lineno, file=None, line=None):
+        if not getattr(_SIDE, "quiet", False):
+            caught.append((message, category, filename, lineno))
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("always")
+            warnings.showwarning = record
+            thread = threading.Thread(target=run, name="labeler-classifier", daemon=True)
+            thread.start()
+            try:
+                out = main()
+            finally:
+                thread.join()
+    finally:
+        for message, category, filename, lineno in caught:
+            warnings.warn_explicit(message, category, filename, lineno)
+    if "error" in got:
+        raise got["error"]
+    return out, got["value"]
+
+
+def _core_free() -> bool:
+    """Whether a second core is free for :func:`_beside`: two or more cores to run on and a
+    load average (one minute) at least one below their number. Without a free core the two
+    threads only take turns (measured at 112k windows on 2 cores at load 3-4: the median
+    refresh the same, single refreshes up to twice as long)."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every system
+        cores = os.cpu_count() or 1
+    try:
+        load = os.getloadavg()[0]
+    except (AttributeError, OSError):
+        load = 0.0
+    return cores >= 2 and load <= cores - 1
 
 
 _BLAS = None
@@ -396,17 +475,31 @@ class Proposer(BaseEstimator):
         sp = getattr(self, "spreader_", None)
         if sp is None or not self.warm_start or sp.alpha != self.alpha:
             sp = LabelSpreader(alpha=self.alpha, warm_start=self.warm_start)
-        sp.fit(graph, y, init=init, init_classes=init_classes)
+
+        def spread():
+            sp.fit(graph, y, init=init, init_classes=init_classes)
+
+        # the classifier needs nothing from the spreading: fitted beside it, in a thread, when
+        # a core is free (else one after the other)
+        Z = Pc = None
+        if features is not None and self.classifier_weight > 0:
+            Z = np.asarray(features)
+            classes = np.unique(y[y >= 0])  # the spreader's classes
+            if Z.ndim == 2 and Z.shape[0] == y.size and classes.size > 1 and _core_free():
+                Pc = _beside(spread, lambda: classifier_probabilities(Z, y, classes,
+                                                                      C=self.C))[1]
+        if Pc is None:
+            spread()
         classes = sp.classes_
         P = sp.label_distributions_
         self.graph_distributions_ = P
         self.classifier_distributions_ = None
-        if features is not None and self.classifier_weight > 0 and classes.size > 1:
-            Z = np.asarray(features)
+        if Z is not None and classes.size > 1:
             if Z.ndim != 2 or Z.shape[0] != y.size:
                 raise ProposingInputError(f"features must have one row per window ({y.size}), "
                                           f"got shape {Z.shape}")
-            Pc = classifier_probabilities(Z, y, classes, C=self.C)
+            if Pc is None:
+                Pc = classifier_probabilities(Z, y, classes, C=self.C)
             self.classifier_distributions_ = Pc
             P = combine(P, Pc, float(self.classifier_weight))
         lab = y >= 0

@@ -200,3 +200,82 @@ def test_queue_margins_from_the_experts():
     np.testing.assert_allclose(out["disagree"][~differ], out["experts"][~differ])
     with pytest.raises(ProposingInputError, match="uncertainty must be one of"):
         Proposer(uncertainty="loud").fit(W, y)
+
+
+@pytest.mark.parametrize("free", [True, False])
+def test_the_classifier_fitted_beside_the_spreading_gives_the_numbers_of_one_after_the_other(
+        free, monkeypatch):
+    """Proposer.fit fits the classifier in a thread while the graph spreads (when a core is
+    free): the result is the composition of its parts computed one after the other, bit for bit
+    (scikit-learn's digits, Alpaydin & Kaynak 1998, from memory)."""
+    from sklearn.datasets import load_digits
+
+    from labeler import proposing
+
+    monkeypatch.setattr(proposing, "_core_free", lambda: free)
+
+    X, t = load_digits(return_X_y=True)
+    W = build_graph(X)
+    y = np.full(t.size, -1)
+    y[::25] = t[::25]
+    p = Proposer(classifier_weight=0.3, stay=0.0).fit(W, y, features=X)
+    s = LabelSpreader(alpha=p.alpha).fit(W, y)
+    Pc = classifier_probabilities(X, y, s.classes_, C=p.C)
+    assert np.array_equal(p.classifier_distributions_, Pc)
+    want = combine(s.label_distributions_, Pc, 0.3)
+    lab = y >= 0
+    want[lab] = 0.0
+    want[np.flatnonzero(lab), np.searchsorted(s.classes_, y[lab])] = 1.0
+    assert np.array_equal(p.label_distributions_, want)
+
+
+@pytest.mark.parametrize("free", [True, False])
+def test_warnings_while_the_classifier_runs_beside_the_spreading(free, monkeypatch):
+    """The spreading's warnings still reach the caller (under the caller's filters); the
+    classifier's convergence warnings stay silent, as when it runs alone; an error in either
+    is raised."""
+    import warnings
+
+    from sklearn.exceptions import ConvergenceWarning
+
+    from labeler import proposing
+
+    monkeypatch.setattr(proposing, "_core_free", lambda: free)
+
+    rng = np.random.default_rng(3)
+    X = rng.normal(size=(300, 4))
+    W = build_graph(X)
+    y = np.full(300, -1)
+    y[:40] = rng.integers(0, 3, 40)  # labels unrelated to the features: a hard fit
+    p = Proposer(classifier_weight=0.3, stay=0.0)
+    p.spreader_ = LabelSpreader(alpha=p.alpha, warm_start=True, max_iter=1)  # cannot converge
+    with pytest.warns(ConvergenceWarning, match="label spreading stopped after max_iter=1"):
+        p.fit(W, y, features=X)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)
+        warnings.simplefilter("ignore", ConvergenceWarning)  # (a UserWarning) ahead of it
+        p.spreader_ = LabelSpreader(alpha=p.alpha, warm_start=True, max_iter=1)
+        p.fit(W, y, features=X)  # the caller's filters apply: ignored
+
+    def main():
+        warnings.warn("from the spreading", UserWarning)
+        return 1
+
+    def side():
+        with proposing._quiet():
+            warnings.warn("dropped", ConvergenceWarning)
+        warnings.warn("from the classifier", RuntimeWarning)
+        return 2
+
+    with warnings.catch_warnings(record=True) as got:
+        warnings.simplefilter("always")
+        assert proposing._beside(main, side) == (1, 2)
+    assert sorted(str(w.message) for w in got) == ["from the classifier", "from the spreading"]
+
+    def fails():
+        raise ValueError("side failed")
+
+    with pytest.raises(ValueError, match="side failed"):
+        proposing._beside(lambda: 1, fails)
+    with pytest.raises(KeyError):
+        proposing._beside(lambda: {}["main failed"], fails)
