@@ -11,11 +11,13 @@ Goal: <= 0.2 s at 100k windows.
 ``--part project`` times what the app's worker and `labeler propose` run: a project of the same
 simulated recordings (built once in ``--folder``, kept for later runs), one more confirmation,
 then ``Project.reread`` + ``Project.refresh_proposals(estimate=False)`` in the same Project object
-(the app's worker; then, untimed in the refresh, ``Project.checkpoint``, which the worker calls
-once the proposals are handed over: its time is printed beside) and
-``Project.refresh_proposals(estimate=False)`` in a Project opened afresh
+(the app's worker, whose kept proposer made the latest run; then, untimed in the refresh,
+``Project.checkpoint``, which the worker calls once the proposals are handed over: its time is
+printed beside), ``Project.refresh_proposals(estimate=False)`` in a Project opened afresh
 (`labeler propose` in a new process: the graph read from the file and the proposer made anew),
-alternating; wall and CPU time, median over the refreshes, with the load average.
+and, timed apart, the worker's first refresh after that run of another process (its proposer made
+anew from the stored run); one after the other in rounds; wall and CPU time, median over the
+refreshes, with the load average.
 
 Run: python benchmarks/bench_refresh.py [--part spreading|project|both] [--recordings 5]
      [--hours 8] [--refreshes 5] [--folder /tmp/bench_refresh]
@@ -107,20 +109,27 @@ def project_part(args) -> None:
         print(f"built {path} in {time.perf_counter() - t0:.0f} s")
     truth = {int(k): v for k, v in json.loads(truth_file.read_text()).items()}
     rng = np.random.default_rng(int(time.time()))
-    kept, afresh, later = [], [], []
+    kept, afresh, later, other = [], [], [], []
+
+    def confirm_one(p):
+        confirmed = set(p.proposals().query("confirmed")["window_id"].tolist())
+        todo = [i for i, a in truth.items() if a is not None and i not in confirmed]
+        j = int(rng.choice(todo))
+        p.confirm([j], truth[j], source="cli", create_class=True)
+
     with Project.open(path, annotator="bench") as p:
         t0 = time.perf_counter()
         p.reread()
         run = p.refresh_proposals(estimate=False)  # the worker's first run after the page opens
         print(f"{run.windows} windows, {run.confirmed} confirmed; first refresh in this process "
               f"(graph read, classifier features made): {time.perf_counter() - t0:.2f} s")
-        for _ in range(args.refreshes):
-            for fresh in (False, True):
-                confirmed = set(p.proposals().query("confirmed")["window_id"].tolist())
-                todo = [i for i, a in truth.items() if a is not None and i not in confirmed]
-                j = int(rng.choice(todo))
-                p.confirm([j], truth[j], source="cli", create_class=True)
-                if fresh:
+        for r in range(args.refreshes):
+            # the app's worker makes every run, so the proposer it keeps made the latest one;
+            # after a run of another process (the one opened afresh below) it makes a proposer
+            # anew from the stored run: timed apart, and then the worker's refresh as in the app
+            for step in (("other", "kept", "afresh") if r else ("kept", "afresh")):
+                confirm_one(p)
+                if step == "afresh":
                     with Project.open(path, annotator="bench") as q:
                         t0, c0 = time.perf_counter(), time.process_time()
                         run = q.refresh_proposals(estimate=False)
@@ -129,17 +138,20 @@ def project_part(args) -> None:
                     t0, c0 = time.perf_counter(), time.process_time()
                     p.reread()
                     run = p.refresh_proposals(estimate=False)
-                    kept.append((time.perf_counter() - t0, time.process_time() - c0))
+                    (kept if step == "kept" else other).append(
+                        (time.perf_counter() - t0, time.process_time() - c0))
                     t0 = time.perf_counter()
                     p.checkpoint()  # what the worker does once the proposals are handed over
                     later.append(time.perf_counter() - t0)
                 assert run.warm_start
-    k, a = np.median(kept, axis=0), np.median(afresh, axis=0)
+    k, a, o = (np.median(v, axis=0) for v in (kept, afresh, other or [(np.nan, np.nan)]))
     print(f"load average {os.getloadavg()[0]:.2f}; one more confirmation, then (median of "
           f"{args.refreshes}, wall / CPU):")
     print(f"  app's worker (reread + refresh_proposals, same Project): {k[0]:.3f} / {k[1]:.3f} s "
           f"(goal <= 0.2 s); then, off the path, the checkpoint its commit left: "
           f"{np.median(later):.3f} s")
+    print(f"  the same after a run of another process (proposer made anew from the stored run): "
+          f"{o[0]:.3f} / {o[1]:.3f} s")
     print(f"  labeler propose (refresh_proposals in a Project opened afresh): {a[0]:.3f} / "
           f"{a[1]:.3f} s (ratio worker / afresh {k[0] / a[0]:.2f})")
 
