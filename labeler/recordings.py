@@ -30,6 +30,7 @@ import hashlib
 import math
 import os
 import re
+import threading
 import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -40,7 +41,7 @@ import pandas as pd
 from labeler.channels import CANONICAL_UNITS, UNIT_FACTORS, parse_channel, triads
 from labeler.errors import InputError
 from labeler.gravity import judge_level, rest_level
-from labeler.timecolumn import read_time_column
+from labeler.timecolumn import median, read_time_column
 
 TIME_COLUMNS = ("time", "t", "timestamp", "time_s", "seconds", "datetime", "date_time")
 DEFAULT_MAX_GAP_S = 1.0
@@ -88,12 +89,93 @@ class Recording:
         return [(a / self.rate, (b - a) / self.rate) for a, b in _runs(~self.valid)]
 
 
-def file_hash(path: str | os.PathLike) -> str:
+def file_hash(path: str | os.PathLike, stop: threading.Event | None = None) -> str:
+    """The SHA-256 of the file's bytes (hex); "" when ``stop`` is set before the end."""
     h = hashlib.sha256()
     with open(path, "rb") as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):
+            if stop is not None and stop.is_set():
+                return ""
             h.update(block)
     return h.hexdigest()
+
+
+class _HashInBackground:
+    """The file's hash, computed in a thread of its own while the file is read and checked (the
+    file read and the hash update run without the interpreter lock)."""
+
+    def __init__(self, path: Path):
+        self._stop = threading.Event()
+        self._result: list = []
+        self._thread = threading.Thread(target=self._run, args=(path,), daemon=True,
+                                        name="labeler-file-hash")
+        self._thread.start()
+
+    def _run(self, path: Path) -> None:
+        try:
+            self._result.append(file_hash(path, self._stop))
+        except BaseException as exc:  # handed to the reading thread by result()
+            self._result.append(exc)
+
+    def result(self) -> str:
+        self._thread.join()
+        out = self._result[0]
+        if isinstance(out, BaseException):
+            raise out
+        return out
+
+    def cancel(self) -> None:
+        self._stop.set()
+        self._thread.join()
+
+
+def _workers() -> int:
+    """Threads the numeric passes of one read may use: the cores this process may run on."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        cores = os.cpu_count() or 1
+    return max(1, min(_MAX_WORKERS, cores))
+
+
+#: at most this many threads per read; below _PARALLEL_FROM samples one thread does everything
+_MAX_WORKERS = 4
+_PARALLEL_FROM = 1 << 16
+
+
+def _each(fn, items: list, parallel: bool) -> list:
+    """``[fn(x) for x in items]``, shared out among up to ``_workers()`` threads (the calling one
+    among them) when ``parallel``. For numpy passes over large arrays, which run without the
+    interpreter lock; every item must write only to memory of its own. All threads have finished
+    when this returns or raises."""
+    workers = min(_workers(), len(items)) if parallel else 1
+    if workers < 2:
+        return [fn(x) for x in items]
+    results: list = [None] * len(items)
+    taken = iter(range(len(items)))
+    lock = threading.Lock()
+    failed: list[BaseException] = []
+
+    def work() -> None:
+        while not failed:
+            with lock:
+                i = next(taken, None)
+            if i is None:
+                return
+            try:
+                results[i] = fn(items[i])
+            except BaseException as exc:
+                failed.append(exc)
+
+    threads = [threading.Thread(target=work, daemon=True) for _ in range(workers - 1)]
+    for th in threads:
+        th.start()
+    work()
+    for th in threads:
+        th.join()
+    if failed:
+        raise failed[0]
+    return results
 
 
 def recording_name(path: str | os.PathLike) -> str:
@@ -135,14 +217,22 @@ def read_recording(path: str | os.PathLike, *, rate: float | None = None,
     notes: list[str] = []
     known = set(columns or {}) | ({time_column} if time_column else set())
     found: dict = {}
-    frame, first_row = _read_table(path, repairs, notes, skip_rows, known, found)
-    return recording_from_frame(frame, where=where, content_hash=file_hash(path),
-                                name=name or recording_name(path), rate=rate,
-                                time_column=time_column, time_unit=time_unit,
-                                time_format=time_format, tz=tz, columns=columns,
-                                acc_unit=acc_unit, gyr_unit=gyr_unit, max_gap_s=max_gap_s,
-                                max_fill_s=max_fill_s, repairs=repairs, notes=notes,
-                                first_row=first_row, options_origin=options_origin, found=found)
+    hashing = _HashInBackground(path)  # needed only at the end (duplicate check)
+    try:
+        frame, first_row = _read_table(path, repairs, notes, skip_rows, known, found)
+        rec = recording_from_frame(frame, where=where, content_hash="",
+                                   name=name or recording_name(path), rate=rate,
+                                   time_column=time_column, time_unit=time_unit,
+                                   time_format=time_format, tz=tz, columns=columns,
+                                   acc_unit=acc_unit, gyr_unit=gyr_unit, max_gap_s=max_gap_s,
+                                   max_fill_s=max_fill_s, repairs=repairs, notes=notes,
+                                   first_row=first_row, options_origin=options_origin,
+                                   found=found)
+    except BaseException:
+        hashing.cancel()
+        raise
+    rec.content_hash = hashing.result()
+    return rec
 
 
 def _check_units(where: str, acc_unit: str | None, gyr_unit: str | None) -> None:
@@ -360,14 +450,26 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
 
     # ---- values, column-major: every check and repair runs channel by channel
     values = np.empty((len(channels), len(frame)), dtype=np.float64).T
+    parallel = len(frame) >= _PARALLEL_FROM
+    floats = []
     for j, c in enumerate(sensor_cols):
         col = frame[c]
         if isinstance(col.dtype, np.dtype) and col.dtype.kind == "f":  # cast in place, no copy
-            values[:, j] = col.to_numpy()
+            floats.append((j, col.to_numpy()))
         else:
             values[:, j] = _numeric_column(col, where, c, first_row)
+
+    def cast(item) -> None:
+        j, col = item
+        values[:, j] = col
+
+    _each(cast, floats, parallel)
+    # the largest and smallest value of each column, NaN left out (NaN when the column holds none):
+    # the check of empty columns here and of absurd values below
+    extremes = _each(lambda j: (np.fmax.reduce(values[:, j]), np.fmin.reduce(values[:, j])),
+                     list(range(len(channels))), parallel)
     for j, c in enumerate(channels):
-        if np.isnan(values[:, j]).all():
+        if np.isnan(extremes[j][0]):
             raise InputError(f"{where}: column {sensor_cols[j]!r} holds no values; drop the column")
 
     # ---- time
@@ -386,30 +488,33 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
             notes.append(tc.note)
         if tc.unit_found:
             found["time_unit"] = tc.unit_found
-        infinite = np.flatnonzero(~np.isfinite(t))
-        if infinite.size:
-            r = int(infinite[0])
-            raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: time {t[r]:g} is not a "
-                             "finite number of seconds; fix the cell")
+        # one pass when all is well (a sum is finite only when every term is); the row otherwise
+        if not np.isfinite(np.add.reduce(t)):
+            infinite = np.flatnonzero(~np.isfinite(t))
+            if infinite.size:
+                r = int(infinite[0])
+                raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: time {t[r]:g} is "
+                                 "not a finite number of seconds; fix the cell")
+    dt = None
     if len(t) >= 2:
         dt = np.diff(t)
-        back = np.flatnonzero(dt < 0)
-        if back.size:
-            r = int(back[0]) + 1
+        # the smallest step says whether any of the three checks below has a row to name
+        least = float(np.min(dt))
+        if least < 0:
+            r = int(np.flatnonzero(dt < 0)[0]) + 1
             raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: time goes backwards "
                              f"({t[r - 1]:.6g} then {t[r]:.6g} s from the first sample); sort the "
                              "rows by time or fix the clock")
-        dup = np.flatnonzero(dt == 0)
-        if dup.size:
-            r = int(dup[0]) + 1
+        if least == 0:
+            r = int(np.flatnonzero(dt == 0)[0]) + 1
             raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: duplicate timestamp "
                              f"{_time_cell(frame, tcol, r)}; remove repeated rows")
-        nominal_dt = 1.0 / rate if rate is not None else float(np.median(dt))
+        nominal_dt = 1.0 / rate if rate is not None else median(dt)
         if not (nominal_dt > 0 and MIN_RATE <= 1.0 / nominal_dt <= MAX_RATE):
             raise InputError(f"{where}: column {tcol!r}: median time step {nominal_dt:.6g} s is "
                              "not a sampling rate; check the time column or --time-unit")
-        small = np.flatnonzero(dt < 0.25 * nominal_dt)
-        if small.size:
+        if least < 0.25 * nominal_dt:
+            small = np.flatnonzero(dt < 0.25 * nominal_dt)
             r = int(small[0]) + 1
             raise InputError(f"{where}: row {r + first_row}, column {tcol!r}: timestamps "
                              f"{dt[small[0]]:.3g} s apart where samples come every {nominal_dt:.3g} "
@@ -434,9 +539,8 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     for j, c in enumerate(channels):
         col = values[:, j]
         limit = ABSURD[kinds[j]] / factors[j]
-        # the largest and smallest value, NaN left out (two passes, no copies): an infinite value
-        # is beyond the limit too
-        if not (np.fmax.reduce(col) <= limit and np.fmin.reduce(col) >= -limit):
+        # the largest and smallest value, NaN left out: an infinite value is beyond the limit too
+        if not (extremes[j][0] <= limit and extremes[j][1] >= -limit):
             row = int(np.flatnonzero(np.abs(col) > limit)[0])  # NaN compares false
             raise InputError(
                 f"{where}: row {row + first_row}, column {sensor_cols[j]!r}: value {col[row]:g} is "
@@ -448,7 +552,7 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     converted = sorted({units[c] for c in channels} - set(CANONICAL_UNITS.values()))
     if converted:
         repairs.append("converted " + ", ".join(converted) + " to g and deg/s")
-    signal, valid = _to_grid(t, values, fs, max_gap_s, max_fill_s, repairs)
+    signal, valid = _to_grid(t, values, fs, max_gap_s, max_fill_s, repairs, dt)
     if start_time is not None:
         start_time = _shift_iso(start_time, 0.0)
     return Recording(name=name, source_path=where, content_hash=content_hash, rate=float(fs),
@@ -469,12 +573,12 @@ def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[st
     """At rest |acc| is 1 g: convert a triad whose assumed unit is wrong (with a note), refuse one
     whose stated unit is (see :mod:`labeler.gravity`). Changes ``units`` and ``factors``."""
     assumed_units = set()
-    for site, kind, idx in triads(channels):
-        if kind != "acc":
-            continue
-        cols = list(idx)
-        mag = np.sqrt(sum((values[:, j] * factors[j]) ** 2 for j in cols))
-        level = rest_level(mag, block)
+    acc = [(site, list(idx)) for site, kind, idx in triads(channels) if kind == "acc"]
+    # each triad's level on a thread of its own (a verdict changes only its own triad's factors)
+    levels = _each(lambda cols: rest_level(_magnitude(values, cols, [factors[j] for j in cols]),
+                                           block),
+                   [cols for _, cols in acc], values.shape[0] >= _PARALLEL_FROM)
+    for (site, cols), level in zip(acc, levels):
         if level is None:
             continue
         unit = units[channels[cols[0]]]
@@ -515,6 +619,25 @@ def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[st
         found["acc_unit"] = assumed_units.pop()
 
 
+def _magnitude(values: np.ndarray, cols: list[int], factors: list[float]) -> np.ndarray:
+    """``sqrt(sum((values[:, j] * f) ** 2))`` over the columns ``cols`` and their factors, in the
+    same arithmetic and order, in blocks of rows so that the temporaries stay in the cache."""
+    n = values.shape[0]
+    out = np.empty(n, dtype=np.float64)
+    part = np.empty(min(n, _GRID_BLOCK), dtype=np.float64)
+    for a in range(0, n, _GRID_BLOCK):
+        b = min(a + _GRID_BLOCK, n)
+        total, term = out[a:b], part[: b - a]
+        for i, (j, f) in enumerate(zip(cols, factors)):
+            into = total if i == 0 else term
+            np.multiply(values[a:b, j], f, out=into)
+            np.multiply(into, into, out=into)
+            if i:
+                total += term
+        np.sqrt(total, out=total)
+    return out
+
+
 def _numeric_column(col: pd.Series, where: str, name: str, first_row: int = 2) -> np.ndarray:
     if col.dtype.kind in "fiu":
         return col.to_numpy(dtype=np.float64)
@@ -542,49 +665,62 @@ _GRID_BLOCK = 1 << 15
 
 
 def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max_fill_s: float,
-             repairs: list[str]) -> tuple[np.ndarray, np.ndarray]:
+             repairs: list[str], dt: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Resample onto the uniform grid t0 + k/fs; short missing runs filled, long ones and gaps kept.
 
     Returns the signal as float32 (NaN where not valid) and the valid mask. ``values`` (float64) is
     changed in place (short runs filled); each channel is handled on its own, so a column-major
     ``values`` (one contiguous run of memory per channel) is fastest, and the signal returned is
-    column-major too. Linear in the number of samples: every step touches each sample a fixed
-    number of times, whatever the number of missing runs or gaps.
+    column-major too. ``dt`` is ``numpy.diff(t)`` when the caller has it. Linear in the number of
+    samples: every step touches each sample a fixed number of times, whatever the number of
+    missing runs or gaps. Channels, and blocks of grid points, are shared out among threads
+    (:func:`_each`); each writes only its own part of the output, so the result does not depend
+    on the number of threads.
+
+    Every value that is not NaN must be finite (the absurd-value check sees to it).
     """
     n, c = values.shape
+    parallel = n >= _PARALLEL_FROM
     nan = np.empty((c, n), dtype=bool)
-    for j in range(c):
-        np.isnan(values[:, j], out=nan[j])
-    has_nan = [bool(nan[j].any()) for j in range(c)]  # per channel, after the fill below
+    max_fill = max(1, int(round(max_fill_s * fs)))
+
     # 1. short runs of missing values: interpolate in time between the run's two neighbours
-    if any(has_nan):
-        max_fill = max(1, int(round(max_fill_s * fs)))
-        filled = 0
-        for j in range(c):  # loop over channels
-            if has_nan[j]:
-                filled += _fill_short_runs(t, values[:, j], max_fill)
-                np.isnan(values[:, j], out=nan[j])
-                has_nan[j] = bool(nan[j].any())
+    def fill(j: int) -> tuple[int, bool]:
+        """(values filled, whether the channel still misses some) for channel j; nan[j] set."""
+        np.isnan(values[:, j], out=nan[j])
+        if not nan[j].any():
+            return 0, False
+        filled = _fill_short_runs(t, values[:, j], max_fill, nan[j])
         if filled:
-            repairs.append(f"filled {filled} missing values (runs up to {max_fill_s:g} s)")
-    # rows with no missing value: one pass per channel (a reduction across the rows of the
-    # (channels, samples) mask strides through memory and is ten times slower)
-    row_bad = nan[0].copy()
-    for j in range(1, c):
-        row_bad |= nan[j]
-    row_ok = ~row_bad
-    del nan, row_bad
+            np.isnan(values[:, j], out=nan[j])
+        return filled, bool(filled == 0 or nan[j].any())
+
+    done = _each(fill, list(range(c)), parallel)
+    filled = sum(f for f, _ in done)
+    has_nan = [h for _, h in done]
+    if filled:
+        repairs.append(f"filled {filled} missing values (runs up to {max_fill_s:g} s)")
+    # rows with no missing value: one pass per channel that misses some (a reduction across the
+    # rows of the (channels, samples) mask strides through memory and is ten times slower)
+    row_ok = np.ones(n, dtype=bool)
+    for j in range(c):
+        if has_nan[j]:
+            row_ok &= ~nan[j]
+    del nan
     # 2. uniform grid
-    dt = np.diff(t)
+    if dt is None:
+        dt = np.diff(t)
     nominal = 1.0 / fs
-    regular = dt[dt <= 1.5 * nominal]  # longer steps are dropouts or gaps, not jitter
-    jitter = bool(regular.size) and float(np.max(np.abs(regular - nominal))) > 1e-6 * nominal
+    jitter = _jittered(dt, nominal)
+    longer = np.flatnonzero(dt > 1.5 * nominal)  # steps that are dropouts or gaps, not jitter
     n_grid = int(math.floor((t[-1] - t[0]) * fs + 1e-6)) + 1
     grid = t[0] + np.arange(n_grid) / fs
     out = np.empty((c, n_grid), dtype=np.float32)  # one row per channel; returned transposed
     if not jitter and n_grid == n:
-        for j in range(c):
+        def copy(j: int) -> None:
             out[j] = values[:, j]
+
+        _each(copy, list(range(c)), parallel)
         valid = row_ok.copy()
     else:
         # Linear interpolation in time, one channel at a time, with the positions on the grid
@@ -593,11 +729,16 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         # every valid point, what interpolating over the complete rows alone gives (the arithmetic
         # of numpy.interp), except NaN where a point within rounding of a row is followed by a
         # missing value: such a point takes its row.
-        left_all = np.clip(_rows_at_or_before(t, grid, fs) - 1, 0, n - 1)
+        left_all = _rows_at_or_before(t, grid, fs, parallel)
+        left_all -= 1
+        np.clip(left_all, 0, n - 1, out=left_all)
         near = 1e-9 * max(1.0, abs(t[-1]))
         valid = np.empty(n_grid, dtype=bool)
-        # in blocks of grid points, so that the temporaries stay in the cache
-        for a in range(0, n_grid, _GRID_BLOCK):
+        gappy = [j for j in range(c) if has_nan[j]]
+
+        def interpolate(a: int) -> None:
+            """Grid points a .. a + _GRID_BLOCK (a block, so that the temporaries stay in the
+            cache)."""
             b = min(a + _GRID_BLOCK, n_grid)
             left, g = left_all[a:b], grid[a:b]
             right = np.minimum(left + 1, n - 1)
@@ -609,6 +750,10 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
             t_lo = t[lo]
             span = t[hi] - t_lo
             offset = g - t_lo
+            if gappy:
+                # the valid points an interpolation may give NaN: those whose two rows are not
+                # both complete (from two finite values, times strictly apart, it is finite)
+                doubtful = np.flatnonzero(ok & ~(row_ok[lo] & row_ok[hi]))
             for j in range(c):  # loop over channels
                 y = values[:, j]
                 y_lo = y[lo]
@@ -617,19 +762,21 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
                 v *= offset
                 o = out[j, a:b]
                 np.add(v, y_lo, out=o)  # in float64, rounded once to float32 on the way out
-                if has_nan[j]:
+                if has_nan[j] and doubtful.size:
                     # a point within rounding of a complete row that a missing value follows
-                    on_row = np.flatnonzero(np.isnan(o) & ok)
+                    on_row = doubtful[np.isnan(o[doubtful])]
                     o[on_row] = y[left[on_row]]
+
+        _each(interpolate, list(range(0, n_grid, _GRID_BLOCK)), parallel)
         del left_all
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
-        short = int(np.count_nonzero((dt > 1.5 * nominal) & (dt <= max(max_gap_s, 1.5 * nominal))))
+        short = int(np.count_nonzero(dt[longer] <= max(max_gap_s, 1.5 * nominal)))
         if short:
             repairs.append(f"interpolated across {short} dropout(s) of samples up to {max_gap_s:g} s")
     # 3. pauses in time longer than max_gap_s are gaps; so are runs of missing values left over
     if dt.size:
-        long = np.flatnonzero(dt > max(max_gap_s, 1.5 * nominal))
+        long = longer[dt[longer] > max(max_gap_s, 1.5 * nominal)]
         if long.size:
             # grid points strictly inside (t[k], t[k + 1]) for each long pause k
             lo = np.searchsorted(grid, t[long] + 1e-9, side="right")
@@ -649,34 +796,58 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
     return out.T, valid
 
 
-def _rows_at_or_before(t: np.ndarray, grid: np.ndarray, fs: float) -> np.ndarray:
+def _jittered(dt: np.ndarray, nominal: float) -> bool:
+    """Whether a step no longer than 1.5 nominal steps (longer ones are dropouts or gaps, not
+    jitter) differs from the nominal step by more than a millionth of it. Block by block, so a
+    jittered recording is known from its first block."""
+    for a in range(0, dt.size, _GRID_BLOCK):
+        d = dt[a:a + _GRID_BLOCK]
+        if np.any((d <= 1.5 * nominal) & (np.abs(d - nominal) > 1e-6 * nominal)):
+            return True
+    return False
+
+
+def _rows_at_or_before(t: np.ndarray, grid: np.ndarray, fs: float,
+                       parallel: bool = False) -> np.ndarray:
     """For each point of ``grid`` (``grid[0] + k / fs``, ascending), how many of the ascending
     times ``t`` are at or before it: ``numpy.searchsorted(t, grid, side="right")``, in linear
     time. Each time's first grid point at or after it comes from its position on the grid,
     rounded up and then corrected against the grid's own values (so rounding in the position
-    cannot move a time to the wrong side of a grid point); the counts are the running sum."""
+    cannot move a time to the wrong side of a grid point); the counts are the running sum.
+    The positions are found block by block of times (each time's on its own, so blocks may run
+    on several threads)."""
     m = grid.size
-    first = np.ceil((t - grid[0]) * fs)
-    np.clip(first, 0, m, out=first)
-    first = first.astype(np.int64)
-    while True:  # rounding leaves a position one off at most; repeated until none is
-        down = (first > 0) & (grid[np.maximum(first - 1, 0)] >= t)
-        up = (first < m) & (grid[np.minimum(first, m - 1)] < t)
-        if not (down.any() or up.any()):
-            break
-        first -= down
-        first += up
+    first = np.empty(t.size, dtype=np.int64)
+
+    def place(a: int) -> None:
+        b = min(a + _GRID_BLOCK, t.size)
+        tb = t[a:b]
+        pos = np.ceil((tb - grid[0]) * fs)
+        np.clip(pos, 0, m, out=pos)
+        f = first[a:b]
+        f[:] = pos
+        while True:  # rounding leaves a position one off at most; repeated until none is
+            down = (f > 0) & (grid[np.maximum(f - 1, 0)] >= tb)
+            up = (f < m) & (grid[np.minimum(f, m - 1)] < tb)
+            if not (down.any() or up.any()):
+                break
+            f -= down
+            f += up
+
+    _each(place, list(range(0, t.size, _GRID_BLOCK)), parallel)
     return np.cumsum(np.bincount(first, minlength=m + 1)[:m])
 
 
-def _fill_short_runs(t: np.ndarray, column: np.ndarray, max_fill: int) -> int:
+def _fill_short_runs(t: np.ndarray, column: np.ndarray, max_fill: int,
+                     missing: np.ndarray | None = None) -> int:
     """Fill runs of NaN of at most ``max_fill`` samples that have a value on both sides, in place.
 
     Each filled value is the linear interpolation in time between the run's two neighbours (what
     ``numpy.interp`` over the column's values gives, in the same arithmetic). Returns how many
-    values were filled.
+    values were filled. ``missing`` is ``numpy.isnan(column)`` when the caller has it.
     """
-    missing = np.isnan(column)
+    if missing is None:
+        missing = np.isnan(column)
     if not missing.any():
         return 0
     padded = np.concatenate([[False], missing, [False]])

@@ -66,6 +66,24 @@ def read_time_column(col: pd.Series, *, where: str, name: str, first_row: int = 
     return _numbers(col, where, name, first_row, unit, rate)
 
 
+# ------------------------------------------------------------------ medians
+def median(x: np.ndarray) -> float:
+    """``numpy.median`` of a 1-D array holding no NaN, as a float: the same value, in a quarter of
+    the time on a million values. numpy partitions at one rank with a vectorised selection but at
+    several with a general one, four times slower here, and ``numpy.median`` always asks for
+    several (the middle one or two, and the last to look for NaN). Here: one partition at the
+    upper middle rank; for an even count the lower middle value is the largest of those before
+    it. The middle values are averaged by ``numpy.mean``, as ``numpy.median`` does."""
+    x = np.asarray(x)
+    n = x.size
+    if n < 2:
+        return float(np.median(x))
+    k = n // 2
+    part = np.partition(x, k)
+    middle = part[k:k + 1] if n % 2 else np.array([part[:k].max(), part[k]], dtype=part.dtype)
+    return float(np.mean(middle))
+
+
 # ------------------------------------------------------------------ numbers
 def _numbers(col, where, name, first_row, unit, rate) -> TimeColumn:
     from labeler.recordings import _numeric_column
@@ -76,16 +94,18 @@ def _numbers(col, where, name, first_row, unit, rate) -> TimeColumn:
     else:
         raw_int = None
         raw = _numeric_column(col, where, name, first_row)
-    miss = np.flatnonzero(np.isnan(raw))
-    if miss.size:
-        raise InputError(f"{where}: row {int(miss[0]) + first_row}, column {name!r}: time is "
-                         "missing; every row needs a time")
-    finite = np.isfinite(raw)
-    if not finite.all():
-        r = int(np.flatnonzero(~finite)[0])
-        raise InputError(f"{where}: row {r + first_row}, column {name!r}: time {raw[r]:g} is not a "
-                         "finite number; fix the cell")
-    step = float(np.median(np.diff(raw))) if raw.size >= 2 else 0.0
+    # one pass when all is well (a sum is finite only when every term is); the row otherwise
+    if not np.isfinite(np.add.reduce(raw)):
+        miss = np.flatnonzero(np.isnan(raw))
+        if miss.size:
+            raise InputError(f"{where}: row {int(miss[0]) + first_row}, column {name!r}: time is "
+                             "missing; every row needs a time")
+        finite = np.isfinite(raw)
+        if not finite.all():
+            r = int(np.flatnonzero(~finite)[0])
+            raise InputError(f"{where}: row {r + first_row}, column {name!r}: time {raw[r]:g} is "
+                             "not a finite number; fix the cell")
+    step = median(np.diff(raw)) if raw.size >= 2 else 0.0
     note = None
     if unit is None:
         unit = _unix_unit(raw[0], step) or "s"
@@ -94,9 +114,11 @@ def _numbers(col, where, name, first_row, unit, rate) -> TimeColumn:
                     f"say so with --time-unit {unit} to silence this")
     factor = TIME_UNITS[unit]
     if raw_int is not None:
-        t = (raw_int - raw_int[0]).astype(np.float64) * factor
+        t = (raw_int - raw_int[0]).astype(np.float64)
     else:
-        t = (raw - raw[0]) * factor
+        t = raw - raw[0]
+    if factor != 1.0:  # x * 1.0 is x: seconds are not multiplied
+        t *= factor
     if step > 0 and rate is None and not MIN_RATE <= 1.0 / (step * factor) <= MAX_RATE:
         raise InputError(f"{where}: column {name!r}: median time step {step:.6g} {unit} is not a "
                          f"sampling rate ({1.0 / (step * factor):.3g} Hz); "
