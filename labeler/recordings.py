@@ -448,28 +448,24 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
     if len(frame) == 0:
         raise InputError(f"{where}: header only, no samples; export the recording again")
 
-    # ---- values, column-major: every check and repair runs channel by channel
-    values = np.empty((len(channels), len(frame)), dtype=np.float64).T
-    parallel = len(frame) >= _PARALLEL_FROM
-    floats = []
+    # ---- values: each channel's column as the table holds it (a float column is not copied and
+    # never written to); every check and repair reads it channel by channel, in float64 (a float32
+    # value is exact in float64), and the unit factors and filled values are applied on the way
+    # onto the grid
+    cols: list[np.ndarray] = []
     for j, c in enumerate(sensor_cols):
         col = frame[c]
-        if isinstance(col.dtype, np.dtype) and col.dtype.kind == "f":  # cast in place, no copy
-            floats.append((j, col.to_numpy()))
+        if isinstance(col.dtype, np.dtype) and col.dtype.kind == "f":
+            cols.append(np.ascontiguousarray(col.to_numpy()))
         else:
-            values[:, j] = _numeric_column(col, where, c, first_row)
-
-    def cast(item) -> None:
-        j, col = item
-        values[:, j] = col
-
-    _each(cast, floats, parallel)
+            cols.append(_numeric_column(col, where, c, first_row))
+    parallel = len(frame) >= _PARALLEL_FROM
     # the largest and smallest value of each column, NaN left out (NaN when the column holds none):
     # the check of empty columns here and of absurd values below
-    extremes = _each(lambda j: (np.fmax.reduce(values[:, j]), np.fmin.reduce(values[:, j])),
-                     list(range(len(channels))), parallel)
+    extremes = _each(lambda col: (float(np.fmax.reduce(col)), float(np.fmin.reduce(col))), cols,
+                     parallel)
     for j, c in enumerate(channels):
-        if np.isnan(extremes[j][0]):
+        if math.isnan(extremes[j][0]):
             raise InputError(f"{where}: column {sensor_cols[j]!r} holds no values; drop the column")
 
     # ---- time
@@ -534,25 +530,22 @@ def recording_from_frame(frame: pd.DataFrame, *, where: str, content_hash: str, 
         fs = float(rate) if rate is not None else None
         if fs is None:
             raise InputError(f"{where}: a single sample; a recording needs many samples")
-    _check_gravity(values, channels, sensor_cols, units, factors, stated, where, notes, found,
+    _check_gravity(cols, channels, sensor_cols, units, factors, stated, where, notes, found,
                    block=max(8, int(round(fs))))
     for j, c in enumerate(channels):
-        col = values[:, j]
         limit = ABSURD[kinds[j]] / factors[j]
         # the largest and smallest value, NaN left out: an infinite value is beyond the limit too
         if not (extremes[j][0] <= limit and extremes[j][1] >= -limit):
+            col = cols[j].astype(np.float64)
             row = int(np.flatnonzero(np.abs(col) > limit)[0])  # NaN compares false
             raise InputError(
                 f"{where}: row {row + first_row}, column {sensor_cols[j]!r}: value {col[row]:g} is "
                 f"beyond any body-worn sensor in {units[c]}; check the column's unit (e.g. "
                 f"{channels[j]}[{'m/s2' if kinds[j] == 'acc' else 'rad/s'}]) or the data")
-    for j, f in enumerate(factors):
-        if f != 1.0:
-            values[:, j] *= f
     converted = sorted({units[c] for c in channels} - set(CANONICAL_UNITS.values()))
     if converted:
         repairs.append("converted " + ", ".join(converted) + " to g and deg/s")
-    signal, valid = _to_grid(t, values, fs, max_gap_s, max_fill_s, repairs, dt)
+    signal, valid = _to_grid(t, cols, factors, fs, max_gap_s, max_fill_s, repairs, dt)
     if start_time is not None:
         start_time = _shift_iso(start_time, 0.0)
     return Recording(name=name, source_path=where, content_hash=content_hash, rate=float(fs),
@@ -567,7 +560,7 @@ def _time_cell(frame: pd.DataFrame, tcol: str, r: int) -> str:
     return f"{value:g}" if isinstance(value, (int, float, np.integer, np.floating)) else str(value)
 
 
-def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[str],
+def _check_gravity(cols: list[np.ndarray], channels: list[str], sensor_cols: list[str],
                    units: dict[str, str], factors: list[float], stated: dict[str, str | None],
                    where: str, notes: list[str], found: dict, block: int = 32) -> None:
     """At rest |acc| is 1 g: convert a triad whose assumed unit is wrong (with a note), refuse one
@@ -575,22 +568,22 @@ def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[st
     assumed_units = set()
     acc = [(site, list(idx)) for site, kind, idx in triads(channels) if kind == "acc"]
     # each triad's level on a thread of its own (a verdict changes only its own triad's factors)
-    levels = _each(lambda cols: rest_level(_magnitude(values, cols, [factors[j] for j in cols]),
-                                           block),
-                   [cols for _, cols in acc], values.shape[0] >= _PARALLEL_FROM)
-    for (site, cols), level in zip(acc, levels):
+    levels = _each(lambda idx: rest_level(_magnitude([cols[j] for j in idx],
+                                                     [factors[j] for j in idx]), block),
+                   [idx for _, idx in acc], cols[0].size >= _PARALLEL_FROM)
+    for (site, idx), level in zip(acc, levels):
         if level is None:
             continue
-        unit = units[channels[cols[0]]]
-        who = [stated[channels[j]] for j in cols]
+        unit = units[channels[idx[0]]]
+        who = [stated[channels[j]] for j in idx]
         verdict = judge_level(level, unit, stated=any(w is not None for w in who))
-        names = "/".join(sensor_cols[j] for j in cols)
+        names = "/".join(sensor_cols[j] for j in idx)
         if all(w is None for w in who):
             assumed_units.add(verdict.unit)
         if verdict.action == "ok":
             continue
         if verdict.action == "convert":
-            for j in cols:
+            for j in idx:
                 units[channels[j]] = verdict.unit
                 factors[j] = UNIT_FACTORS["acc"][verdict.unit]
             notes.append(f"read {names} as {verdict.unit}: at rest |acc| is {level:.3g} g if read "
@@ -619,18 +612,18 @@ def _check_gravity(values: np.ndarray, channels: list[str], sensor_cols: list[st
         found["acc_unit"] = assumed_units.pop()
 
 
-def _magnitude(values: np.ndarray, cols: list[int], factors: list[float]) -> np.ndarray:
-    """``sqrt(sum((values[:, j] * f) ** 2))`` over the columns ``cols`` and their factors, in the
-    same arithmetic and order, in blocks of rows so that the temporaries stay in the cache."""
-    n = values.shape[0]
+def _magnitude(cols: list[np.ndarray], factors: list[float]) -> np.ndarray:
+    """``sqrt(sum((col * f) ** 2))`` over the columns and their factors, in float64 in the same
+    arithmetic and order, in blocks of rows so that the temporaries stay in the cache."""
+    n = cols[0].size
     out = np.empty(n, dtype=np.float64)
     part = np.empty(min(n, _GRID_BLOCK), dtype=np.float64)
     for a in range(0, n, _GRID_BLOCK):
         b = min(a + _GRID_BLOCK, n)
         total, term = out[a:b], part[: b - a]
-        for i, (j, f) in enumerate(zip(cols, factors)):
+        for i, (col, f) in enumerate(zip(cols, factors)):
             into = total if i == 0 else term
-            np.multiply(values[a:b, j], f, out=into)
+            np.multiply(col[a:b], f, out=into, dtype=np.float64)
             np.multiply(into, into, out=into)
             if i:
                 total += term
@@ -664,36 +657,39 @@ def _tidy_rate(fs: float) -> float:
 _GRID_BLOCK = 1 << 15
 
 
-def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max_fill_s: float,
-             repairs: list[str], dt: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: float,
+             max_gap_s: float, max_fill_s: float, repairs: list[str],
+             dt: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Resample onto the uniform grid t0 + k/fs; short missing runs filled, long ones and gaps kept.
 
-    Returns the signal as float32 (NaN where not valid) and the valid mask. ``values`` (float64) is
-    changed in place (short runs filled); each channel is handled on its own, so a column-major
-    ``values`` (one contiguous run of memory per channel) is fastest, and the signal returned is
-    column-major too. ``dt`` is ``numpy.diff(t)`` when the caller has it. Linear in the number of
-    samples: every step touches each sample a fixed number of times, whatever the number of
-    missing runs or gaps. Channels, and blocks of grid points, are shared out among threads
-    (:func:`_each`); each writes only its own part of the output, so the result does not depend
-    on the number of threads.
+    ``cols`` are the channels' values as read (any float type, not written to), ``factors`` their
+    unit factors: a channel's value is ``float64(value) * factor``, or the value filled in. Returns
+    the signal as float32 (NaN where not valid), column-major, and the valid mask. ``dt`` is
+    ``numpy.diff(t)`` when the caller has it. Linear in the number of samples: every step touches
+    each sample a fixed number of times, whatever the number of missing runs or gaps. Channels,
+    and blocks of grid points, are shared out among threads (:func:`_each`); each writes only its
+    own part of the output, so the result does not depend on the number of threads.
 
     Every value that is not NaN must be finite (the absurd-value check sees to it).
     """
-    n, c = values.shape
+    n, c = t.size, len(cols)
     parallel = n >= _PARALLEL_FROM
     nan = np.empty((c, n), dtype=bool)
     max_fill = max(1, int(round(max_fill_s * fs)))
+    fills: list[tuple[np.ndarray, np.ndarray] | None] = [None] * c
 
-    # 1. short runs of missing values: interpolate in time between the run's two neighbours
+    # 1. short runs of missing values: interpolated in time between the run's two neighbours
     def fill(j: int) -> tuple[int, bool]:
         """(values filled, whether the channel still misses some) for channel j; nan[j] set."""
-        np.isnan(values[:, j], out=nan[j])
+        np.isnan(cols[j], out=nan[j])
         if not nan[j].any():
             return 0, False
-        filled = _fill_short_runs(t, values[:, j], max_fill, nan[j])
-        if filled:
-            np.isnan(values[:, j], out=nan[j])
-        return filled, bool(filled == 0 or nan[j].any())
+        fills[j] = _short_run_fills(t, cols[j], factors[j], max_fill, nan[j])
+        if fills[j] is None:
+            return 0, True
+        filled = fills[j][0]
+        nan[j][filled] = False  # a filled value, from two finite ones, is finite
+        return filled.size, bool(nan[j].any())
 
     done = _each(fill, list(range(c)), parallel)
     filled = sum(f for f, _ in done)
@@ -707,6 +703,18 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         if has_nan[j]:
             row_ok &= ~nan[j]
     del nan
+
+    def rows(j: int, r0: int, r1: int) -> np.ndarray:
+        """Channel j's values of rows r0 .. r1 in float64: scaled, short runs filled."""
+        y = cols[j][r0:r1].astype(np.float64)
+        if factors[j] != 1.0:
+            y *= factors[j]
+        if fills[j] is not None:
+            at, value = fills[j]
+            k0, k1 = np.searchsorted(at, (r0, r1))
+            y[at[k0:k1] - r0] = value[k0:k1]
+        return y
+
     # 2. uniform grid
     if dt is None:
         dt = np.diff(t)
@@ -716,11 +724,14 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
     n_grid = int(math.floor((t[-1] - t[0]) * fs + 1e-6)) + 1
     grid = t[0] + np.arange(n_grid) / fs
     out = np.empty((c, n_grid), dtype=np.float32)  # one row per channel; returned transposed
+    blocks = list(range(0, n_grid, _GRID_BLOCK))
     if not jitter and n_grid == n:
-        def copy(j: int) -> None:
-            out[j] = values[:, j]
+        def copy(a: int) -> None:
+            b = min(a + _GRID_BLOCK, n)
+            for j in range(c):
+                out[j, a:b] = rows(j, a, b)
 
-        _each(copy, list(range(c)), parallel)
+        _each(copy, blocks, parallel)
         valid = row_ok.copy()
     else:
         # Linear interpolation in time, one channel at a time, with the positions on the grid
@@ -731,10 +742,10 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
         # missing value: such a point takes its row.
         left_all = _rows_at_or_before(t, grid, fs, parallel)
         left_all -= 1
-        np.clip(left_all, 0, n - 1, out=left_all)
+        np.clip(left_all, 0, n - 1, out=left_all)  # ascending, like the grid
         near = 1e-9 * max(1.0, abs(t[-1]))
         valid = np.empty(n_grid, dtype=bool)
-        gappy = [j for j in range(c) if has_nan[j]]
+        gappy = any(has_nan)
 
         def interpolate(a: int) -> None:
             """Grid points a .. a + _GRID_BLOCK (a block, so that the temporaries stay in the
@@ -754,8 +765,11 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
                 # the valid points an interpolation may give NaN: those whose two rows are not
                 # both complete (from two finite values, times strictly apart, it is finite)
                 doubtful = np.flatnonzero(ok & ~(row_ok[lo] & row_ok[hi]))
+            r0, r1 = int(lo[0]), int(hi[-1]) + 1  # the rows this block reads
+            lo -= r0
+            hi -= r0
             for j in range(c):  # loop over channels
-                y = values[:, j]
+                y = rows(j, r0, r1)
                 y_lo = y[lo]
                 v = y[hi] - y_lo
                 v /= span
@@ -765,9 +779,9 @@ def _to_grid(t: np.ndarray, values: np.ndarray, fs: float, max_gap_s: float, max
                 if has_nan[j] and doubtful.size:
                     # a point within rounding of a complete row that a missing value follows
                     on_row = doubtful[np.isnan(o[doubtful])]
-                    o[on_row] = y[left[on_row]]
+                    o[on_row] = y[left[on_row] - r0]
 
-        _each(interpolate, list(range(0, n_grid, _GRID_BLOCK)), parallel)
+        _each(interpolate, blocks, parallel)
         del left_all
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
@@ -838,34 +852,35 @@ def _rows_at_or_before(t: np.ndarray, grid: np.ndarray, fs: float,
     return np.cumsum(np.bincount(first, minlength=m + 1)[:m])
 
 
-def _fill_short_runs(t: np.ndarray, column: np.ndarray, max_fill: int,
-                     missing: np.ndarray | None = None) -> int:
-    """Fill runs of NaN of at most ``max_fill`` samples that have a value on both sides, in place.
+def _short_run_fills(t: np.ndarray, column: np.ndarray, factor: float, max_fill: int,
+                     missing: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """The values that fill the runs of NaN of at most ``max_fill`` samples that have a value on
+    both sides: (rows ascending, float64 values), None when there are none. ``missing`` is
+    ``numpy.isnan(column)``; the column's values count as ``float64(value) * factor``.
 
     Each filled value is the linear interpolation in time between the run's two neighbours (what
-    ``numpy.interp`` over the column's values gives, in the same arithmetic). Returns how many
-    values were filled. ``missing`` is ``numpy.isnan(column)`` when the caller has it.
+    ``numpy.interp`` over the column's values gives, in the same arithmetic).
     """
-    if missing is None:
-        missing = np.isnan(column)
     if not missing.any():
-        return 0
+        return None
     padded = np.concatenate([[False], missing, [False]])
     edges = np.flatnonzero(padded[1:] != padded[:-1])
     a, b = edges[0::2], edges[1::2]
     keep = (b - a <= max_fill) & (a > 0) & (b < column.size)
     a, b = a[keep], b[keep]
     if not a.size:
-        return 0
+        return None
     lengths = b - a
     # every sample of every kept run, with the index of its run
     run = np.repeat(np.arange(a.size), lengths)
     idx = np.arange(int(lengths.sum())) - np.repeat(np.cumsum(lengths) - lengths, lengths) + a[run]
     x0, x1 = t[a - 1], t[b]
-    y0, y1 = column[a - 1], column[b]
+    y0, y1 = column[a - 1].astype(np.float64), column[b].astype(np.float64)
+    if factor != 1.0:
+        y0 *= factor
+        y1 *= factor
     slope = (y1 - y0) / (x1 - x0)
-    column[idx] = slope[run] * (t[idx] - x0[run]) + y0[run]
-    return int(idx.size)
+    return idx, slope[run] * (t[idx] - x0[run]) + y0[run]
 
 
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
