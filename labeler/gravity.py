@@ -31,14 +31,46 @@ CANDIDATES = ("g", "m/s2", "mg")
 def rest_level(magnitude: np.ndarray, block: int = BLOCK) -> float | None:
     """Median |acc| of the quietest tenth of blocks of ``block`` samples; None if too short."""
     m = np.asarray(magnitude, dtype=np.float64)
-    m = m[np.isfinite(m)]
+    return finite_rest_level(m[np.isfinite(m)], block)
+
+
+def finite_rest_level(m: np.ndarray, block: int = BLOCK) -> float | None:
+    """:func:`rest_level` of magnitudes that are all finite (float64)."""
     if m.size < 8:
         return None
     block = min(block, max(4, m.size // 4))
     nb = m.size // block
     blocks = m[: nb * block].reshape(nb, block)
-    quiet = np.argsort(blocks.std(axis=1), kind="stable")[: max(1, nb // 10)]
+    quiet = _smallest(_row_std(blocks), max(1, nb // 10))
     return float(np.median(blocks[quiet].mean(axis=1)))
+
+
+#: values a step of _row_std reads at a time (its temporaries stay in the cache)
+_ROWS_AT_A_TIME = 1 << 15
+
+
+def _row_std(blocks: np.ndarray) -> np.ndarray:
+    """``blocks.std(axis=1)``, a few rows at a time: each row's the same, computed in the cache."""
+    rows = max(1, _ROWS_AT_A_TIME // max(1, blocks.shape[1]))
+    if blocks.shape[0] <= rows:
+        return blocks.std(axis=1)
+    out = np.empty(blocks.shape[0], dtype=np.float64)
+    for a in range(0, blocks.shape[0], rows):
+        out[a:a + rows] = blocks[a:a + rows].std(axis=1)
+    return out
+
+
+def _smallest(values: np.ndarray, k: int) -> np.ndarray:
+    """The indices of the k smallest values, ties going to the lower index: the first k of a
+    stable argsort, as a set (in another order), from one partition instead of a sort."""
+    if k >= values.size:
+        return np.arange(values.size)
+    kth = np.partition(values, k - 1)[k - 1]
+    if np.isnan(kth):  # fewer than k numbers: NaN sorts last, as in the sort
+        return np.argsort(values, kind="stable")[:k]
+    below = np.flatnonzero(values < kth)
+    tied = np.flatnonzero(values == kth)[: k - below.size]
+    return np.concatenate([below, tied])
 
 
 @dataclass

@@ -40,7 +40,7 @@ import pandas as pd
 
 from labeler.channels import CANONICAL_UNITS, UNIT_FACTORS, parse_channel, triads
 from labeler.errors import InputError
-from labeler.gravity import judge_level, rest_level
+from labeler.gravity import finite_rest_level, judge_level
 from labeler.timecolumn import median, read_time_column
 
 TIME_COLUMNS = ("time", "t", "timestamp", "time_s", "seconds", "datetime", "date_time")
@@ -217,9 +217,14 @@ def read_recording(path: str | os.PathLike, *, rate: float | None = None,
     notes: list[str] = []
     known = set(columns or {}) | ({time_column} if time_column else set())
     found: dict = {}
-    hashing = _HashInBackground(path)  # needed only at the end (duplicate check)
+    # The hash (needed only at the end, for the duplicate check) is computed in a thread while
+    # this one works alone: during the CSV parser, after the Parquet reader (which uses every
+    # core itself).
+    hashing = None if _is_parquet(path) else _HashInBackground(path)
     try:
         frame, first_row = _read_table(path, repairs, notes, skip_rows, known, found)
+        if hashing is None:
+            hashing = _HashInBackground(path)
         rec = recording_from_frame(frame, where=where, content_hash="",
                                    name=name or recording_name(path), rate=rate,
                                    time_column=time_column, time_unit=time_unit,
@@ -229,7 +234,8 @@ def read_recording(path: str | os.PathLike, *, rate: float | None = None,
                                    first_row=first_row, options_origin=options_origin,
                                    found=found)
     except BaseException:
-        hashing.cancel()
+        if hashing is not None:
+            hashing.cancel()
         raise
     rec.content_hash = hashing.result()
     return rec
@@ -252,7 +258,7 @@ def _read_table(path: Path, repairs: list[str], notes: list[str], skip_rows: int
         raise InputError(f"{where}: the file is empty; export the recording again")
     with open(path, "rb") as fh:
         head = fh.read(HEAD_BYTES)
-    is_parquet = head.startswith(b"PAR1") or path.suffix.lower() in (".parquet", ".pq")
+    is_parquet = _is_parquet(path, head)
     if is_parquet:
         try:
             import pyarrow.parquet as pq
@@ -331,6 +337,19 @@ def _read_table(path: Path, repairs: list[str], notes: list[str], skip_rows: int
                          "recording again") from None
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame, skip + 2
+
+
+def _is_parquet(path: Path, head: bytes | None = None) -> bool:
+    """Whether the file is read as Parquet: by its first bytes or its name."""
+    if path.suffix.lower() in (".parquet", ".pq"):
+        return True
+    if head is None:
+        try:
+            with open(path, "rb") as fh:
+                head = fh.read(4)
+        except OSError:
+            return False  # reading it says what is wrong
+    return head.startswith(b"PAR1")
 
 
 def _names_a_column(field_: str, known: set[str]) -> bool:
@@ -568,7 +587,7 @@ def _check_gravity(cols: list[np.ndarray], channels: list[str], sensor_cols: lis
     assumed_units = set()
     acc = [(site, list(idx)) for site, kind, idx in triads(channels) if kind == "acc"]
     # each triad's level on a thread of its own (a verdict changes only its own triad's factors)
-    levels = _each(lambda idx: rest_level(_magnitude([cols[j] for j in idx],
+    levels = _each(lambda idx: finite_rest_level(_magnitude([cols[j] for j in idx],
                                                      [factors[j] for j in idx]), block),
                    [idx for _, idx in acc], cols[0].size >= _PARALLEL_FROM)
     for (site, idx), level in zip(acc, levels):
@@ -613,22 +632,34 @@ def _check_gravity(cols: list[np.ndarray], channels: list[str], sensor_cols: lis
 
 
 def _magnitude(cols: list[np.ndarray], factors: list[float]) -> np.ndarray:
-    """``sqrt(sum((col * f) ** 2))`` over the columns and their factors, in float64 in the same
-    arithmetic and order, in blocks of rows so that the temporaries stay in the cache."""
+    """The finite values of ``sqrt(sum((col * f) ** 2))`` over the columns and their factors, in
+    row order: in float64 in the same arithmetic and order, in blocks of rows so that the
+    temporaries stay in the cache."""
     n = cols[0].size
     out = np.empty(n, dtype=np.float64)
     part = np.empty(min(n, _GRID_BLOCK), dtype=np.float64)
+    kept = 0  # the finite values found so far fill out[:kept]
     for a in range(0, n, _GRID_BLOCK):
         b = min(a + _GRID_BLOCK, n)
-        total, term = out[a:b], part[: b - a]
+        total, term = out[kept:kept + b - a], part[: b - a]
         for i, (col, f) in enumerate(zip(cols, factors)):
             into = total if i == 0 else term
-            np.multiply(col[a:b], f, out=into, dtype=np.float64)
-            np.multiply(into, into, out=into)
+            if f == 1.0:  # (x * 1.0) ** 2 is x * x
+                np.multiply(col[a:b], col[a:b], out=into, dtype=np.float64)
+            else:
+                np.multiply(col[a:b], f, out=into, dtype=np.float64)
+                np.multiply(into, into, out=into)
             if i:
                 total += term
         np.sqrt(total, out=total)
-    return out
+        finite = np.isfinite(total)
+        if finite.all():
+            kept += b - a
+        else:
+            values = total[finite]
+            out[kept:kept + values.size] = values
+            kept += values.size
+    return out[:kept]
 
 
 def _numeric_column(col: pd.Series, where: str, name: str, first_row: int = 2) -> np.ndarray:
