@@ -826,11 +826,15 @@ def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: fl
             # grid points strictly inside (t[k], t[k + 1]) for each long pause k
             lo = np.searchsorted(grid, t[long] + 1e-9, side="right")
             hi = np.searchsorted(grid, t[long + 1] - 1e-9, side="left")
-            marks = np.zeros(n_grid + 1, dtype=np.int64)
             keep = hi > lo
-            np.add.at(marks, lo[keep], 1)
-            np.add.at(marks, hi[keep], -1)
-            valid &= np.cumsum(marks[:-1]) == 0
+            if np.count_nonzero(keep) <= _FEW_PAUSES:
+                for a, b in zip(lo[keep].tolist(), hi[keep].tolist()):
+                    valid[a:b] = False
+            else:  # many: one pass over the grid, whatever their number
+                marks = np.zeros(n_grid + 1, dtype=np.int64)
+                np.add.at(marks, lo[keep], 1)
+                np.add.at(marks, hi[keep], -1)
+                valid &= np.cumsum(marks[:-1]) == 0
             repairs.append(f"kept {long.size} pause(s) longer than {max_gap_s:g} s as gaps")
     invalid = ~valid
     if invalid.any():
@@ -839,6 +843,10 @@ def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: fl
         if not any("gaps" in r for r in repairs):
             repairs.append(f"kept {kept} run(s) of missing values as gaps")
     return out.T, valid
+
+
+#: up to this many pauses are marked one slice each, more by a running sum over the grid
+_FEW_PAUSES = 256
 
 
 def _jittered(dt: np.ndarray, nominal: float) -> bool:
@@ -894,9 +902,15 @@ def _short_run_fills(t: np.ndarray, column: np.ndarray, factor: float, max_fill:
     """
     if not missing.any():
         return None
-    padded = np.concatenate([[False], missing, [False]])
-    edges = np.flatnonzero(padded[1:] != padded[:-1])
-    a, b = edges[0::2], edges[1::2]
+    # the runs: a (first missing) where a value is followed by a missing one, b (first value
+    # after) where a missing one is followed by a value; the column's ends are not runs' ends
+    change = np.flatnonzero(missing[1:] != missing[:-1]) + 1
+    a = change[missing[change]]
+    b = change[~missing[change]]
+    if missing[0]:
+        a = np.concatenate([[0], a])
+    if missing[-1]:
+        b = np.concatenate([b, [column.size]])
     keep = (b - a <= max_fill) & (a > 0) & (b < column.size)
     a, b = a[keep], b[keep]
     if not a.size:
