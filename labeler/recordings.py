@@ -729,15 +729,19 @@ def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: fl
         repairs.append(f"filled {filled} missing values (runs up to {max_fill_s:g} s)")
     # rows with no missing value: one pass per channel that misses some (a reduction across the
     # rows of the (channels, samples) mask strides through memory and is ten times slower)
-    row_ok = np.ones(n, dtype=bool)
+    row_bad = np.zeros(n, dtype=bool)
     for j in range(c):
         if has_nan[j]:
-            row_ok &= ~nan[j]
-    del nan
+            row_bad |= nan[j]
+    row_ok = ~row_bad
+    del nan, row_bad
 
     def rows(j: int, r0: int, r1: int) -> np.ndarray:
         """Channel j's values of rows r0 .. r1 in float64: scaled, short runs filled."""
-        y = cols[j][r0:r1].astype(np.float64)
+        y = cols[j][r0:r1]
+        if factors[j] == 1.0 and fills[j] is None:
+            return y.astype(np.float64, copy=False)  # read only
+        y = y.astype(np.float64)
         if factors[j] != 1.0:
             y *= factors[j]
         if fills[j] is not None:
