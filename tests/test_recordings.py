@@ -225,3 +225,98 @@ def test_rows_at_or_before_each_grid_point_as_numpy_searchsorted_counts():
         grid = t[0] + np.arange(int(math.floor((t[-1] - t[0]) * fs + 1e-6)) + 1) / fs
         np.testing.assert_array_equal(_rows_at_or_before(t, grid, fs),
                                       np.searchsorted(t, grid, side="right"))
+
+
+def test_large_recording_on_several_threads_as_numpy_interp_and_as_on_one(monkeypatch):
+    # reference: numpy.interp per channel (_reference_grid), on a recording long enough for the
+    # channels and blocks of grid points to be shared out among threads (several blocks), in
+    # float32 as a Parquet file gives them, in m/s2 (scaled on the way onto the grid); one thread
+    # and four give the same bytes
+    import labeler.recordings as recordings
+
+    n = 3 * recordings._GRID_BLOCK + 1234
+    assert n >= recordings._PARALLEL_FROM
+    rng = np.random.default_rng(21)
+    frame = sensor_frame(n, jitter=0.3, seed=21)
+    cols = [c for c in frame.columns if c != "time"]
+    values = frame[cols].to_numpy().copy()
+    for _ in range(3000):  # short runs of one to twelve samples, anywhere, in any channel
+        a, m, j = rng.integers(1, n - 20), rng.integers(1, 13), rng.integers(0, len(cols))
+        values[a:a + m, j] = np.nan
+    values[50_000:50_040, 4] = np.nan  # too long to fill: a gap
+    acc = [j for j, c in enumerate(cols) if "_acc_" in c]
+    values[:, acc] *= STANDARD_GRAVITY
+    frame[cols] = values.astype(np.float32)
+    frame = frame.drop(index=range(70_000, 70_300)).reset_index(drop=True)  # a 6 s pause
+    frame = frame.rename(columns={c: f"{c}[m/s2]" for c in cols if "_acc_" in c})
+    runs = {}
+    for workers in (1, 4):
+        monkeypatch.setattr(recordings, "_MAX_WORKERS", workers)
+        runs[workers] = recording_from_frame(frame, where="f.parquet", content_hash="h", name="r")
+    one, four = runs[1], runs[4]
+    assert one.signal.tobytes() == four.signal.tobytes()
+    assert one.valid.tobytes() == four.valid.tobytes() and one.repairs == four.repairs
+    t = frame["time"].to_numpy()
+    scaled = frame.iloc[:, 1:].to_numpy().astype(np.float64)
+    scaled[:, acc] /= STANDARD_GRAVITY  # g: the factor m/s2 -> g is 1 / standard gravity
+    grid, expected = _reference_grid(t, scaled, 50.0, max_fill=12)
+    assert one.n_samples == grid.size and one.signal.shape == (grid.size, 12)
+    assert not one.valid[(grid > t[69_999] + 1e-9) & (grid < t[70_000] - 1e-9)].any()
+    assert 0.9 < one.valid.mean() < 1.0
+    assert np.isnan(one.signal[~one.valid]).all()
+    np.testing.assert_allclose(one.signal[one.valid], expected[one.valid].astype(np.float32),
+                               rtol=1e-6, atol=1e-6)
+
+
+def test_median_is_numpy_median():
+    # reference: numpy.median, bit for bit, on odd and even counts, ties, zeros of both signs,
+    # infinities, float32, sorted and small arrays
+    from labeler.timecolumn import median
+
+    rng = np.random.default_rng(4)
+    cases = [rng.normal(size=100_001), rng.normal(size=100_000), np.full(5000, 0.02),
+             np.r_[np.zeros(500), np.ones(500)], np.sort(rng.normal(size=2001)),
+             np.r_[np.full(100, np.inf), np.zeros(70)], rng.integers(0, 5, 3000).astype(float),
+             rng.normal(size=4000).astype(np.float32), np.r_[-np.zeros(50), np.zeros(50)],
+             np.array([3.0]), np.array([2.0, -1.0]), np.array([2.0, -1.0, 5.0])]
+    cases += [rng.integers(-3, 4, n).astype(float) * 0.1 for n in range(2, 60)]
+    for x in cases:
+        for overwrite in (False, True):
+            expected = np.float64(np.median(x)).tobytes()
+            assert np.float64(median(x.copy(), overwrite=overwrite)).tobytes() == expected
+
+
+def test_quietest_blocks_are_those_of_a_stable_sort():
+    # reference: the first k of numpy.argsort(kind="stable"), as a set, with ties and NaN
+    from labeler.gravity import _row_std, _smallest
+
+    rng = np.random.default_rng(8)
+    for trial in range(200):
+        n = int(rng.integers(1, 400))
+        values = np.round(rng.normal(size=n), 1 if trial % 2 else 6)
+        if trial % 5 == 0:
+            values[rng.random(n) < 0.3] = np.nan
+        k = int(rng.integers(1, n + 1))
+        expected = np.sort(np.argsort(values, kind="stable")[:k])
+        np.testing.assert_array_equal(np.sort(_smallest(values, k)), expected)
+    blocks = rng.normal(size=(5000, 50))
+    assert _row_std(blocks).tobytes() == blocks.std(axis=1).tobytes()
+
+
+def test_content_hash_is_the_files_sha256_and_no_thread_outlives_a_refusal(write_csv, tmp_path):
+    # reference: hashlib.sha256 of the file's bytes (FIPS 180-4); the hash is computed on a
+    # thread of its own while the file is read, and is waited for even when the file is refused
+    import hashlib
+    import threading
+
+    path = write_csv(sensor_frame(700))
+    rec = read_recording(path)
+    assert rec.content_hash == hashlib.sha256(path.read_bytes()).hexdigest()
+    pq_path = tmp_path / "r.parquet"
+    sensor_frame(700).to_parquet(pq_path)
+    assert read_recording(pq_path).content_hash == hashlib.sha256(pq_path.read_bytes()).hexdigest()
+    bad = sensor_frame(700)
+    bad.loc[300, "time"] = bad.loc[299, "time"]
+    with pytest.raises(InputError, match="duplicate timestamp"):
+        read_recording(write_csv(bad, "bad.csv"))
+    assert not [t for t in threading.enumerate() if t.name == "labeler-file-hash"]
