@@ -775,9 +775,7 @@ def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: fl
         # every valid point, what interpolating over the complete rows alone gives (the arithmetic
         # of numpy.interp), except NaN where a point within rounding of a row is followed by a
         # missing value: such a point takes its row.
-        left_all = _rows_at_or_before(t, grid, fs, parallel)
-        left_all -= 1
-        np.clip(left_all, 0, n - 1, out=left_all)  # ascending, like the grid
+        counts = _rows_at_or_before(t, grid, fs, parallel)  # ascending, like the grid
         near = 1e-9 * max(1.0, abs(t[-1]))
         valid = np.empty(n_grid, dtype=bool)
         gappy = any(has_nan)
@@ -786,27 +784,37 @@ def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: fl
             """Grid points a .. a + _GRID_BLOCK (a block, so that the temporaries stay in the
             cache)."""
             b = min(a + _GRID_BLOCK, n_grid)
-            left, g = left_all[a:b], grid[a:b]
-            right = np.minimum(left + 1, n - 1)
-            exact = np.abs(t[left] - g) <= near
-            ok = valid[a:b]
-            np.logical_and(row_ok[left], exact | row_ok[right], out=ok)
-            lo = np.minimum(left, n - 2)
+            g = grid[a:b]
+            left = counts[a:b] - 1  # the row at or before each point
+            np.clip(left, 0, n - 1, out=left)
+            tail = bool(left[-1] == n - 1)  # points at or after the last row: the last block
+            # each point is interpolated between rows lo and hi = lo + 1: its row and the next,
+            # the last two rows for points at or after the last
+            lo = np.minimum(left, n - 2) if tail else left
             hi = lo + 1
+            ok_lo, ok_hi = row_ok[lo], row_ok[hi]
             t_lo = t[lo]
+            if tail:
+                exact = np.abs(t[left] - g) <= near
+                ok_left, ok_right = row_ok[left], row_ok[np.minimum(left + 1, n - 1)]
+            else:  # left is lo, the next row is hi
+                exact = np.abs(t_lo - g) <= near
+                ok_left, ok_right = ok_lo, ok_hi
+            ok = valid[a:b]
+            np.logical_and(ok_left, exact | ok_right, out=ok)
             span = t[hi] - t_lo
             offset = g - t_lo
             if gappy:
                 # the valid points an interpolation may give NaN: those whose two rows are not
                 # both complete (from two finite values, times strictly apart, it is finite)
-                doubtful = np.flatnonzero(ok & ~(row_ok[lo] & row_ok[hi]))
+                doubtful = np.flatnonzero(ok & ~(ok_lo & ok_hi))
             r0, r1 = int(lo[0]), int(hi[-1]) + 1  # the rows this block reads
-            lo -= r0
-            hi -= r0
+            lo_r = lo - r0
+            hi_r = lo_r + 1
             for j in range(c):  # loop over channels
                 y = rows(j, r0, r1)
-                y_lo = y[lo]
-                v = y[hi] - y_lo
+                y_lo = y[lo_r]
+                v = y[hi_r] - y_lo
                 v /= span
                 v *= offset
                 o = out[j, a:b]
@@ -817,7 +825,7 @@ def _to_grid(t: np.ndarray, cols: list[np.ndarray], factors: list[float], fs: fl
                     o[on_row] = y[left[on_row] - r0]
 
         _each(interpolate, blocks, parallel)
-        del left_all
+        del counts
         if jitter:
             repairs.append(f"resampled jittered timestamps onto a uniform {fs:g} Hz grid")
         short = int(np.count_nonzero(dt[longer] <= max(max_gap_s, 1.5 * nominal)))
