@@ -12,7 +12,9 @@ hurts both alike):
 
 Each figure is printed as wall time and CPU time (user + system of this process; on the shared
 machine the CPU time changes least with the load, which is printed too). The ratios are of CPU
-times. Set-up (simulation, writing the files) is not timed. Run:
+times; the read's ratio of wall times is printed too (the peer and the read both use every core:
+pyarrow's reader, and ``read_recording``'s threads). Set-up (simulation, writing the files) is not
+timed. Run:
     python benchmarks/bench_ingest.py [--hours 8] [--repeats 3] [--format csv parquet] [--data DIR]
 
 ``--data DIR`` keeps the files in DIR (written when missing, reused otherwise) for profiling.
@@ -126,7 +128,7 @@ def main() -> None:
                   f"best of {args.repeats}; load {load()}:")
             print(f"  {peer_name:<36} {p[0]:7.2f} s  (CPU {p[1]:6.2f} s)")
             print(f"  {'read+check+repair (read_recording)':<36} {r[0]:7.2f} s  (CPU {r[1]:6.2f} s)"
-                  f"   ratio {r[1] / p[1]:5.2f}x   (goal <= {GOAL:g}x)")
+                  f"   ratio {r[1] / p[1]:5.2f}x   (goal <= {GOAL:g}x; wall {r[0] / p[0]:5.2f}x)")
             print(f"  {'whole add (file -> project)':<36} {w[0]:7.2f} s  (CPU {w[1]:6.2f} s)"
                   f"   ratio {w[1] / p[1]:5.2f}x")
             print(f"  {'  of which windows+features+write':<36} {rest[0]:7.2f} s  "
