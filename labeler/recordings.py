@@ -101,7 +101,7 @@ def file_hash(path: str | os.PathLike, stop: threading.Event | None = None) -> s
 
 
 class _HashInBackground:
-    """The file's hash, computed in a thread of its own while the file is read and checked (the
+    """The file's hash, computed in a thread of its own while the file is parsed or checked (the
     file read and the hash update run without the interpreter lock)."""
 
     def __init__(self, path: Path):
