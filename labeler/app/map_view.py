@@ -61,12 +61,12 @@ class MapView:
         self.pick_src = ColumnDataSource(self._pick_data(np.zeros(0, np.int64)),
                                          name="pick_source")
         self.focus_src = ColumnDataSource({"x": [], "y": []})
+        # no axes and no grids (the map's coordinates mean nothing to the eye): not hidden but
+        # absent, so the page builds and lays out no views for them
         p = figure(height=MAP_H, sizing_mode="stretch_width", min_width=360,
                    output_backend=draw, tools=[], toolbar_location="above", name="map",
-                   match_aspect=False)
+                   match_aspect=False, x_axis_type=None, y_axis_type=None)
         p.title.text = "Windows (similar movements sit together) — drag to pick"
-        p.xaxis.visible = p.yaxis.visible = False
-        p.grid.visible = False
         p.background_fill_color = "#FAFAFA"
         p.min_border = 4
         self._shape = CustomJSTransform(args={"shapes": list(SHAPES), "per_shape": int(per_shape)},

@@ -115,8 +115,19 @@ class SignalView:
             self._ranges[site] = (acc_r, gyr_r)
         for f in self.figs[:-1]:
             f.xaxis.visible = False
-        self.box = column(row(self.title, self.steady, sizing_mode="stretch_width"), *self.figs,
-                          sizing_mode="stretch_width", name="signal_box")
+        # the figures join the page when a window is first shown (place); until then a block of
+        # their height holds their place, so nothing below moves and the map is not repainted:
+        # the figures are a hundred models the page would build and lay out before it is ready,
+        # to show nothing
+        self.waiting = Div(text="", height=SIGNAL_H * len(self.figs), sizing_mode="stretch_width",
+                           name="signal_waiting")
+        self.head = row(self.title, self.steady, sizing_mode="stretch_width")
+        self.box = column(self.head, self.waiting, sizing_mode="stretch_width", name="signal_box")
+
+    def place(self) -> None:
+        """Put the figures in the page in place of the block holding their place, once."""
+        if self.waiting in self.box.children:
+            self.box.children = [self.head, *self.figs]
 
     def read(self, recording: str, a: float, b: float):
         """(t, signal, channel names) of recording between a and b s; the last few reads are kept
@@ -144,6 +155,7 @@ class SignalView:
         """Draw the window [a, b] s of ``recording`` with CONTEXT_S seconds either side."""
         self.last = (recording, a, b)
         t, sig, names = self.read(recording, a - CONTEXT_S, b + CONTEXT_S)
+        self.place()
         col = {n: i for i, n in enumerate(names)}
         for site, srcs in self.srcs.items():
             vals = {"acc": [], "gyr": []}

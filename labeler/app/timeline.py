@@ -8,7 +8,7 @@ Runs break at gaps between windows, so a gap in a recording stays visible.
 from __future__ import annotations
 
 import numpy as np
-from bokeh.models import (BoxSelectTool, ColumnDataSource, FixedTicker, PanTool, Range1d,
+from bokeh.models import (BoxSelectTool, ColumnDataSource, FixedTicker, Grid, PanTool, Range1d,
                           ResetTool, TapTool, WheelZoomTool)
 from bokeh.plotting import figure
 
@@ -95,7 +95,9 @@ class TimelineView:
         p.yaxis.ticker = FixedTicker(ticks=list(range(n_rec)))
         p.yaxis.major_label_overrides = {i: str(nm) for i, nm in enumerate(s.rec_names)}
         p.xaxis.axis_label = "time (s)"
-        p.ygrid.visible = False
+        # the strips need no horizontal grid lines: none drawn, and none hidden (a hidden grid is
+        # still a view the page builds)
+        p.center = [r for r in p.center if not (isinstance(r, Grid) and r.dimension == 1)]
         self.fig = p
 
     def data(self) -> dict:
