@@ -543,6 +543,24 @@ def test_gallery_and_drawer_join_the_page_when_first_shown_and_stay(app):
     assert side.drawer.visible and list(side.box.children).count(side.drawer) == 1
 
 
+def test_signal_figures_join_the_page_when_a_window_is_first_shown(app):
+    """A page starts with a block holding the signal figures' place (same height, nothing below
+    moves when they come) and none of their models; the first window shown puts the figures in
+    its place, once, drawing that window; the map has no axes or grids at all."""
+    from bokeh.models import Grid, LinearAxis
+
+    sig = app.signal
+    assert not any(_in_document(app, f) for f in sig.figs) and _in_document(app, sig.waiting)
+    assert sig.waiting.height == sum(f.height for f in sig.figs)
+    assert not app.map.fig.select({"type": LinearAxis}) and not app.map.fig.select({"type": Grid})
+    app.select_map([4])
+    assert list(sig.box.children) == [sig.head, *sig.figs]
+    assert all(_in_document(app, f) for f in sig.figs) and not _in_document(app, sig.waiting)
+    assert all(len(src.data["xs"][0]) > 0 for srcs in sig.srcs.values() for src in srcs.values())
+    app.select_map([9])                                   # placed once
+    assert list(sig.box.children) == [sig.head, *sig.figs]
+
+
 def test_a_quick_second_click_on_the_map_picks_too(app):
     """The page sends a click that follows another within 300 ms as a double tap (BokehJS's
     threshold); it picks the window under it as a click does."""
