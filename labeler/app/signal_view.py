@@ -119,8 +119,8 @@ class SignalView:
         # their height holds their place, so nothing below moves and the map is not repainted:
         # the figures are a hundred models the page would build and lay out before it is ready,
         # to show nothing
-        self.waiting = Div(text="", height=SIGNAL_H * len(self.figs), sizing_mode="stretch_width",
-                           name="signal_waiting")
+        self.waiting = Div(text="", height=SIGNAL_H * len(self.figs), margin=0,
+                           sizing_mode="stretch_width", name="signal_waiting")
         self.head = row(self.title, self.steady, sizing_mode="stretch_width")
         self.box = column(self.head, self.waiting, sizing_mode="stretch_width", name="signal_box")
 
