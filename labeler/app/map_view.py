@@ -99,13 +99,13 @@ class MapView:
                                formatters={"@prop": fmt, "@cf": fmt,
                                            "@who": _name_lookup(people, "nobody"),
                                            "@rec": _name_lookup(recordings, "?")})
-        # the drag, lasso and click tools aim at an empty renderer: they only send their shape
-        # (on the overlay too: its empty selection changing must not repaint the points)
-        aim = p.scatter(x=[], y=[], size=0, name="pick_aim", level="overlay")
-        box = BoxSelectTool(renderers=[aim], persistent=False)
+        # the drag, lasso and click tools select on no renderer: they only send their shape (a
+        # selection on the map's source would repaint every point), and need no empty renderer
+        # to aim at (a renderer is several views in the page)
+        box = BoxSelectTool(renderers=[], persistent=False)
         wheel = WheelZoomTool()
-        p.add_tools(box, LassoSelectTool(renderers=[aim], continuous=False), PanTool(), wheel,
-                    TapTool(renderers=[aim]), self.hover, ResetTool())
+        p.add_tools(box, LassoSelectTool(renderers=[], continuous=False), PanTool(), wheel,
+                    TapTool(renderers=[]), self.hover, ResetTool())
         p.toolbar.active_drag = box
         p.toolbar.active_scroll = wheel
         p.toolbar.logo = None

@@ -84,11 +84,10 @@ class TimelineView:
                fill_color={"field": "lab", "transform": class_mapper}, line_color=None)
         p.quad(left="left", right="right", bottom="bottom", top="top", source=self.focus,
                fill_color=None, line_color="#000000", line_width=2, level="overlay")
-        dummy = p.scatter(x=[], y=[], size=0)
-        box = BoxSelectTool(renderers=[dummy], dimensions="both", persistent=False)
+        # the drag and click tools select on no renderer: they only send their shape
+        box = BoxSelectTool(renderers=[], dimensions="both", persistent=False)
         wheel = WheelZoomTool(dimensions="width")
-        p.add_tools(box, PanTool(dimensions="width"), wheel, TapTool(renderers=[dummy]),
-                    ResetTool())
+        p.add_tools(box, PanTool(dimensions="width"), wheel, TapTool(renderers=[]), ResetTool())
         p.toolbar.active_drag = box
         p.toolbar.active_scroll = wheel
         p.toolbar.logo = None
