@@ -186,20 +186,31 @@ def test_hostile_class_name_renders_as_text(driver, served):
 
 
 def test_map_is_drawn_the_way_the_address_says(driver, served):
-    """?draw=webgl forces WebGL; an address without it asks again at once with the drawing the
-    browser does fast (canvas without a GPU), and the server builds no document for the first ask;
-    the header names what the map is drawn with."""
+    """?draw=webgl forces WebGL; an address without it is drawn on a canvas at once unless the
+    browser's WebGL runs on a GPU (the page then asks again with ?draw=webgl before loading
+    BokehJS); the browser's choice is kept in a cookie the server reads, so the next address
+    without ?draw= goes straight to it; the header names what the map is drawn with."""
     srv, _path = served
     _open(driver, srv.url + "?draw=webgl")
     assert driver.current_url.endswith("?draw=webgl")
     assert "drawn with WebGL" in _div_text(driver, "header")
+    driver.delete_all_cookies()
     _open(driver, srv.url)
     _wait(lambda: _div_text(driver, "header"), 20, "the header")
     header = _div_text(driver, "header")
-    if driver.current_url.endswith("?draw=canvas"):
-        assert "drawn with canvas" in header
+    chosen = driver.get_cookie("labeler_draw")["value"]
+    if chosen == "canvas":
+        assert driver.current_url == srv.url and "drawn with canvas" in header
     else:
-        assert driver.current_url.endswith("?draw=webgl") and "drawn with WebGL" in header
+        assert chosen == "webgl" and driver.current_url.endswith("?draw=webgl")
+        assert "drawn with WebGL" in header
+    try:
+        for kept, said in (("webgl", "drawn with WebGL"), ("canvas", "drawn with canvas")):
+            driver.add_cookie({"name": "labeler_draw", "value": kept, "path": "/"})
+            _open(driver, srv.url)
+            assert driver.current_url == srv.url and said in _div_text(driver, "header")
+    finally:
+        driver.add_cookie({"name": "labeler_draw", "value": chosen, "path": "/"})
 
 
 def test_review_queue_item_confirmed_with_a_key_then_undone(driver, served):

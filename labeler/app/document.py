@@ -51,9 +51,14 @@ PENDING_MAX = 8                  # deliveries kept for panels built ahead (see L
 STEP_PAUSE_S = 0.01              # a served page's build lets the server's loop run this long per step
 
 
-def _requested_draw(doc) -> str | None:
+def _request(doc):
     ctx = getattr(doc, "session_context", None)
-    request = getattr(ctx, "request", None) if ctx is not None else None
+    return getattr(ctx, "request", None) if ctx is not None else None
+
+
+def _requested_draw(doc) -> str | None:
+    """The drawing the page's address asks for (``?draw=webgl|canvas``), if any."""
+    request = _request(doc)
     args = getattr(request, "arguments", None) or {}
     got = args.get("draw")
     if not got:
@@ -62,11 +67,18 @@ def _requested_draw(doc) -> str | None:
     return value if value in DRAW_BACKENDS else None
 
 
-def _served_without_draw(doc) -> bool:
-    """A served page whose address has no ``draw`` (its page reloads itself with one)."""
-    ctx = getattr(doc, "session_context", None)
-    request = getattr(ctx, "request", None) if ctx is not None else None
-    return request is not None and not (getattr(request, "arguments", None) or {}).get("draw")
+#: the browser's drawing, remembered by the page (templates/page.html) in a cookie of this name
+DRAW_COOKIE = "labeler_draw"
+
+
+def _remembered_draw(doc) -> str | None:
+    """The drawing this browser chose before (the cookie ``templates/page.html`` sets), if any."""
+    request = _request(doc)
+    try:
+        got = (getattr(request, "cookies", None) or {}).get(DRAW_COOKIE)
+    except Exception:                   # no cookies with this request
+        return None
+    return got if got in DRAW_BACKENDS else None
 
 
 def build_document(doc, project_path: str | os.PathLike, annotator: str | None = None, *,
@@ -77,17 +89,20 @@ def build_document(doc, project_path: str | os.PathLike, annotator: str | None =
     ``project``: an already open :class:`Project` (the session then owns it); by default the file is
     opened once for this session. ``background=False`` computes proposals in the calling thread
     (tests). ``draw``: "webgl" (default) or "canvas" for the map; in a served session the page's
-    ``?draw=`` argument decides: the page asks for it by itself (``templates/ask_draw.html``), webgl
-    when the browser has a GPU, else canvas; a served page without it gets a placeholder (None).
+    ``?draw=`` argument decides, else the drawing this browser chose before (a cookie), else
+    canvas, and the page then looks at the browser once: with a GPU that draws fast it asks again
+    at once with ``?draw=webgl`` before loading BokehJS (``templates/page.html``).
     """
     from labeler.project import Project
 
-    if draw is None and _requested_draw(doc) is None and _served_without_draw(doc):
-        # the page asks again at once with ?draw= (templates/ask_draw.html): build nothing for this one
-        doc.template = template("ask_draw.html")      # it loads no BokehJS
-        doc.add_root(Div(text="opening the project…", name="opening"))
-        return None
-    draw = draw or _requested_draw(doc) or "webgl"
+    served = _request(doc) is not None
+    if draw is None and served:
+        # canvas unless the address or this browser's earlier choice says otherwise: WebGL drawn
+        # in software (no GPU: headless or remote machines) is several times slower than a canvas
+        draw = _requested_draw(doc) or _remembered_draw(doc)
+        doc.template_variables["labeler_probe"] = draw is None
+        draw = draw or "canvas"
+    draw = draw or "webgl"
     if draw not in DRAW_BACKENDS:
         raise ValueError(f"draw must be one of {DRAW_BACKENDS}, got {draw!r}")
     doc.template_variables["labeler_js"] = page_scripts(draw)
@@ -359,7 +374,7 @@ class LabelerApp(Actions):
                 self._post(fn)
         if (self.state.confirmed >= 0).any():
             # brings the accuracy estimate too, off the page; in a served session only once the
-            # page has loaded, so a page that reloads itself (templates/ask_draw.html) costs no run
+            # page has loaded, so a page that reloads itself (templates/page.html) costs no run
             # (only the estimate when the stored proposals are of the current confirmations)
             refresh = not proposals_current(project, self.state)
             if not refresh:
