@@ -387,7 +387,10 @@ def _click_in(driver, name, css):
     host = _wait(lambda: driver.execute_script(
         "const m = Bokeh.documents[0].get_model_by_name(arguments[0]);"
         "return Bokeh.index.get_one(m).el;", name), 20, f"the {name} panel")
-    _wait(lambda: host.shadow_root.find_element(By.CSS_SELECTOR, css), 20, css).click()
+    # tried again while something else is over the element at that moment (the page still
+    # scrolling or laying out after the click before): the click is made once it lands
+    _wait(lambda: host.shadow_root.find_element(By.CSS_SELECTOR, css).click() or True, 20,
+          f"a click on {css} in {name}")
 
 
 def test_between_and_not_sure_answer_the_review_item(driver, served):
