@@ -46,6 +46,7 @@ import warnings
 import numpy as np
 from sklearn.base import BaseEstimator
 
+from labeler.cores import usable_cores
 from labeler.errors import InputError
 from labeler.spreading import DEFAULT_ALPHA, LabelSpreader, WindowOutputs, _check_y
 
@@ -286,10 +287,7 @@ def _core_free() -> bool:
     load average (one minute) at least one below their number. Without a free core the two
     threads only take turns (measured at 112k windows on 2 cores at load 3-4: the median
     refresh the same, single refreshes up to twice as long)."""
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on every system
-        cores = os.cpu_count() or 1
+    cores = usable_cores()
     try:
         load = os.getloadavg()[0]
     except (AttributeError, OSError):

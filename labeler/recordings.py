@@ -39,6 +39,7 @@ import numpy as np
 import pandas as pd
 
 from labeler.channels import CANONICAL_UNITS, UNIT_FACTORS, parse_channel, triads
+from labeler.cores import usable_cores
 from labeler.errors import InputError
 from labeler.gravity import finite_rest_level, judge_level
 from labeler.timecolumn import median, read_time_column
@@ -131,11 +132,7 @@ class _HashInBackground:
 
 def _workers() -> int:
     """Threads the numeric passes of one read may use: the cores this process may run on."""
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        cores = os.cpu_count() or 1
-    return max(1, min(_MAX_WORKERS, cores))
+    return min(_MAX_WORKERS, usable_cores())
 
 
 #: at most this many threads per read; below _PARALLEL_FROM samples one thread does everything
